@@ -1,0 +1,64 @@
+"""Errors a user can cause, each with the exit code the CLI uses.
+
+Library code raises these and never prints or exits; ``netgen.cli`` turns them
+into one ``Error: ...`` line on stderr and the exit code below.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "NetgenError",
+    "DesignError",
+    "SizingError",
+    "RenderError",
+    "SimulationError",
+    "SimulatorNotFoundError",
+    "OutputError",
+]
+
+
+class NetgenError(Exception):
+    """Base of every error a user can cause. ``exit_code`` is what the CLI returns."""
+
+    exit_code = 2
+
+
+class DesignError(NetgenError, ValueError):
+    """A design file (or a value in it) is missing, unreadable or invalid.
+
+    The message names the file or the dotted key path (``design.f0``) and what to do.
+    """
+
+
+class SizingError(NetgenError, ValueError):
+    """The specification cannot be realised (e.g. device Cout larger than the class-E shunt C)."""
+
+
+class RenderError(NetgenError, ValueError):
+    """A template is missing, unsafe, or refers to something the design does not define."""
+
+
+class SimulationError(NetgenError, RuntimeError):
+    """ngspice failed, crashed or timed out.
+
+    ``log`` holds ngspice's own messages; ``hint`` a suggestion for the user.
+    """
+
+    def __init__(self, message: str, log: str = "", hint: str = ""):
+        super().__init__(message)
+        self.log = log
+        self.hint = hint
+
+    def __str__(self) -> str:  # one readable line, the simulator's words attached
+        text = super().__str__()
+        if self.hint:
+            text += f" Hint: {self.hint}"
+        return text
+
+
+class SimulatorNotFoundError(SimulationError):
+    """Neither libngspice nor the ngspice executable could be found."""
+
+
+class OutputError(NetgenError, OSError):
+    """An output folder or file cannot be written."""
