@@ -42,10 +42,15 @@ class _Progress:
         self.t0 = time.monotonic()
         self.shown = False
 
-    def __call__(self, cycles: int, change: float) -> None:
+    def __call__(self, *args) -> None:
+        # netgen.steady reports one message string; (cycles, change) is accepted too
         if not self.enabled:
             return
-        msg = f"\r{self.label}: {cycles} cycles simulated, last change {change:.2e}, {time.monotonic() - self.t0:.1f} s"
+        if len(args) == 2 and not isinstance(args[0], str):
+            text = f"{args[0]} cycles simulated, last change {args[1]:.2e}"
+        else:
+            text = " ".join(str(a) for a in args)
+        msg = f"\r{self.label}: {text[:50]}, {time.monotonic() - self.t0:.1f} s"
         click.echo(msg, nl=False, err=True)
         self.shown = True
 
@@ -54,9 +59,24 @@ class _Progress:
             click.echo("\r" + " " * 78 + "\r", nl=False, err=True)
 
 
+# Paths are checked by netgen itself (design.load_design, fileio, pipeline.atomic_folder), so
+# every problem with them is one 'Error:' line naming the path.
 DESIGN_ARG = click.argument(
-    "design_file", type=click.Path(path_type=Path, dir_okay=False), metavar="DESIGN.toml"
+    "design_file", type=click.Path(path_type=Path), metavar="DESIGN.toml"
 )
+
+
+def _check_outdir(outdir: Path) -> None:
+    """Refuse an output folder that can never be created (a file in the way) before any work."""
+    from .errors import OutputError
+
+    for folder in (outdir, *outdir.parents):
+        if folder.exists():
+            if not folder.is_dir():
+                raise OutputError(f"{outdir}: '{folder}' is a file, not a folder; choose another output folder with -o.")
+            if not os.access(folder, os.W_OK | os.X_OK):
+                raise OutputError(f"{outdir}: cannot write in '{folder}' (permission denied); choose another output folder with -o.")
+            return
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -78,7 +98,7 @@ def cli() -> None:
 
 
 @cli.command()
-@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path, file_okay=False), default=Path("netgen-demo"), show_default=True, help="Output folder.")
+@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), default=Path("netgen-demo"), show_default=True, help="Output folder.")
 @click.option("--write-design", type=click.Path(path_type=Path, dir_okay=False), default=None, help="Only copy the demo design file to this path (a starting point for your own) and stop.")
 def demo(outdir: Path, write_design: Path | None) -> None:
     """Run the whole pipeline on the built-in demo design.
@@ -100,6 +120,7 @@ def demo(outdir: Path, write_design: Path | None) -> None:
         atomic_write_text(write_design, src.read_text(encoding="utf-8"))
         click.echo(f"Wrote the demo design to {write_design}.")
         return
+    _check_outdir(outdir)
     design = _load(src)
     _run_and_print(design, outdir)
 
@@ -123,7 +144,7 @@ def _run_and_print(design, outdir: Path) -> None:
 
 @cli.command()
 @DESIGN_ARG
-@click.option("-o", "--out", "outfile", type=click.Path(path_type=Path, dir_okay=False), required=True, help="Where to write the fully-valued design file.")
+@click.option("-o", "--out", "outfile", type=click.Path(path_type=Path), required=True, help="Where to write the fully-valued design file.")
 def size(design_file: Path, outfile: Path) -> None:
     """Compute every component value of DESIGN.toml with published formulas.
 
@@ -143,7 +164,7 @@ def size(design_file: Path, outfile: Path) -> None:
 
 @cli.command()
 @DESIGN_ARG
-@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path, file_okay=False), required=True, help="Output folder for the netlists.")
+@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), required=True, help="Output folder for the netlists.")
 @click.option("--dialect", type=click.Choice(["ngspice", "portable", "both"]), default="ngspice", show_default=True, help="ngspice, or the portable SPICE3 subset for other simulators.")
 def render(design_file: Path, outdir: Path, dialect: str) -> None:
     """Size DESIGN.toml and write its netlists.
@@ -161,6 +182,7 @@ def render(design_file: Path, outdir: Path, dialect: str) -> None:
     from .sizing import size as size_design
 
     sized = size_design(_load(design_file))
+    _check_outdir(outdir)
     dialects = ["ngspice", "portable"] if dialect == "both" else [dialect]
     written = []
     with atomic_folder(outdir) as tmp:
@@ -175,7 +197,7 @@ def render(design_file: Path, outdir: Path, dialect: str) -> None:
 
 @cli.command()
 @DESIGN_ARG
-@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path, file_okay=False), required=True, help="Output folder.")
+@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), required=True, help="Output folder.")
 @click.option("--backend", type=click.Choice(["shared", "batch"]), default=None, help="Override sim.backend: shared library (default) or the ngspice executable.")
 def run(design_file: Path, outdir: Path, backend: str | None) -> None:
     """Size, render, simulate to periodic steady state and analyse DESIGN.toml.
@@ -191,6 +213,7 @@ def run(design_file: Path, outdir: Path, backend: str | None) -> None:
     import dataclasses
 
     design = _load(design_file)
+    _check_outdir(outdir)
     if backend:
         design = dataclasses.replace(design, sim=dataclasses.replace(design.sim, backend=backend))
     _run_and_print(design, outdir)
@@ -224,14 +247,27 @@ def doctor() -> None:
 
 def _add_optional_commands() -> None:
     """Commands defined in their own modules (each imports no simulator at import time)."""
-    from .cli_check import check_command, diff_command, export_command
-    from .cli_sweep import sweep_command
+    import importlib
 
-    for cmd in (sweep_command, check_command, diff_command, export_command):
-        cli.add_command(cmd)
+    for module, names in (("cli_sweep", ("sweep_command",)),
+                          ("cli_check", ("check_command", "diff_command", "export_command"))):
+        try:
+            mod = importlib.import_module(f".{module}", __package__)
+        except ModuleNotFoundError as exc:  # that command module is absent: the others still work
+            if exc.name != f"{__package__}.{module}":
+                raise
+            continue
+        for name in names:
+            cli.add_command(getattr(mod, name))
 
 
 _add_optional_commands()
+
+
+def _one_line(text: str) -> str:
+    """The message on one line: line breaks and other control characters (say, from a file
+    name) are shown escaped, so a user error is always exactly one ``Error:`` line."""
+    return "".join(ch if ch.isprintable() else ch.encode("unicode_escape").decode("ascii") for ch in text)
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -241,11 +277,15 @@ def main(argv: list[str] | None = None) -> None:
     except click.exceptions.Abort:
         click.echo("Aborted.", err=True)
         sys.exit(130)
+    except click.UsageError as exc:  # one line, like every other user error
+        where = f" (see 'netgen {exc.ctx.info_name} --help')" if exc.ctx is not None and exc.ctx.parent is not None else " (see 'netgen --help')"
+        click.echo(f"Error: {_one_line(exc.format_message())}{where}", err=True)
+        sys.exit(exc.exit_code)
     except click.ClickException as exc:
-        exc.show()
+        click.echo(f"Error: {_one_line(exc.format_message())}", err=True)
         sys.exit(exc.exit_code)
     except NetgenError as exc:
-        click.echo(f"Error: {exc}", err=True)
+        click.echo(f"Error: {_one_line(str(exc))}", err=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         click.echo("Interrupted.", err=True)

@@ -238,10 +238,16 @@ def load_design(path: str | Path) -> Design:
         file, not UTF-8, TOML syntax, unknown key, wrong unit, out of range).
     """
     path = Path(path)
-    if not path.exists():
-        raise DesignError(f"{path}: no such design file; check the path.")
-    if path.is_dir():
-        raise DesignError(f"{path}: is a folder; give a design file (*.toml).")
+    shown = _printable(str(path), 200)
+    try:  # stat can fail itself (name too long, loops): that is a user error too
+        if not path.exists():
+            raise DesignError(f"{shown}: no such design file; check the path.")
+        if path.is_dir():
+            raise DesignError(f"{shown}: is a folder; give a design file (*.toml).")
+        if not path.is_file():  # a FIFO or device would block or never end
+            raise DesignError(f"{shown}: not a regular file; give a design file (*.toml).")
+    except OSError as exc:
+        raise DesignError(f"{shown}: cannot read the file ({exc.strerror}); check the path.") from None
     try:
         size = path.stat().st_size
         if size > MAX_FILE_BYTES:
@@ -312,12 +318,16 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         for key in ("include", "subckt", "pins"):
             if dev[SCHEMA["device"][key].attr] is None:
                 raise DesignError(f"device.{key}: missing; a 'spice' device needs include, subckt and pins.")
-        inc = (base / dev["include"]).resolve()
-        if not inc.is_file():
-            raise DesignError(f"device.include: model file '{dev['include']}' not found next to the design; check the path.")
+        inc = _resolve_include(base, dev["include"])
+        try:
+            found = inc.is_file()
+        except OSError as exc:
+            raise DesignError(f"device.include: cannot use '{_printable(dev['include'])}' ({exc.strerror}); check the path.") from None
+        if not found:
+            raise DesignError(f"device.include: model file '{_printable(dev['include'])}' not found next to the design; check the path.")
         dev["include"] = inc
     elif dev["include"] is not None:
-        dev["include"] = (base / dev["include"]).resolve()
+        dev["include"] = _resolve_include(base, dev["include"])
     sim = values["sim"]
     if sim["min_cycles"] > sim["max_cycles"]:
         raise DesignError("sim.min_cycles: larger than sim.max_cycles; lower min_cycles or raise max_cycles.")
@@ -336,6 +346,23 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         raw=_plain(doc),
         source=source,
     )
+
+
+def _resolve_include(base: Path, text: str) -> Path:
+    """The absolute path of a device model file, refused when it could not be quoted safely
+    in a netlist (a quote, a control character or a non-printable character anywhere in the
+    resolved path, the design's own folder included)."""
+    try:
+        inc = (base / text).resolve()
+    except (OSError, RuntimeError) as exc:
+        reason = getattr(exc, "strerror", None) or "a symbolic-link loop"
+        raise DesignError(f"device.include: cannot use '{_printable(text)}' ({reason}); check the path.") from None
+    if any(ch in str(inc) for ch in "\"'") or not str(inc).isprintable():
+        raise DesignError(
+            f"device.include: the path '{_printable(str(inc))}' contains a quote or a control character, "
+            "which a netlist cannot carry; rename or move the model file."
+        )
+    return inc
 
 
 def _plain(doc: Any) -> Any:
@@ -404,9 +431,9 @@ def _check_range(number: float, spec: Key, path: str) -> None:
         raise DesignError(f"{path}: {number:g} is out of range; it must be <= {hi:g}{(' ' + spec.unit) if spec.unit not in ('', 'int') else ''}.")
 
 
-def _printable(text: str) -> str:
+def _printable(text: str, limit: int = 40) -> str:
     text = text.encode("unicode_escape").decode("ascii")
-    return text if len(text) <= 40 else text[:37] + "..."
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 # ---------------------------------------------------------------- dotted paths

@@ -83,7 +83,7 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
                "H": "2.2 nH", "F": "1.5 pF", "s": "10 ns", "m": "25 mm", "dB": "0.2 dB",
                "deg": "180 deg"}.get(unit, "")
     if isinstance(value, bool):
-        raise DesignError(f"{key}: expected a quantity in {unit or 'plain numbers'}, got {value!r}.")
+        raise DesignError(f"{key}: expected a quantity in {unit or 'plain numbers'}, got {str(value).lower()} (TOML true/false).")
     if isinstance(value, (int, float)):
         number = float(value)
         if unit:

@@ -1,0 +1,920 @@
+"""The simulation engine: the only module that talks to ngspice (and imports PySpice).
+
+Two paths, same answers:
+
+* ``backend="shared"``: libngspice through PySpice's ``NgSpiceShared``, run inside
+  one long-lived **worker process** (``spawn`` context). A simulator crash kills
+  only the worker, a hang is ended by killing it; both raise
+  :class:`~netgen.errors.SimulationError` and the next call starts a fresh
+  worker. Loading libngspice happens once per worker; between runs the worker
+  sends ``destroy all`` and ``remcirc``.
+* ``backend="batch"``: the ``ngspice`` executable in pipe mode (``ngspice -p``),
+  driven by commands on its standard input; results come back through raw
+  files read by :mod:`netgen.rawfile`.
+
+Vector names (both paths, lower case, as ngspice's shared API names them):
+node voltages by the bare node name (``drain``, ``vdd``), branch currents as
+``<element>#branch`` (``vdd#branch``), the scale as ``time`` / ``frequency``.
+The returned dict also answers to the raw-file spellings ``v(drain)`` and
+``i(vdd)`` (aliases, not extra keys).
+
+PySpice's global state, its locale change, its unit-carrying arrays and its
+builtin ``NameError`` stay inside the worker; callers get plain float64 /
+complex128 numpy arrays and :class:`SimulationError` with ngspice's own
+messages in ``.log`` and a suggestion in ``.hint``.
+"""
+
+from __future__ import annotations
+
+import atexit
+import ctypes.util
+import os
+import queue
+import re
+import shutil
+import subprocess
+import sys
+import tempfile
+import threading
+import time as _time
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from .errors import SimulationError, SimulatorNotFoundError
+from .rawfile import read_raw
+
+__all__ = [
+    "Vectors",
+    "run_transient",
+    "run_ac",
+    "run_op",
+    "check_netlist",
+    "find_ngspice",
+    "doctor_report",
+    "diagnose",
+    "shutdown",
+    "worker_pid",
+    "MAX_COMMAND_CHARS",
+    "EXECUTABLE_ENV",
+]
+
+#: ngspice's shared API rejects longer command lines (PySpice enforces the same limit).
+MAX_COMMAND_CHARS = 1023
+#: Environment variable naming the ngspice executable when it is not on PATH.
+EXECUTABLE_ENV = "NETGEN_NGSPICE"
+#: PySpice's own variable for a non-standard libngspice (a path or a pattern with '{}').
+LIBRARY_ENV = "NGSPICE_LIBRARY_PATH"
+
+_SENTINEL = "@@NETGEN_DONE@@"
+
+
+# ---------------------------------------------------------------- names
+
+def canonical_name(name: str) -> str:
+    """ngspice vector name in the engine's spelling: ``v(x)`` -> ``x``, ``i(x)`` -> ``x#branch``."""
+    low = name.strip().lower()
+    m = re.fullmatch(r"v\(([^(),]+)\)", low)
+    if m:
+        return m.group(1)
+    m = re.fullmatch(r"i\(([^(),]+)\)", low)
+    if m:
+        return m.group(1) + "#branch"
+    return low
+
+
+class Vectors(dict):
+    """Result vectors by name (see the module docstring for the spelling).
+
+    Lookups also accept ``v(node)`` and ``i(element)``. Attributes:
+    ``stopped_early`` (a ``stop_check`` ended the run), ``checker`` (the
+    ``stop_check`` object as it was at the end of the run, with whatever state
+    it kept), ``log`` (ngspice's messages).
+    """
+
+    stopped_early: bool = False
+    checker: object = None
+    log: str = ""
+
+    def __missing__(self, key):
+        alt = canonical_name(key)
+        if alt != key and dict.__contains__(self, alt):
+            return dict.__getitem__(self, alt)
+        raise KeyError(key)
+
+    def __contains__(self, key):
+        return dict.__contains__(self, key) or dict.__contains__(self, canonical_name(key))
+
+
+def _save_spelling(name: str) -> str:
+    low = name.strip().lower()
+    if low.endswith("#branch"):
+        return f"i({low[:-7]})"
+    if low.startswith(("v(", "i(", "@")) or low == "time":
+        return low
+    return f"v({low})"
+
+
+# ---------------------------------------------------------------- netlist checks
+
+_CONTROL_START = re.compile(r"^\s*\.(control|exec)\b", re.IGNORECASE)
+_CONTROL_END = re.compile(r"^\s*\.endc\b", re.IGNORECASE)
+#: control-language commands that reach the operating system or spawn programs
+_SHELL_COMMANDS = {"shell", "system", "exec", "aspice", "rspice", "edit", "jobs", "rusage_shell", "sh", "bash", "cmd"}
+
+
+def check_netlist(netlist: str, *, allow_shell: bool = False) -> None:
+    """Refuse netlists whose ``.control``/``.exec`` blocks run shell or system commands.
+
+    Raises
+    ------
+    SimulationError
+        Naming the line, unless ``allow_shell`` is true.
+    """
+    if not isinstance(netlist, str) or not netlist.strip():
+        raise SimulationError("The netlist is empty; render a design first.")
+    if allow_shell:
+        return
+    inside = False
+    for number, line in enumerate(netlist.splitlines(), start=1):
+        if _CONTROL_START.match(line):
+            inside = True
+            continue
+        if _CONTROL_END.match(line):
+            inside = False
+            continue
+        if not inside:
+            continue
+        for part in line.split(";"):
+            text = part.strip()
+            if not text or text.startswith(("*", "#")):
+                continue
+            word = re.split(r"[\s(]", text, maxsplit=1)[0].lower()
+            if text.startswith("!") or word in _SHELL_COMMANDS:
+                raise SimulationError(
+                    f"Netlist line {number}: the control command '{text[:40]}' would run a "
+                    "shell/system command; remove it, or pass allow_shell=True if you trust the netlist."
+                )
+
+
+_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(meg|mil|[tgkmunpf])?", re.IGNORECASE)
+_SCALE = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "m": 1e-3, "mil": 25.4e-6,
+          "u": 1e-6, "n": 1e-9, "p": 1e-12, "f": 1e-15}
+
+
+def _spice_number(token: str) -> float:
+    m = _NUM.match(token.strip())
+    if not m:
+        raise ValueError(token)
+    return float(m.group(1)) * _SCALE.get((m.group(2) or "").lower(), 1.0)
+
+
+def _tran_stop(netlist: str) -> float:
+    for line in netlist.splitlines():
+        parts = line.split()
+        if parts and parts[0].lower() == ".tran":
+            try:
+                return _spice_number(parts[2])
+            except (IndexError, ValueError):
+                break
+    raise SimulationError("The netlist has no readable '.tran <step> <stop>' line; a transient run needs one.")
+
+
+# ---------------------------------------------------------------- diagnosis
+
+_HINTS = [
+    (re.compile(r"singular matrix", re.I),
+     "a floating node (add a path to ground) or a loop of voltage sources/inductors "
+     "(add a small series resistance)"),
+    (re.compile(r"timestep too small", re.I),
+     "the time step collapsed: with transmission lines set '.options minbreak' to about 0.01*TMAX, "
+     "reduce TMAX (sim.points_per_cycle), and check for floating nodes"),
+    (re.compile(r"gmin stepping failed|source stepping failed|no convergence|iteration limit|"
+                r"convergence problem|dc solution failed", re.I),
+     "the solver did not converge: try '.options gmin=1e-10 itl1=500', source stepping, or a '.nodeset'; "
+     "check for unrealistic component values"),
+    (re.compile(r"unknown (model|subckt|device|parameter)|could not find|unable to find|no such|undefined", re.I),
+     "the netlist refers to a model, subcircuit or node that is not defined; check the template and includes"),
+]
+_IGNORE = ("no graphics interface", "run simulation interrupted", "pause requested")
+
+
+def _clean(line: str) -> str:
+    return re.sub(r"^(stdout|stderr)\s+", "", line.strip())
+
+
+def diagnose(log: str) -> tuple[str, str]:
+    """ngspice's key message in ``log`` and a hint for it (``("", "")`` if nothing is found).
+
+    The message is the first error line (and the first 'singular matrix' note, which
+    ngspice prints as a warning); the hint comes from the first known pattern.
+    """
+    lines = [_clean(ln) for ln in log.splitlines() if ln.strip()]
+    lines = [ln for ln in lines if not any(s in ln.lower() for s in _IGNORE)]
+    error = next((ln for ln in lines if re.search(r"error|aborted", ln, re.I)), "")
+    singular = next((ln for ln in lines if "singular matrix" in ln.lower()), "")
+    if singular:
+        singular = singular[singular.lower().index("singular matrix"):]
+        error = f"{error} ({singular})" if error else singular
+    hint = ""
+    for pattern, text in _HINTS:
+        if any(pattern.search(ln) for ln in lines):
+            hint = text
+            break
+    if error and not hint:
+        hint = "see ngspice's messages in the log; run 'netgen doctor' if the installation is in doubt"
+    return error, hint
+
+
+def _looks_failed(log: str) -> bool:
+    for line in log.splitlines():
+        low = line.lower()
+        if "warning" in low or any(s in low for s in _IGNORE):
+            continue
+        if "error" in low or "aborted" in low or "timestep too small" in low:
+            return True
+    return False
+
+
+def _fail(what: str, log: str, default_hint: str = "") -> SimulationError:
+    line, hint = diagnose(log)
+    msg = f"ngspice {what} failed" + (f": {line}." if line else ".")
+    return SimulationError(msg, log=log, hint=hint or default_hint)
+
+
+# ---------------------------------------------------------------- shared library (worker side)
+
+class _SharedSession:
+    """libngspice in this process (used only inside the worker process)."""
+
+    def __init__(self):
+        import logging
+        import warnings
+
+        logging.getLogger("PySpice").setLevel(logging.CRITICAL)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
+            except Exception as exc:  # pragma: no cover - depends on the installation
+                raise SimulatorNotFoundError(f"PySpice cannot be imported ({exc}).",
+                                             hint="install PySpice>=1.5 or use sim.backend = \"batch\"") from None
+            log: list[str] = []
+
+            class _Capture(NgSpiceShared):
+                def send_char(self, message, ngspice_id):
+                    log.append(message)
+                    return 0
+
+                def send_stat(self, message, ngspice_id):
+                    return 0
+
+            try:
+                self.ng = _Capture.new_instance()
+            except (OSError, NameError) as exc:
+                raise SimulatorNotFoundError(
+                    f"libngspice could not be loaded ({exc}).",
+                    hint=f"install the ngspice shared library (Debian: libngspice0-dev), set {LIBRARY_ENV} "
+                         "to its path, or use sim.backend = \"batch\"") from None
+        self.ffi = ffi
+        self.lib = self.ng._ngspice_shared
+        self.log = log
+
+    def cmd(self, text: str) -> int:
+        if len(text) > MAX_COMMAND_CHARS:
+            raise SimulationError(f"An ngspice command of {len(text)} characters exceeds the limit of "
+                                  f"{MAX_COMMAND_CHARS}; shorten node names or save fewer vectors.")
+        return int(self.lib.ngSpice_Command(text.encode("ascii")))
+
+    def reset(self):
+        self.cmd("destroy all")
+        self.cmd("remcirc")
+        self.log.clear()
+
+    def load(self, netlist: str):
+        lines = [ln for ln in netlist.splitlines() if ln.strip()]
+        if not lines[-1].strip().lower().startswith(".end"):
+            lines.append(".end")
+        lines.append("")
+        keep = [self.ffi.new("char[]", ln.encode("utf-8", "replace")) for ln in lines] + [self.ffi.NULL]
+        arr = self.ffi.new("char *[]", keep)
+        rc = self.lib.ngSpice_Circ(arr)
+        text = "\n".join(self.log)
+        if rc or _looks_failed(text):
+            raise _fail("netlist loading", text, "check the netlist syntax")
+
+    def save(self, names):
+        if not names:
+            return
+        words = [_save_spelling(n) for n in names]
+        chunk: list[str] = []
+        for w in words:
+            if len("save " + " ".join(chunk + [w])) > MAX_COMMAND_CHARS:
+                self.cmd("save " + " ".join(chunk))
+                chunk = []
+            chunk.append(w)
+        self.cmd("save " + " ".join(chunk))
+
+    def fetch(self, start: int = 0) -> dict:
+        ffi, lib = self.ffi, self.lib
+        plot = ffi.string(lib.ngSpice_CurPlot()).decode()
+        allv = lib.ngSpice_AllVecs(plot.encode())
+        out = {}
+        i = 0
+        while allv[i] != ffi.NULL:
+            name = ffi.string(allv[i]).decode()
+            i += 1
+            info = lib.ngGet_Vec_Info(f"{plot}.{name}".encode())
+            if info == ffi.NULL or info.v_length <= 0:
+                continue
+            n = info.v_length
+            if info.v_compdata == ffi.NULL:
+                arr = np.frombuffer(ffi.buffer(info.v_realdata, n * 8), dtype=np.float64)[start:].copy()
+            else:
+                raw = np.frombuffer(ffi.buffer(info.v_compdata, n * 16), dtype=np.float64)
+                arr = (raw[0::2] + 1j * raw[1::2])[start:].astype(np.complex128)
+            out[canonical_name(name)] = arr
+        return out
+
+    def run(self, kind: str, netlist: str, opts: dict, send) -> dict:
+        self.reset()
+        self.load(netlist)
+        self.save(opts.get("save"))
+        if kind == "op":
+            rc = self.cmd("op")
+            text = "\n".join(self.log)
+            if rc or _looks_failed(text) and "successfully" not in text.lower():
+                raise _fail("operating point", text)
+            vecs = self.fetch()
+            return {"vectors": {k: float(np.real(v[0])) for k, v in vecs.items()}, "log": text}
+        if kind == "ac":
+            rc = self.cmd("run")
+            text = "\n".join(self.log)
+            vecs = self.fetch()
+            if rc or "frequency" not in vecs or _looks_failed(text):
+                raise _fail("AC analysis", text)
+            vecs["frequency"] = np.real(vecs["frequency"]).astype(np.float64)
+            return {"vectors": vecs, "log": text}
+        return self._tran(netlist, opts, send)
+
+    def _tran(self, netlist: str, opts: dict, send) -> dict:
+        tstop = _tran_stop(netlist)
+        chunk = opts.get("chunk_s")
+        check = opts.get("stop_check")
+        keep = opts.get("keep_s")
+        stopped = False
+        if not chunk:
+            rc = self.cmd("run")
+            text = "\n".join(self.log)
+            t = self.fetch().get("time")
+            if rc or t is None or t[-1] < tstop * (1 - 1e-9) or _looks_failed(text):
+                raise _fail("transient analysis", text)
+        else:
+            t_next = chunk
+            started = False
+            last = 0
+            while True:
+                if t_next < tstop * (1 - 1e-9):
+                    self.cmd(f"stop when time > {t_next:.15g}")
+                rc = self.cmd("resume" if started else "run")
+                started = True
+                text = "\n".join(self.log)
+                part = self.fetch(start=max(last - 1, 0))
+                tp = part.get("time")
+                if tp is None or (rc and not tp.size) or _looks_failed(text):
+                    raise _fail("transient analysis", text)
+                last = max(last - 1, 0) + tp.size
+                t_end = float(tp[-1])
+                done = t_end >= tstop * (1 - 1e-9)
+                if not done and t_end < t_next * (1 - 1e-9):
+                    raise _fail("transient analysis", text)
+                if check is not None:
+                    verdict = check(t_end, part)
+                    message = None
+                    if isinstance(verdict, tuple):
+                        verdict, message = verdict
+                    if message:
+                        send(("progress", str(message)))
+                    if verdict:
+                        stopped = not done
+                        break
+                else:
+                    send(("progress", f"t = {t_end:.4g} s of {tstop:.4g} s"))
+                if done:
+                    break
+                self.cmd("delete all")
+                t_next += chunk
+            text = "\n".join(self.log)
+        full_t = self.fetch().get("time")
+        start = 0
+        if keep and full_t is not None:
+            start = max(int(np.searchsorted(full_t, full_t[-1] - keep)) - 1, 0)
+        vecs = self.fetch(start=start)
+        return {"vectors": vecs, "log": text, "stopped": stopped, "checker": check}
+
+
+def _worker_main(recv, send) -> None:  # pragma: no cover - runs in the worker process
+    session = None
+    while True:
+        try:
+            job = recv.recv()
+        except (EOFError, OSError):
+            return
+        if job is None:
+            return
+        if job[0] == "init":
+            for p in reversed(job[1]):
+                if p not in sys.path:
+                    sys.path.insert(0, p)
+            continue
+        kind, netlist, opts = job
+        try:
+            if session is None:
+                session = _SharedSession()
+            result = session.run(kind, netlist, opts, send.send)
+            send.send(("ok", result))
+        except SimulationError as exc:
+            send.send(("err", (exc.args[0] if exc.args else "", exc.log, exc.hint,
+                               isinstance(exc, SimulatorNotFoundError))))
+        except BaseException as exc:  # noqa: BLE001 - PySpice raises NameError and friends
+            log = "\n".join(session.log) if session else ""
+            send.send(("err", (f"ngspice (shared library) failed: {type(exc).__name__}: {exc}.", log,
+                               "see ngspice's messages in the log", False)))
+
+
+def _worker_entry(read_fd: int, write_fd: int) -> None:  # pragma: no cover - worker process
+    """Entry point of the worker process (started with ``python -c``, so no main module is re-run)."""
+    from multiprocessing.connection import Connection
+
+    _worker_main(Connection(read_fd, writable=False), Connection(write_fd, readable=False))
+
+
+class _Worker:
+    """One warm worker process holding libngspice.
+
+    Started as ``python -c`` with two inherited pipes (multiprocessing
+    connections) rather than through ``multiprocessing``'s spawn, which would
+    re-run the caller's main script in the worker.
+    """
+
+    def __init__(self):
+        from multiprocessing.connection import Connection
+
+        p2c_r, p2c_w = os.pipe()
+        c2p_r, c2p_w = os.pipe()
+        code = f"from netgen.engine import _worker_entry; _worker_entry({p2c_r}, {c2p_w})"
+        env = dict(os.environ)
+        pkg_parent = str(Path(__file__).resolve().parent.parent)
+        env["PYTHONPATH"] = pkg_parent + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+        try:
+            self.proc = subprocess.Popen([sys.executable, "-c", code], pass_fds=(p2c_r, c2p_w),
+                                         stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+                                         stderr=subprocess.DEVNULL, env=env, close_fds=True)
+        finally:
+            os.close(p2c_r)
+            os.close(c2p_w)
+        self.tx = Connection(p2c_w, readable=False)
+        self.conn = Connection(c2p_r, writable=False)
+        self.owner = os.getpid()
+        self.tx.send(("init", list(sys.path)))
+
+    def alive(self) -> bool:
+        return self.proc.poll() is None
+
+    def kill(self):
+        if self.proc.poll() is None:
+            self.proc.kill()
+        try:
+            self.proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            pass
+        for c in (self.tx, self.conn):
+            try:
+                c.close()
+            except OSError:
+                pass
+
+    def call(self, job, timeout_s: float, progress):
+        deadline = _time.monotonic() + timeout_s
+        try:
+            self.tx.send(job)
+        except (OSError, BrokenPipeError):
+            raise self._crashed() from None
+        except (AttributeError, TypeError, ValueError) as exc:  # pickling of stop_check
+            raise SimulationError(f"The stop_check cannot be sent to the worker process ({exc}); "
+                                  "define it at module level so that it can be pickled.") from None
+        while True:
+            remaining = deadline - _time.monotonic()
+            if remaining <= 0:
+                raise SimulationError(
+                    f"ngspice did not finish within the time limit of {timeout_s:g} s; the run was stopped.",
+                    hint="raise sim.timeout, or lower sim.max_cycles / sim.points_per_cycle")
+            try:
+                ready = self.conn.poll(min(remaining, 0.25))
+            except (EOFError, OSError):
+                ready = True
+            if ready:
+                try:
+                    kind, payload = self.conn.recv()
+                except (EOFError, OSError):
+                    raise self._crashed() from None
+                if kind == "progress":
+                    if progress is not None:
+                        progress(payload)
+                    continue
+                return kind, payload
+            if not self.alive():
+                raise self._crashed()
+
+    def _crashed(self) -> SimulationError:
+        try:
+            code = self.proc.wait(timeout=5)
+        except subprocess.TimeoutExpired:
+            code = None
+        return SimulationError(
+            f"The ngspice worker process died during the run (exit code {code}); ngspice crashed or was killed.",
+            hint="run 'netgen doctor'; try sim.backend = \"batch\" to use the ngspice executable instead")
+
+
+_WORKER: _Worker | None = None
+_LOCK = threading.Lock()
+
+
+def shutdown() -> None:
+    """Stop the worker process (it is restarted on the next shared-library run)."""
+    global _WORKER
+    with _LOCK:
+        if _WORKER is not None and _WORKER.owner == os.getpid():
+            try:
+                _WORKER.tx.send(None)
+            except OSError:
+                pass
+            _WORKER.kill()
+        _WORKER = None
+
+
+atexit.register(shutdown)
+
+
+def worker_pid() -> int | None:
+    """Process id of the current worker (None if none is running); for tests and diagnostics."""
+    w = _WORKER
+    return w.proc.pid if w is not None and w.owner == os.getpid() and w.alive() else None
+
+
+def _run_shared(kind, netlist, opts, timeout_s, progress):
+    global _WORKER
+    with _LOCK:
+        if _WORKER is None or _WORKER.owner != os.getpid() or not _WORKER.alive():
+            _WORKER = _Worker()
+        worker = _WORKER
+        try:
+            status, payload = worker.call((kind, netlist, opts), timeout_s, progress)
+        except SimulationError:
+            worker.kill()  # a timed-out or crashed worker is never reused
+            _WORKER = None
+            raise
+        except BaseException:
+            worker.kill()
+            _WORKER = None
+            raise
+    if status == "err":
+        message, log, hint, not_found = payload
+        cls = SimulatorNotFoundError if not_found else SimulationError
+        raise cls(message, log=log, hint=hint)
+    return payload
+
+
+# ---------------------------------------------------------------- executable (batch) path
+
+def _executable() -> str | None:
+    env = os.environ.get(EXECUTABLE_ENV)
+    if env:
+        return env if Path(env).exists() else shutil.which(env)
+    return shutil.which("ngspice")
+
+
+class _BatchSession:
+    """``ngspice -p`` in a temporary folder, driven through its standard input."""
+
+    def __init__(self, timeout_s: float):
+        exe = _executable()
+        if exe is None:
+            raise SimulatorNotFoundError(
+                "The ngspice executable was not found on PATH.",
+                hint=f"install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} to its path")
+        self.dir = tempfile.TemporaryDirectory(prefix="netgen-ng-")
+        self.deadline = _time.monotonic() + timeout_s
+        self.timeout_s = timeout_s
+        self.proc = subprocess.Popen([exe, "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                                     stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
+                                     encoding="utf-8", errors="replace")
+        self.lines: queue.Queue = queue.Queue()
+        self.log: list[str] = []
+        threading.Thread(target=self._reader, daemon=True).start()
+        self.count = 0
+        self.send(["set noaskquit", "set filetype=binary"])
+
+    def _reader(self):
+        for line in self.proc.stdout:
+            self.lines.put(line.rstrip("\n"))
+        self.lines.put(None)
+
+    def send(self, commands: list[str]) -> str:
+        self.count += 1
+        mark = f"{_SENTINEL}{self.count}"
+        for c in commands:
+            if len(c) > MAX_COMMAND_CHARS:
+                raise SimulationError(f"An ngspice command of {len(c)} characters exceeds the limit of "
+                                      f"{MAX_COMMAND_CHARS}; shorten node names or save fewer vectors.")
+        try:
+            self.proc.stdin.write("\n".join(commands + [f"echo {mark}"]) + "\n")
+            self.proc.stdin.flush()
+        except (BrokenPipeError, OSError):
+            raise self._crashed() from None
+        out: list[str] = []
+        while True:
+            remaining = self.deadline - _time.monotonic()
+            if remaining <= 0:
+                self.close(kill=True)
+                raise SimulationError(
+                    f"ngspice did not finish within the time limit of {self.timeout_s:g} s; the run was stopped.",
+                    log="\n".join(self.log[-200:]),
+                    hint="raise sim.timeout, or lower sim.max_cycles / sim.points_per_cycle")
+            try:
+                line = self.lines.get(timeout=min(remaining, 0.5))
+            except queue.Empty:
+                continue
+            if line is None:
+                raise self._crashed()
+            if line.strip() == mark:
+                return "\n".join(out)
+            out.append(line)
+            self.log.append(line)
+
+    def _crashed(self) -> SimulationError:
+        code = self.proc.wait(timeout=5)
+        return SimulationError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
+                               log="\n".join(self.log[-200:]),
+                               hint="see ngspice's messages in the log; run 'netgen doctor'")
+
+    def close(self, kill: bool = False):
+        if self.proc.poll() is None and not kill:
+            try:
+                self.proc.stdin.write("quit\n")
+                self.proc.stdin.flush()
+                self.proc.wait(timeout=2)
+            except (OSError, subprocess.TimeoutExpired, ValueError):
+                pass
+        if self.proc.poll() is None:
+            self.proc.kill()
+            self.proc.wait()
+        self.dir.cleanup()
+
+    def load(self, netlist: str, save):
+        path = Path(self.dir.name) / "circuit.cir"
+        text = netlist if netlist.rstrip().lower().endswith(".end") else netlist.rstrip() + "\n.end\n"
+        path.write_text(text, encoding="utf-8")
+        out = self.send(["source circuit.cir"])
+        if _looks_failed(out):
+            raise _fail("netlist loading", out, "check the netlist syntax")
+        if save:
+            self.send(["save " + " ".join(_save_spelling(n) for n in save)])
+
+    def result(self, name="out.raw", start: int = 0) -> dict:
+        self.send([f"write {name}"])
+        plots = read_raw(Path(self.dir.name) / name)
+        plot = plots[-1]
+        out = {}
+        for raw_name in plot.names:
+            arr = plot.data[raw_name][start:]
+            out[canonical_name(raw_name)] = arr
+        return out
+
+
+def _run_batch(kind, netlist, opts, timeout_s, progress):
+    sess = _BatchSession(timeout_s)
+    try:
+        sess.load(netlist, opts.get("save"))
+        if kind == "op":
+            text = sess.send(["op"])
+            if _looks_failed(text) and "successfully" not in text.lower():
+                raise _fail("operating point", "\n".join(sess.log))
+            vecs = sess.result()
+            return {"vectors": {k: float(np.real(v[0])) for k, v in vecs.items()}, "log": "\n".join(sess.log)}
+        if kind == "ac":
+            text = sess.send(["run"])
+            if _looks_failed(text):
+                raise _fail("AC analysis", "\n".join(sess.log))
+            vecs = sess.result()
+            if "frequency" not in vecs:
+                raise _fail("AC analysis", "\n".join(sess.log))
+            vecs["frequency"] = np.real(vecs["frequency"]).astype(np.float64)
+            return {"vectors": vecs, "log": "\n".join(sess.log)}
+        tstop = _tran_stop(netlist)
+        chunk = opts.get("chunk_s")
+        check = opts.get("stop_check")
+        stopped = False
+        if not chunk:
+            text = sess.send(["run"])
+            vecs = sess.result()
+            t = vecs.get("time")
+            if t is None or t[-1] < tstop * (1 - 1e-9) or _looks_failed(text):
+                raise _fail("transient analysis", "\n".join(sess.log))
+        else:
+            t_next, started, last = chunk, False, 0
+            while True:
+                cmds = ["delete all"] if started else []
+                if t_next < tstop * (1 - 1e-9):
+                    cmds.append(f"stop when time > {t_next:.15g}")
+                cmds.append("resume" if started else "run")
+                started = True
+                text = sess.send(cmds)
+                if _looks_failed(text):
+                    raise _fail("transient analysis", "\n".join(sess.log))
+                part = sess.result(start=max(last - 1, 0))
+                tp = part.get("time")
+                if tp is None or not tp.size:
+                    raise _fail("transient analysis", "\n".join(sess.log))
+                last = max(last - 1, 0) + tp.size
+                t_end = float(tp[-1])
+                done = t_end >= tstop * (1 - 1e-9)
+                if not done and t_end < t_next * (1 - 1e-9):
+                    raise _fail("transient analysis", "\n".join(sess.log))
+                if check is not None:
+                    verdict = check(t_end, part)
+                    message = None
+                    if isinstance(verdict, tuple):
+                        verdict, message = verdict
+                    if message and progress is not None:
+                        progress(str(message))
+                    if verdict:
+                        stopped = not done
+                        break
+                elif progress is not None:
+                    progress(f"t = {t_end:.4g} s of {tstop:.4g} s")
+                if done:
+                    break
+                t_next += chunk
+            vecs = sess.result()
+        keep = opts.get("keep_s")
+        if keep:
+            t = vecs["time"]
+            start = max(int(np.searchsorted(t, t[-1] - keep)) - 1, 0)
+            vecs = {k: v[start:] for k, v in vecs.items()}
+        return {"vectors": vecs, "log": "\n".join(sess.log), "stopped": stopped, "checker": check}
+    finally:
+        sess.close()
+
+
+# ---------------------------------------------------------------- public API
+
+def _dispatch(kind, netlist, opts, backend, timeout_s, progress, allow_shell):
+    check_netlist(netlist, allow_shell=allow_shell)
+    if backend == "shared":
+        return _run_shared(kind, netlist, opts, timeout_s, progress)
+    if backend == "batch":
+        return _run_batch(kind, netlist, opts, timeout_s, progress)
+    raise SimulationError(f"Unknown simulator backend '{backend}'; use 'shared' or 'batch' (sim.backend).")
+
+
+def _wrap(result: dict) -> Vectors:
+    out = Vectors(result["vectors"])
+    out.log = result.get("log", "")
+    out.stopped_early = bool(result.get("stopped", False))
+    out.checker = result.get("checker")
+    return out
+
+
+def run_transient(netlist: str, *, save: list[str] | None = None, backend: str = "shared",
+                  timeout_s: float = 600.0, stop_check: Callable | None = None,
+                  chunk_s: float | None = None, progress: Callable[[str], None] | None = None,
+                  keep_s: float | None = None, allow_shell: bool = False) -> Vectors:
+    """Run the netlist's ``.tran`` analysis.
+
+    Parameters
+    ----------
+    netlist : str
+        ngspice netlist with a ``.tran <step> <stop> ...`` line.
+    save : list of str, optional
+        Vectors to keep (``drain``, ``vdd#branch``); all by default. ``time`` is always kept.
+    backend : {"shared", "batch"}
+    timeout_s : float
+        Wall-clock limit, s; on expiry the run is killed and SimulationError raised.
+    stop_check : callable, optional
+        ``stop_check(time_s, vectors) -> bool`` (or ``(bool, message)``), picklable; called
+        after each chunk with the points added since the previous call (the previous
+        chunk's last point included). True ends the run. With the shared library it runs
+        inside the worker process and keeps its state for the run; the object as it was
+        at the end comes back as ``result.checker``.
+    chunk_s : float, optional
+        Simulated time per chunk, s (stop/resume in ngspice). Without it the run is one piece.
+    progress : callable, optional
+        Receives progress messages (strings) in the caller's process.
+    keep_s : float, optional
+        Return only the last ``keep_s`` seconds of the run (plus one point before).
+    allow_shell : bool
+        Allow ``.control`` commands that reach the shell (refused otherwise).
+
+    Returns
+    -------
+    Vectors
+        ``time`` and the saved vectors as float64 arrays (see the module docstring for names).
+
+    Raises
+    ------
+    SimulationError
+        ngspice failed (message, ``log`` and ``hint``), crashed, or timed out.
+    """
+    opts = {"save": list(save) if save else None, "stop_check": stop_check,
+            "chunk_s": float(chunk_s) if chunk_s else None, "keep_s": keep_s}
+    return _wrap(_dispatch("tran", netlist, opts, backend, timeout_s, progress, allow_shell))
+
+
+def run_ac(netlist: str, *, backend: str = "shared", timeout_s: float = 60.0,
+           allow_shell: bool = False) -> tuple[np.ndarray, Vectors]:
+    """Run the netlist's ``.ac`` analysis.
+
+    Returns
+    -------
+    freq_hz : ndarray of float64
+    vectors : Vectors
+        complex128 arrays by name (``drain`` is v(drain), ``vdd#branch`` ...).
+    """
+    result = _wrap(_dispatch("ac", netlist, {}, backend, timeout_s, None, allow_shell))
+    freq = np.asarray(result.pop("frequency"), dtype=np.float64)
+    for k in list(result):
+        result[k] = np.asarray(result[k], dtype=np.complex128)
+    return freq, result
+
+
+def run_op(netlist: str, *, backend: str = "shared", timeout_s: float = 60.0,
+           allow_shell: bool = False) -> Vectors:
+    """DC operating point (``op``): node voltages (V) and branch currents (A) as floats."""
+    return _wrap(_dispatch("op", netlist, {}, backend, timeout_s, None, allow_shell))
+
+
+# ---------------------------------------------------------------- doctor
+
+_TRIVIAL = """netgen doctor check
+V1 in 0 DC 10
+R1 in out 1k
+R2 out 0 1k
+.end
+"""
+
+
+def _library_path() -> str | None:
+    env = os.environ.get(LIBRARY_ENV)
+    if env:
+        return env
+    return ctypes.util.find_library("ngspice")
+
+
+def find_ngspice() -> dict:
+    """Where ngspice is: ``{"executable", "version", "library", "library_env"}`` (None when absent)."""
+    exe = _executable()
+    version = None
+    if exe:
+        try:
+            out = subprocess.run([exe, "--version"], capture_output=True, text=True, timeout=20).stdout
+            m = re.search(r"ngspice-?\s*([0-9][0-9.]*\S*)", out)
+            version = m.group(1) if m else out.strip()[:60] or None
+        except (OSError, subprocess.TimeoutExpired):
+            version = None
+    return {"executable": exe, "version": version, "library": _library_path(),
+            "library_env": os.environ.get(LIBRARY_ENV)}
+
+
+def doctor_report(timeout_s: float = 60.0) -> dict:
+    """Check both simulator paths with a trivial circuit (a 10 V divider: out = 5 V).
+
+    Returns
+    -------
+    dict
+        ``executable``, ``version``, ``library`` (paths or None), ``shared_ok``,
+        ``batch_ok`` (bool), ``shared_error`` / ``batch_error`` (text or None),
+        ``fixes`` (list of sentences; empty when all is well).
+    """
+    report = find_ngspice()
+    fixes: list[str] = []
+    for backend in ("shared", "batch"):
+        ok, err = False, None
+        try:
+            res = run_op(_TRIVIAL, backend=backend, timeout_s=timeout_s)
+            ok = abs(res["out"] - 5.0) < 1e-6
+            if not ok:
+                err = f"the test divider gave {res['out']} V instead of 5 V"
+        except SimulationError as exc:
+            err = str(exc)
+        report[f"{backend}_ok"] = ok
+        report[f"{backend}_error"] = err
+    if not report["shared_ok"]:
+        fixes.append(f"Shared library path: install libngspice (Debian: libngspice0-dev) or set {LIBRARY_ENV} "
+                     "to the full path of libngspice.so; meanwhile use sim.backend = \"batch\".")
+    if not report["batch_ok"]:
+        fixes.append(f"Executable path: install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} "
+                     "to the ngspice executable.")
+    report["fixes"] = fixes
+    return report

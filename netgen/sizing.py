@@ -1,0 +1,545 @@
+"""Sizing: published formulas turning a :class:`~netgen.design.Design` into component values.
+
+One function per topology (``size_class_f_line`` ...); :func:`size` picks it through
+:mod:`netgen.topologies`, applies the load reactance, the ``[network.values]`` overrides and
+computes the derived numbers (line length, bias resonance, expected DC current).
+
+Component names follow ``<base>_<suffix>`` with suffix ``l`` (H), ``c`` (F), ``z0`` / ``td``
+(line impedance / delay); the netlist element is ``<KIND>_<base>`` (``tank_l`` -> ``L_tank``,
+``line_z0`` + ``line_td`` -> ``T_line``); see docs/netlist_conventions.md.
+
+Effective supply (how the device's own drop is accounted for)
+------------------------------------------------------------
+* Idealised switch: while the switch conducts, the drain sits at Ron times the switch current,
+  on average ``Ron * Idc / duty`` (the whole DC current flows in the on-time). That average is
+  taken off the supply: ``Vdd_eff = Vdd - Ron * Idc / duty``. With ``P = a Vdd_eff^2 / R``
+  (``a`` of the class, below) and ``Idc = P / Vdd_eff``:
+  given ``pout``: ``Vdd_eff = (Vdd + sqrt(Vdd^2 - 4 (Ron/duty) P)) / 2``;
+  given ``ropt``: ``Vdd_eff = Vdd / (1 + a Ron / (duty R))``.
+  This is our own first-order estimate, not a published formula.
+* Transconductance device: ``Vdd_eff = Vdd - Vknee`` (common practice; Cripps, "RF Power
+  Amplifiers for Wireless Communications", the knee eats that much of the swing).
+* User SPICE device: ``Vdd_eff = Vdd`` (nothing is known about it).
+
+Class coefficients ``a`` in ``P = a Vdd_eff^2 / R``: class F ``8/pi^2`` (Raab 1997, Cripps);
+inverse F ``pi^2/8``; tuned class B ``1/2``; class E ``0.5768`` (Sokal & Sokal 1975; Raab 1977).
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from pathlib import Path
+from typing import Callable
+
+from .design import Design
+from .errors import DesignError, SizingError
+from .quantities import format_quantity, parse_quantity
+from .records import Component, SizedDesign
+
+__all__ = [
+    "size",
+    "write_sized_toml",
+    "sized_toml_text",
+    "CLASS_COEFF",
+    "FEED_X_RATIO",
+    "ropt_from_power",
+    "l_section",
+    "element_name",
+    "size_class_f_line",
+    "size_class_f_feed",
+    "size_class_f_lumped",
+    "size_inverse_f_line",
+    "size_class_e",
+    "size_class_b_tuned",
+]
+
+PI = math.pi
+C0_M_S = 299_792_458.0  # speed of light in vacuum (SI definition)
+
+#: P = a * Vdd_eff^2 / R for each waveform class (see module docstring for sources)
+CLASS_COEFF = {"F": 8.0 / PI**2, "invF": PI**2 / 8.0, "B": 0.5, "E": 0.5768}
+_CLASS_SOURCE = {
+    "F": "8 Vdd_eff^2/(pi^2 Pout) (Raab 1997; Cripps)",
+    "invF": "pi^2 Vdd_eff^2/(8 Pout) (inverse class F, dual of Raab 1997)",
+    "B": "Vdd_eff^2/(2 Pout) (tuned class B; Cripps)",
+    "E": "0.5768 Vdd_eff^2/Pout (Sokal & Sokal 1975; Raab 1977)",
+}
+#: Class-E constants (Sokal & Sokal, IEEE JSSC 1975; Raab, IEEE Trans. CAS 1977)
+E_SHUNT_K = 0.1836
+E_EXCESS_K = 1.1525
+#: feed reactance = FEED_X_RATIO * Ropt, block reactance = Ropt / FEED_X_RATIO (NGSPICE_NOTES)
+FEED_X_RATIO = 60.0
+_SUFFIX_KIND = {"l": "L", "c": "C", "z0": "T", "td": "T"}
+
+
+def element_name(component: str) -> str:
+    """Netlist element name of a component: ``tank_l`` -> ``L_tank``, ``line_z0`` -> ``T_line``."""
+    base, _, suffix = component.rpartition("_")
+    return f"{_SUFFIX_KIND[suffix]}_{base}"
+
+
+# ---------------------------------------------------------------- helpers
+
+class _Builder:
+    """Collects components in circuit order."""
+
+    def __init__(self, design: Design):
+        self.design = design
+        self.w0 = 2 * PI * design.f0_hz
+        self.items: list[Component] = []
+
+    def add(self, name: str, kind: str, value: float, how: str, role: str, lossy: bool = True) -> None:
+        if not (value > 0 and math.isfinite(value)):
+            raise SizingError(
+                f"component {name}: sized to {value!r}, which is not a positive finite value; "
+                f"check the design values (set it in [network.values] to override)."
+            )
+        self.items.append(Component(name, kind, float(value), how, role, lossy))
+
+    def inductor_x(self, name: str, x_ohm: float, how: str, role: str, lossy: bool = True) -> None:
+        """An inductor of reactance ``x_ohm`` at f0: L = X / omega0."""
+        self.add(name, "L", x_ohm / self.w0, f"X = {how} at f0; L = X/omega0", role, lossy)
+
+    def capacitor_x(self, name: str, x_ohm: float, how: str, role: str, lossy: bool = True) -> None:
+        """A capacitor of reactance magnitude ``x_ohm`` at f0: C = 1 / (omega0 X)."""
+        self.add(name, "C", 1.0 / (self.w0 * x_ohm), f"|X| = {how} at f0; C = 1/(omega0 |X|)", role, lossy)
+
+    def parallel_tank(self, base: str, r_ohm: float, q: float, what: str, role: str = "tank") -> None:
+        """Parallel LC at f0 with loaded Q relative to ``r_ohm``: C = Q/(omega0 R), L = 1/(omega0^2 C)."""
+        c = q / (self.w0 * r_ohm)
+        src = f"parallel tank at f0, loaded Q={q:g} across {what}"
+        self.add(f"{base}_l", "L", 1.0 / (self.w0**2 * c), f"{src}: L = 1/(omega0^2 C)", role)
+        self.add(f"{base}_c", "C", c, f"{src}: C = Q/(omega0 R), R = {r_ohm:.6g} ohm", role)
+
+    def series_resonator(self, base: str, r_ohm: float, q: float, what: str, role: str = "resonator") -> None:
+        """Series LC at f0 with loaded Q relative to ``r_ohm``: L = Q R/omega0, C = 1/(omega0^2 L)."""
+        lval = q * r_ohm / self.w0
+        src = f"series resonator at f0, loaded Q={q:g} with {what}"
+        self.add(f"{base}_l", "L", lval, f"{src}: L = Q R/omega0, R = {r_ohm:.6g} ohm", role)
+        self.add(f"{base}_c", "C", 1.0 / (self.w0**2 * lval), f"{src}: C = 1/(omega0^2 L)", role)
+
+    def quarter_wave(self, base: str, z0_ohm: float, how_z0: str, role: str = "line") -> None:
+        """Quarter-wave line at f0: TD = 1/(4 f0) (Pozar, the quarter-wave transformer)."""
+        self.add(f"{base}_z0", "Z0", z0_ohm, how_z0, role)
+        self.add(f"{base}_td", "TD", 1.0 / (4.0 * self.design.f0_hz), "quarter wave at f0: TD = 1/(4 f0) (Pozar)", role)
+
+    def feed(self, r_ohm: float, name: str = "feed_l") -> None:
+        """DC-feed choke: reactance 60 x R at f0 (NGSPICE_NOTES), or network.feed_l."""
+        net = self.design.network
+        if net.feed_l_h is not None:
+            self.add(name, "L", net.feed_l_h, "set by network.feed_l", "feed", lossy=False)
+        else:
+            self.inductor_x(name, FEED_X_RATIO * r_ohm, f"{FEED_X_RATIO:g} x {r_ohm:.6g} ohm (common practice: RF choke)", "feed", lossy=False)
+
+    def block(self, r_ohm: float, name: str = "block_c") -> None:
+        """DC block (or RF bypass): reactance R/60 at f0, or network.block_c."""
+        net = self.design.network
+        if net.block_c_f is not None:
+            self.add(name, "C", net.block_c_f, "set by network.block_c", "block")
+        else:
+            self.capacitor_x(name, r_ohm / FEED_X_RATIO, f"{r_ohm:.6g} ohm / {FEED_X_RATIO:g} (common practice: RF short)", "block")
+
+
+def ropt_from_power(design: Design, cls: str) -> tuple[float, float, str]:
+    """Optimum drain resistance, effective supply and how it was obtained.
+
+    Parameters
+    ----------
+    design : Design
+    cls : str
+        ``F``, ``invF``, ``B`` or ``E`` (key of :data:`CLASS_COEFF`).
+
+    Returns
+    -------
+    (ropt_ohm, vdd_eff_v, how)
+
+    Notes
+    -----
+    ``R = a Vdd_eff^2 / Pout``; see the module docstring for ``a`` and ``Vdd_eff``.
+    """
+    a = CLASS_COEFF[cls]
+    dev = design.device
+    vdd = design.vdd_v
+    if dev.model == "switch":
+        k = dev.ron_ohm / dev.duty
+        if design.ropt_ohm is not None:
+            r = design.ropt_ohm
+            veff = vdd / (1.0 + a * k / r)
+            return r, veff, "set by design.ropt"
+        disc = vdd**2 - 4.0 * k * design.pout_w
+        if disc <= 0:
+            raise SizingError(
+                f"device.ron: {dev.ron_ohm:g} ohm drops more than the supply can give at design.pout = "
+                f"{design.pout_w:g} W; lower device.ron or design.pout, or raise design.vdd."
+            )
+        veff = 0.5 * (vdd + math.sqrt(disc))
+    elif dev.model == "gm":
+        veff = vdd - dev.vknee_v
+        if veff <= 0:
+            raise SizingError(f"device.vknee: {dev.vknee_v:g} V is not below design.vdd = {vdd:g} V; lower the knee voltage.")
+        if design.ropt_ohm is not None:
+            return design.ropt_ohm, veff, "set by design.ropt"
+    else:
+        veff = vdd
+        if design.ropt_ohm is not None:
+            return design.ropt_ohm, veff, "set by design.ropt"
+    return a * veff**2 / design.pout_w, veff, _CLASS_SOURCE[cls]
+
+
+def l_section(b: _Builder, r_target: float, x_target: float, r_load: float, how_target: str,
+              force: bool = False) -> None:
+    """L-section from the load ``r_load`` to ``r_target + j x_target`` at the input (f0).
+
+    Lowpass (series L, shunt C) or highpass (series C, shunt L) per ``network.match``;
+    the shunt element sits at the higher-resistance side, Q = sqrt(Rhigh/Rlow - 1)
+    (Pozar, "Microwave Engineering", L-section matching networks). A non-zero ``x_target``
+    (used by class_f_lumped to absorb the resonators' reactance) is folded into the
+    series element (shunt at the load) or the shunt element (shunt at the input).
+    Nothing is added when the resistances agree within 1 % and ``x_target`` is zero.
+    Components are added input side first (circuit order).
+    """
+    low = b.design.network.match == "lowpass"
+    sign = 1.0 if low else -1.0
+    src = f"L-section {'lowpass' if low else 'highpass'} {how_target} -> RL = {r_load:.6g} ohm (Pozar, L-section matching)"
+    if abs(r_target - r_load) <= 0.01 * r_load and not force:
+        if x_target == 0.0:
+            return
+    if abs(r_target - r_load) <= 0.01 * r_load:
+        # resistances agree: only a series element cancelling the reactance
+        xs = x_target
+        if abs(xs) > 0:
+            _series(b, "match_series", xs, src + ", series only (R already matched)")
+        return
+    if r_target < r_load:
+        # series at the input, shunt across the load
+        g = 1.0 / r_load
+        q = math.sqrt(r_load / r_target - 1.0)
+        bsh = sign * q / r_load  # Re{1/(G + jB)} = r_target  <=>  B = +-sqrt(G/Rt - G^2)
+        im_z = -bsh / (g**2 + bsh**2)
+        xs = x_target - im_z
+        _series(b, "match_series", xs, src + f", Q = {q:.4g}")
+        _shunt(b, "match_shunt", bsh, src + f", Q = {q:.4g}")
+    else:
+        yt = 1.0 / complex(r_target, x_target)
+        gt, bt = yt.real, yt.imag
+        if 1.0 / gt < r_load:
+            raise SizingError(f"network.match: cannot reach {how_target} from RL = {r_load:g} ohm with an L-section; set the match values in [network.values].")
+        q = math.sqrt(1.0 / (gt * r_load) - 1.0)
+        xs = sign * q * r_load
+        y1 = 1.0 / complex(r_load, xs)
+        bsh = bt - y1.imag
+        _shunt(b, "match_shunt", bsh, src + f", Q = {q:.4g}")
+        _series(b, "match_series", xs, src + f", Q = {q:.4g}")
+
+
+def _series(b: _Builder, base: str, x_ohm: float, how: str, role: str = "match") -> None:
+    if x_ohm > 0:
+        b.add(f"{base}_l", "L", x_ohm / b.w0, f"{how}: series X = {x_ohm:.6g} ohm, L = X/omega0", role)
+    else:
+        b.add(f"{base}_c", "C", 1.0 / (b.w0 * -x_ohm), f"{how}: series X = {x_ohm:.6g} ohm, C = -1/(omega0 X)", role)
+
+
+def _shunt(b: _Builder, base: str, b_s: float, how: str, role: str = "match") -> None:
+    if b_s > 0:
+        b.add(f"{base}_c", "C", b_s / b.w0, f"{how}: shunt B = {b_s:.6g} S, C = B/omega0", role)
+    else:
+        b.add(f"{base}_l", "L", 1.0 / (b.w0 * -b_s), f"{how}: shunt B = {b_s:.6g} S, L = -1/(omega0 B)", role)
+
+
+def _load_x(b: _Builder) -> None:
+    """Series L (X > 0) or C (X < 0) of reactance design.load_x at f0, just before RLOAD."""
+    x = b.design.load_x_ohm
+    if x > 0:
+        b.inductor_x("loadx_l", x, f"design.load_x = {x:.6g} ohm", "load")
+    elif x < 0:
+        b.capacitor_x("loadx_c", -x, f"-design.load_x = {-x:.6g} ohm", "load")
+
+
+def _resonator_z(design: Design, ropt: float) -> float:
+    return design.network.resonator_z_ohm if design.network.resonator_z_ohm is not None else ropt
+
+
+# ---------------------------------------------------------------- topologies
+
+def size_class_f_line(b: _Builder, ropt: float) -> None:
+    """Class F with a quarter-wave series line and a parallel f0 tank at the load.
+
+    Choke at the drain, DC block, line Z0 = sqrt(Ropt RL), TD = 1/(4 f0), tank across RL
+    (loaded Q relative to RL): odd harmonics see an open and even harmonics a short at the
+    drain (Pozar, the quarter-wave transformer; Raab 1997).
+    """
+    d = b.design
+    b.feed(ropt)
+    b.block(ropt)
+    z0 = math.sqrt(ropt * d.load_ohm)
+    b.quarter_wave("line", z0, f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {d.load_ohm:.6g}) (Pozar, quarter-wave transformer)")
+    b.parallel_tank("tank", d.load_ohm, d.network.loaded_q, "RL")
+    _load_x(b)
+
+
+def size_class_f_feed(b: _Builder, ropt: float) -> None:
+    """Class F with a quarter-wave line as the DC feed.
+
+    Supply choke -> RF bypass C (an RF short, reactance Ropt/60 at f0) -> quarter-wave line
+    (Z0 = Ropt) -> drain: shorted at its supply end, the line is an open at odd and a short
+    at even harmonics (common practice). Output: DC block, series f0 resonator (loaded Q
+    relative to Ropt), L-section Ropt -> RL.
+    """
+    d = b.design
+    b.feed(ropt)
+    b.block(ropt, name="bypass_c")
+    b.quarter_wave("feedline", ropt, f"Z0 = Ropt = {ropt:.6g} ohm (our choice: a line of the drain impedance; any Z0 gives the odd/even open/short)", role="feed_line")
+    b.block(ropt)
+    b.series_resonator("res", ropt, d.network.loaded_q, "Ropt")
+    l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    _load_x(b)
+
+
+def size_class_f_lumped(b: _Builder, ropt: float) -> None:
+    """Lumped class F: parallel resonators at 3f0..(2N+1)f0 in series, shunt f0 tank, match.
+
+    Resonator n: characteristic impedance Zr (network.resonator_z, default Ropt),
+    L = Zr/omega_n, C = 1/(Zr omega_n). Their net reactance at f0,
+    X = sum omega0 L_n / (1 - (f0/f_n)^2), is absorbed by the L-section, which is sized to
+    present Ropt - jX at its input so the drain sees Ropt (Pozar, L-section matching).
+    """
+    d = b.design
+    b.feed(ropt)
+    b.block(ropt)
+    zr = _resonator_z(d, ropt)
+    x_tanks = 0.0
+    for k in range(1, d.network.harmonics + 1):
+        n = 2 * k + 1
+        wn = n * b.w0
+        src = f"parallel resonator at {n} f0, Zr = {zr:.6g} ohm"
+        b.add(f"res{n}_l", "L", zr / wn, f"{src}: L = Zr/omega_n", "resonator")
+        b.add(f"res{n}_c", "C", 1.0 / (zr * wn), f"{src}: C = 1/(Zr omega_n)", "resonator")
+        x_tanks += b.w0 * (zr / wn) / (1.0 - (1.0 / n) ** 2)
+    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
+    l_section(b, ropt, -x_tanks, d.load_ohm, f"Ropt - j{x_tanks:.6g} ohm", force=True)
+    _load_x(b)
+
+
+def size_inverse_f_line(b: _Builder, ropt: float) -> None:
+    """Inverse class F: choke, block, quarter-wave line Z0 = sqrt(Ropt RL), series f0 resonator + RL.
+
+    The series resonator (loaded Q relative to RL) is a short at f0, so the drain sees
+    Z0^2/RL = Ropt; at harmonics it is a high impedance, so the line end is nearly open:
+    short at odd and open at even harmonics at the drain (Pozar, quarter-wave transformer).
+    """
+    d = b.design
+    b.feed(ropt)
+    b.block(ropt)
+    z0 = math.sqrt(ropt * d.load_ohm)
+    b.quarter_wave("line", z0, f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {d.load_ohm:.6g}) (Pozar, quarter-wave transformer)")
+    b.series_resonator("res", d.load_ohm, d.network.loaded_q, "RL")
+    _load_x(b)
+
+
+def size_class_e(b: _Builder, r_ohm: float) -> None:
+    """Class E (Sokal & Sokal 1975; Raab 1977), 50 % duty, shunt C only.
+
+    Shunt C = 0.1836/(omega0 R) minus the device Cout; series L0-C0 at f0 with loaded Q
+    relative to R (L0 = Q R/omega0); excess series reactance 1.1525 R as an extra series L;
+    L-section R -> RL.
+    """
+    d = b.design
+    b.feed(r_ohm)
+    c_total = E_SHUNT_K / (b.w0 * r_ohm)
+    c_shunt = c_total - d.device.cout_f
+    if c_shunt <= 0:
+        raise SizingError(
+            f"device.cout: {d.device.cout_f:.4g} F is not below the class-E shunt capacitance "
+            f"0.1836/(omega0 R) = {c_total:.4g} F; lower design.pout, raise design.vdd or use a smaller device."
+        )
+    b.add("shunt_c", "C", c_shunt, f"class-E shunt C = 0.1836/(omega0 R) - Cout = {c_total:.6g} - {d.device.cout_f:.6g} F (Sokal & Sokal 1975)", "shunt")
+    q = d.network.loaded_q
+    l0 = q * r_ohm / b.w0
+    b.add("series_c", "C", 1.0 / (b.w0**2 * l0), f"series resonator C0 = 1/(omega0^2 L0) (also the DC block)", "block")
+    b.add("series_l", "L", l0, f"series resonator L0 = Q R/omega0, loaded Q={q:g}, R = {r_ohm:.6g} ohm", "resonator")
+    b.add("excess_l", "L", E_EXCESS_K * r_ohm / b.w0, "class-E excess reactance X = 1.1525 R at f0 (Sokal & Sokal 1975; Raab 1977)", "series")
+    l_section(b, r_ohm, 0.0, d.load_ohm, f"R = {r_ohm:.6g} ohm")
+    _load_x(b)
+
+
+def size_class_b_tuned(b: _Builder, ropt: float) -> None:
+    """Tuned-load class B: choke, parallel f0 tank at the drain (loaded Q vs Ropt), block, L-section."""
+    d = b.design
+    b.feed(ropt)
+    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
+    b.block(ropt)
+    l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    _load_x(b)
+
+
+# ---------------------------------------------------------------- entry point
+
+def _conduction_fourier(angle_deg: float) -> tuple[float, float]:
+    """(Idc/Imax, I1/Imax) of a reduced-conduction-angle current pulse (Cripps, ch. 3).
+
+    With half angle alpha: Idc/Imax = (sin a - a cos a)/(pi (1 - cos a)),
+    I1/Imax = (a - sin a cos a)/(pi (1 - cos a)); class B (a = pi/2): 1/pi and 1/2.
+    """
+    a = math.radians(angle_deg) / 2.0
+    den = PI * (1.0 - math.cos(a))
+    return (math.sin(a) - a * math.cos(a)) / den, (a - math.sin(a) * math.cos(a)) / den
+
+
+def size(design: Design) -> SizedDesign:
+    """Size every component of ``design`` for its topology.
+
+    Parameters
+    ----------
+    design : Design
+
+    Returns
+    -------
+    SizedDesign
+        Components in circuit order (drain to load), ``ropt_ohm``, ``derived`` numbers
+        (name -> (SI value, unit, how)), ``idc_est_a`` and ``pout_est_w``.
+
+    Raises
+    ------
+    SizingError
+        When the specification cannot be realised.
+    DesignError
+        For an unknown or invalid ``[network.values]`` override.
+    """
+    from .topologies import resolve_topology
+
+    topo = resolve_topology(design)
+    cls = topo.wave_class
+    ropt, veff, how_r = ropt_from_power(design, cls)
+    a = CLASS_COEFF[cls]
+    pout = a * veff**2 / ropt
+    b = _Builder(design)
+    topo.sizer(b, ropt)
+    comps = {c.name: c for c in b.items}
+    comps = _apply_overrides(design, comps, topo.name)
+
+    derived: dict[str, tuple] = {
+        "ropt_ohm": (ropt, "ohm", how_r),
+        "vdd_eff_v": (veff, "V", _veff_how(design)),
+        "pout_est_w": (pout, "W", f"P = a Vdd_eff^2/R with a = {a:.6g} (class {cls})"),
+    }
+    dev = design.device
+    if dev.model == "gm":
+        fdc, f1 = _conduction_fourier(dev.conduction_angle_deg)
+        v1 = math.sqrt(2.0 * pout * ropt)
+        if dev.imax_a is not None:
+            imax, how_i = dev.imax_a, "set by device.imax"
+        else:
+            imax = v1 / ropt / f1
+            how_i = "Imax = V1/(Ropt I1/Imax), V1 = sqrt(2 P Ropt), I1/Imax from the conduction angle (Cripps)"
+        derived["imax_a"] = (imax, "A", how_i)
+        idc = imax * fdc
+        derived["idc_est_a"] = (idc, "A", "Idc = Imax (sin a - a cos a)/(pi (1 - cos a)) (Cripps, reduced conduction angle)")
+        pout_est = min(pout, 0.5 * (imax * f1) ** 2 * ropt)
+    else:
+        idc = pout / veff
+        derived["idc_est_a"] = (idc, "A", "Idc = P/Vdd_eff (ideal switching waveforms, no loss but the Ron drop)")
+        pout_est = pout
+    if "line_td" in comps or "feedline_td" in comps:
+        base = "line" if "line_td" in comps else "feedline"
+        td = comps[f"{base}_td"].value
+        derived[f"{base}_length_m"] = (C0_M_S * td / math.sqrt(design.network.eps_eff), "m",
+                                       "physical length = c0 TD/sqrt(eps_eff) (c0/(4 f0 sqrt(eps_eff)) for a quarter wave)")
+    if "feed_l" in comps:
+        lf = comps["feed_l"].value
+        cb_name = "bypass_c" if "bypass_c" in comps else ("block_c" if "block_c" in comps else "series_c")
+        cb = comps[cb_name].value
+        fb = 1.0 / (2 * PI * math.sqrt(lf * cb))
+        zb = math.sqrt(lf / cb)
+        derived["bias_resonance_hz"] = (fb, "Hz", f"1/(2 pi sqrt(L_feed C_{cb_name[:-2]})), the slowest pole of the bias network")
+        derived["bias_damping"] = (design.load_ohm / (2.0 * zb), "",
+                                   f"zeta ~ RL/(2 sqrt(L_feed/C_{cb_name[:-2]})): a series loop closed through roughly RL (estimate)")
+    return SizedDesign(design=design, ropt_ohm=ropt, components=comps, derived=derived,
+                       idc_est_a=idc, pout_est_w=pout_est)
+
+
+def _veff_how(design: Design) -> str:
+    m = design.device.model
+    if m == "switch":
+        return "Vdd_eff = Vdd - Ron Idc/duty (mean on-state drop of the switch; our estimate)"
+    if m == "gm":
+        return "Vdd_eff = Vdd - Vknee (common practice; Cripps)"
+    return "Vdd_eff = Vdd (user device: no drop assumed)"
+
+
+def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> dict[str, Component]:
+    out = dict(comps)
+    for name, text in design.network.values.items():
+        key = f"network.values.{name}"
+        if name not in comps:
+            close = difflib.get_close_matches(name, list(comps), n=1, cutoff=0.4)
+            hint = f"did you mean '{close[0]}'?" if close else "valid names: " + ", ".join(comps)
+            raise DesignError(f"{key}: {topo} has no component '{name}'; {hint}")
+        comp = comps[name]
+        value = parse_quantity(text, comp.unit, key)
+        if not (value > 0):
+            raise DesignError(f"{key}: {value:g} {comp.unit} is not positive; give a value > 0.")
+        out[name] = Component(name, comp.kind, value, "set in [network.values]", comp.role, comp.lossy)
+    return out
+
+
+# ---------------------------------------------------------------- sized design file
+
+def sized_toml_text(sized: SizedDesign) -> str:
+    """A fully valued design file: the input keys plus ``[network.values]`` with every component.
+
+    Values are written with full float precision (``repr``) so that loading the file back
+    and sizing gives identical values; a comment beside each says how it was obtained.
+    """
+    import tomlkit
+
+    raw = sized.design.raw or {}
+    doc = tomlkit.document()
+    doc.add(tomlkit.comment(f"Sized design '{sized.design.name}' written by netgen; edit and load again."))
+    doc.add(tomlkit.comment("[network.values] holds every component; each overrides sizing when loaded."))
+    for section, table in raw.items():
+        if not isinstance(table, dict):
+            continue
+        t = tomlkit.table()
+        for key, value in table.items():
+            if section == "network" and key == "values":
+                continue
+            t.add(key, value)
+        if section == "network":
+            vals = tomlkit.table()
+            for comp in sized.components.values():
+                item = tomlkit.item(f"{comp.value!r} {comp.unit}")
+                item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
+                vals.add(comp.name, item)
+            t.add("values", vals)
+        doc.add(section, t)
+    if "network" not in raw:
+        t = tomlkit.table()
+        vals = tomlkit.table()
+        for comp in sized.components.values():
+            item = tomlkit.item(f"{comp.value!r} {comp.unit}")
+            item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
+            vals.add(comp.name, item)
+        t.add("values", vals)
+        doc.add("network", t)
+    return tomlkit.dumps(doc)
+
+
+def write_sized_toml(sized: SizedDesign, path: str | Path) -> Path:
+    """Write :func:`sized_toml_text` to ``path`` atomically (temp file + os.replace)."""
+    import os
+    import tempfile
+
+    from .errors import OutputError
+
+    path = Path(path)
+    text = sized_toml_text(sized)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot write the sized design ({exc.strerror}); check the folder.") from None
+    return path

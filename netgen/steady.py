@@ -1,0 +1,378 @@
+"""Periodic steady state: warm start, chunked transient, drift-aware convergence.
+
+:func:`simulate` renders the design's transient netlist (``netgen.render``),
+starts the bias network from its DC state (warm start), runs ngspice in chunks
+of a few cycles and stops once DC power, load power and the drain waveform
+have settled to ``sim.settle_tol`` -- judged so that slow drift is caught --
+or at ``sim.max_cycles`` (then ``settled=False``, with the reason in ``note``).
+
+Convergence (see docs/simulation.md)
+-----------------------------------
+Per cycle k the checker computes Pdc_k, Pload_k and the drain waveform on a
+uniform grid. Over the last 3w cycles (w = max(2, n // 6) grows with the run)
+it forms three window means S1, S2, S3 and their differences d1 = S2 - S1,
+d2 = S3 - S2. For a sum of decaying exponentials dominated by the slowest
+pole, d2/d1 = q is that pole's decay per window and the change still to come
+is d2*q/(1-q) (Aitken's delta-squared extrapolation). The run is settled when,
+for Pdc and Pload, that predicted remaining change (or, when the windows do not
+decay geometrically, a conservative bound) is below tol relative, and the
+window-mean drain waveform changed by less than tol (rms, relative). A slow
+drift makes q close to 1 and the prediction large, so consecutive cycles that
+agree to 0.1 % do not pass.
+
+Warm start
+----------
+(a) a DC operating point of the passive network (``render(mode="op")``, the
+device replaced by a DC sink of the estimated Idc) gives the current of every
+inductor and the voltage of every capacitor; they become ``IC=`` values with
+``uic``. A shooting-style correction (restart with the DC state re-derived
+from the mean drain current measured after a few cycles) was tried and
+dropped: the early mean drain current still carries the tanks' build-up and
+moved the estimate away from the final Idc (docs/simulation.md).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from . import engine
+from .design import SimSpec
+from .errors import SimulationError
+from .records import SizedDesign, Waveforms
+
+__all__ = ["simulate", "simulate_netlist", "SettleCheck", "judge", "dc_initial_conditions",
+           "netlist_elements"]
+
+#: cycles per chunk (ngspice stop/resume); small chunks stop sooner, large ones cost less overhead
+CHUNK_CYCLES = 5
+#: window-to-window noise floor as a fraction of tol: smaller changes count as settled whatever their trend
+NOISE_FRACTION = 0.05
+#: drain-voltage harmonics (DC..N f0) compared between windows
+HARMONICS_JUDGED = 5
+
+
+# ---------------------------------------------------------------- netlist parsing helpers
+
+def netlist_elements(netlist: str) -> dict[str, list[str]]:
+    """Element lines of a netlist: upper-case element name -> tokens (continuations joined)."""
+    out: dict[str, list[str]] = {}
+    lines: list[str] = []
+    for raw in netlist.splitlines()[1:]:  # the first line is the title
+        s = raw.strip()
+        if not s or s.startswith("*"):
+            continue
+        if s.startswith("+") and lines:
+            lines[-1] += " " + s[1:]
+            continue
+        lines.append(s)
+    inside = False
+    for s in lines:
+        low = s.lower()
+        if low.startswith((".control", ".exec")):
+            inside = True
+        elif low.startswith(".endc"):
+            inside = False
+        elif not inside and not s.startswith("."):
+            tokens = s.split(";")[0].split()
+            out[tokens[0].upper()] = tokens
+    return out
+
+
+def _rload(elements: dict) -> float:
+    tokens = elements.get("RLOAD")
+    if tokens is None or len(tokens) < 4:
+        raise SimulationError("The netlist has no 'RLOAD load 0 <R>' line; the load power needs it "
+                              "(docs/netlist_conventions.md).")
+    value = re.sub(r"^r=", "", tokens[3], flags=re.I)
+    return engine._spice_number(value)
+
+
+# ---------------------------------------------------------------- convergence
+
+def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
+          min_cycles: int) -> tuple[bool, str]:
+    """Decide from per-cycle values whether the run has settled.
+
+    Parameters
+    ----------
+    series : dict of name -> ndarray
+        One value per completed cycle (``pdc_w``, ``pload_w``), W.
+    waves : ndarray (cycles, m) or None
+        Drain voltage of each cycle on a uniform grid, V.
+    tol : float
+        Relative tolerance (sim.settle_tol).
+    min_cycles : int
+
+    Returns
+    -------
+    (settled, reason) : (bool, str)
+
+    Notes
+    -----
+    Aitken's delta-squared extrapolation on window means (see the module
+    docstring): remaining = |d2 * q / (1 - q)| with q = d2/d1 when 0 <= q < 0.95;
+    when q is negative (ringing) the bound is max(|d1|, |d2|); when q >= 0.95
+    (too slow to extrapolate) the run is not settled unless both differences are
+    below the noise floor NOISE_FRACTION*tol.
+    """
+    n = min(len(v) for v in series.values()) if series else 0
+    if n < max(min_cycles, 6):
+        return False, f"{n} cycles, fewer than the {max(min_cycles, 6)} needed to judge"
+    w = max(2, n // 6)
+    worst_name, worst = "", 0.0
+    for name, values in series.items():
+        x = np.asarray(values[-3 * w:], dtype=float)
+        s1, s2, s3 = x[:w].mean(), x[w:2 * w].mean(), x[2 * w:].mean()
+        scale = max(abs(s3), 1e-30)
+        d1, d2 = s2 - s1, s3 - s2
+        floor = NOISE_FRACTION * tol * scale
+        if abs(d1) < floor and abs(d2) < floor:
+            remaining = max(abs(d1), abs(d2))
+        elif d1 == 0.0:
+            remaining = math.inf
+        else:
+            q = d2 / d1
+            if q < 0:
+                remaining = max(abs(d1), abs(d2))
+            elif q < 0.95:
+                remaining = abs(d2 * q / (1.0 - q)) + abs(d2)
+            else:
+                remaining = math.inf
+        rel = remaining / scale
+        if rel > worst:
+            worst_name, worst = name, rel
+    if worst >= tol:
+        return False, (f"{worst_name} still changing: predicted remaining change {worst:.2g} "
+                       f"(relative) over windows of {w} cycles, tolerance {tol:g}")
+    if waves is not None and len(waves) >= 2 * w:
+        # drain waveform judged on its first harmonics (DC..5f0), which do not jitter with
+        # the position of the switching edges on the sampling grid
+        a = waves[-2 * w:-w].mean(axis=0)
+        b = waves[-w:].mean(axis=0)
+        scale = max(float(np.sqrt(np.sum(np.abs(b) ** 2))), 1e-30)
+        change = float(np.sqrt(np.sum(np.abs(b - a) ** 2))) / scale
+        if change >= tol:
+            return False, f"drain waveform still changing ({change:.2g} relative), tolerance {tol:g}"
+    return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
+
+
+@dataclass
+class SettleCheck:
+    """The ``stop_check`` run inside the engine after every chunk (picklable, keeps state).
+
+    Attributes filled during the run: ``pdc_w``, ``pload_w``, ``idrain_a`` (lists, one
+    value per cycle), ``waves`` (per-cycle drain-voltage Fourier coefficients, DC..5f0),
+    ``settled``, ``reason``.
+    """
+
+    period_s: float
+    vdd_v: float
+    rload_ohm: float
+    tol: float
+    min_cycles: int
+    points: int = 256
+    pdc_w: list = field(default_factory=list)
+    pload_w: list = field(default_factory=list)
+    idrain_a: list = field(default_factory=list)
+    waves: list = field(default_factory=list)
+    settled: bool = False
+    reason: str = ""
+    _buf: dict | None = None
+
+    def _append(self, vecs) -> None:
+        names = {"time": "time", "drain": "drain", "load": "load", "supply": "vdd#branch",
+                 "idrain": "vidrain#branch"}
+        new = {k: np.asarray(vecs[v], dtype=float) for k, v in names.items() if v in vecs}
+        if self._buf is None:
+            self._buf = new
+            return
+        t_old = self._buf["time"]
+        keep = new["time"] > t_old[-1]
+        for k in self._buf:
+            self._buf[k] = np.concatenate([self._buf[k], new[k][keep]])
+
+    def __call__(self, t_end: float, vecs) -> tuple[bool, str]:
+        self._append(vecs)
+        buf = self._buf
+        T = self.period_s
+        m = self.points
+        while True:
+            k = len(self.pdc_w)
+            t_a, t_b = k * T, (k + 1) * T
+            if buf["time"][-1] < t_b * (1 - 1e-12):
+                break
+            grid = t_a + (np.arange(m) + 0.5) * (T / m)  # midpoints: the mean of a periodic signal
+            vd = np.interp(grid, buf["time"], buf["drain"])
+            vl = np.interp(grid, buf["time"], buf["load"])
+            isup = -np.interp(grid, buf["time"], buf["supply"])
+            self.pdc_w.append(self.vdd_v * float(isup.mean()))
+            self.pload_w.append(float(np.mean(vl ** 2)) / self.rload_ohm)
+            if "idrain" in buf:
+                self.idrain_a.append(float(np.interp(grid, buf["time"], buf["idrain"]).mean()))
+            self.waves.append(np.fft.rfft(vd)[:HARMONICS_JUDGED + 1] / m)
+            # drop what is no longer needed (keep one point before the next cycle)
+            cut = max(int(np.searchsorted(buf["time"], t_b)) - 1, 0)
+            for key in buf:
+                buf[key] = buf[key][cut:]
+        n = len(self.pdc_w)
+        ok, why = judge({"pdc_w": np.array(self.pdc_w), "pload_w": np.array(self.pload_w)},
+                        np.array(self.waves) if self.waves else None, self.tol, self.min_cycles)
+        self.settled, self.reason = ok, why
+        pdc = self.pdc_w[-1] if self.pdc_w else float("nan")
+        pl = self.pload_w[-1] if self.pload_w else float("nan")
+        return ok, f"cycle {n}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
+
+
+# ---------------------------------------------------------------- warm start
+
+def dc_initial_conditions(op_netlist: str, tran_netlist: str, *, backend: str = "shared",
+                          timeout_s: float = 60.0) -> dict[str, float]:
+    """Initial conditions from a DC operating point of the passive network.
+
+    Every inductor of the op netlist gets its DC branch current (A), every capacitor
+    its DC voltage (V, first node minus second); the device's ``COUT`` gets the DC
+    drain voltage. Only elements that exist in ``tran_netlist`` are returned, keyed
+    by their netlist spelling (``L_feed``).
+    """
+    op = engine.run_op(op_netlist, backend=backend, timeout_s=timeout_s)
+    elems = netlist_elements(op_netlist)
+    tran = {k.upper(): v for k, v in netlist_elements(tran_netlist).items()}
+
+    def volt(node: str) -> float:
+        node = node.lower()
+        return 0.0 if node in ("0", "gnd") else float(op.get(node, 0.0))
+
+    ic: dict[str, float] = {}
+    for key, tokens in elems.items():
+        if key not in tran:
+            continue
+        name = tran[key][0]
+        if key.startswith("L"):
+            ic[name] = float(op.get(key.lower() + "#branch", 0.0))
+        elif key.startswith("C"):
+            ic[name] = volt(tokens[1]) - volt(tokens[2])
+    if "COUT" in tran:
+        ic[tran["COUT"][0]] = volt("drain")
+    return ic
+
+
+# ---------------------------------------------------------------- simulation
+
+def _save_list(elements: dict) -> tuple[list[str], list[str]]:
+    nodes = {"drain", "vdd", "load"}
+    all_nodes = {t.lower() for toks in elements.values() for t in toks[1:3]}
+    if "gate" in all_nodes:
+        nodes.add("gate")
+    for key, toks in elements.items():
+        if key.startswith("RLOSS_"):
+            nodes.update(t.lower() for t in toks[1:3] if t not in ("0", "gnd"))
+    branches = [f"{s.lower()}#branch" for s in ("VDD", "VIDRAIN", "VISW", "VDRIVE") if s in elements]
+    return sorted(nodes), branches
+
+
+def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: dict) -> tuple:
+    T = 1.0 / f0_hz
+    t = np.asarray(vecs["time"], dtype=float)
+    end = math.floor(t[-1] / T * (1 + 1e-12)) * T
+    start = end - 2 * T
+    if start < t[0] - 1e-6 * T:
+        raise SimulationError("The transient run ended before two full cycles were simulated; "
+                              "raise sim.max_cycles.")
+    grid = start + np.arange(2 * ppc) * (T / ppc)
+    v = {n: np.interp(grid, t, vecs[n]) for n in nodes if n in vecs}
+    i = {}
+    if "vidrain#branch" in vecs:
+        i["drain"] = np.interp(grid, t, vecs["vidrain#branch"])
+    if "visw#branch" in vecs:
+        i["switch"] = np.interp(grid, t, vecs["visw#branch"])
+    if "vdd#branch" in vecs:
+        i["supply"] = -np.interp(grid, t, vecs["vdd#branch"])
+    if "vdrive#branch" in vecs:
+        i["gate"] = -np.interp(grid, t, vecs["vdrive#branch"])
+    return grid - start, v, i, int(round(end / T))
+
+
+def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: float, vdd_v: float,
+                     sim: SimSpec | None = None, make_op: Callable[[float], str] | None = None,
+                     idc_est_a: float | None = None, progress: Callable[[str], None] | None = None,
+                     backend: str | None = None) -> Waveforms:
+    """Run a transient netlist to periodic steady state.
+
+    Parameters
+    ----------
+    make_tran : callable (ic, tstop_s) -> str
+        Returns the ngspice transient netlist with the given initial conditions
+        (element name -> A or V; None for none) and stop time, s.
+    f0_hz, vdd_v : float
+        Fundamental, Hz; supply voltage, V (Pdc = vdd_v * mean supply current).
+    sim : SimSpec
+        ``settle_tol``, ``min_cycles``, ``max_cycles``, ``timeout_s``, ``points_per_cycle``,
+        ``warm_start``, ``backend``.
+    make_op : callable (idc_a) -> str, optional
+        The DC operating-point netlist of the passive network with the drain sinking
+        ``idc_a``; needed for the warm start.
+    idc_est_a : float, optional
+        Expected DC current, A (the first warm start).
+
+    Returns
+    -------
+    Waveforms
+        Two periods on a uniform grid, ``settled``, ``cycles`` (all attempts), ``history``.
+    """
+    sim = sim or SimSpec()
+    backend = backend or sim.backend
+    T = 1.0 / f0_hz
+    tstop = sim.max_cycles * T
+    probe = make_tran(None, tstop)
+    elements = netlist_elements(probe)
+    rload = _rload(elements)
+    nodes, branches = _save_list(elements)
+    save = nodes + branches
+    warm = bool(sim.warm_start and make_op is not None and idc_est_a is not None)
+    ic = None
+    if warm:
+        ic = dc_initial_conditions(make_op(idc_est_a), probe, backend=backend, timeout_s=sim.timeout_s)
+    netlist = make_tran(ic, tstop)
+    check = SettleCheck(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
+                        min_cycles=sim.min_cycles)
+    vecs = engine.run_transient(netlist, save=save, backend=backend, timeout_s=sim.timeout_s,
+                                stop_check=check, chunk_s=CHUNK_CYCLES * T, progress=progress,
+                                keep_s=3 * T)
+    check = vecs.checker
+    t_s, v, i, _ = _final_waveforms(vecs, f0_hz, sim.points_per_cycle, nodes, elements)
+    settled = bool(check.settled)
+    if settled:
+        note = check.reason + (" (warm start)" if warm else " (cold start)")
+    else:
+        note = (f"not settled within sim.max_cycles = {sim.max_cycles}: {check.reason}; "
+                "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
+    return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
+                     history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
+                     note=note)
+
+
+def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = None,
+             backend: str | None = None) -> Waveforms:
+    """Simulate a sized design to periodic steady state (see the module docstring).
+
+    Uses ``netgen.render.render(sized, mode="tran", ic=..., tstop_s=...)`` and, for the
+    warm start, ``render(sized, mode="op", idc_a=...)``.
+    """
+    from . import render as _render  # written alongside; imported late so the engine works alone
+
+    design = sized.design
+
+    def make_tran(ic, tstop_s):
+        return _render.render(sized, mode="tran", ic=ic, tstop_s=tstop_s)
+
+    def make_op(idc_a):
+        return _render.render(sized, mode="op", idc_a=idc_a)
+
+    return simulate_netlist(make_tran, f0_hz=design.f0_hz, vdd_v=design.vdd_v, sim=design.sim,
+                            make_op=make_op, idc_est_a=sized.idc_est_a, progress=progress,
+                            backend=backend)

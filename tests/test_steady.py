@@ -1,0 +1,139 @@
+"""Tests of netgen.steady: convergence judgement, warm start, not-settled reporting."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from netgen import steady
+from netgen.design import SimSpec
+
+F0 = 1e9
+VDD = 10.0
+
+
+def class_f_line(ic, tstop_s, *, choke="1u", block="100p", mode="tran", idc_a=0.0):
+    """Quarter-wave class-F sanity circuit of NGSPICE_NOTES.md, following docs/netlist_conventions.md.
+
+    Z0 = sqrt(Ropt*RL) = sqrt(100*50) = 70.71 ohm, TD = T/4 (Pozar, quarter-wave transformer);
+    load tank 1.59 nH || 15.9 pF resonant at 1 GHz; S switch Ron 0.2 ohm; TMAX = T/1000;
+    minbreak = 0.01*TMAX (NGSPICE_NOTES: avoids the timestep collapse with lines).
+    """
+    ic = ic or {}
+
+    def icv(name):
+        return f" IC={ic[name]:.12g}" if name in ic else ""
+
+    if mode == "tran":
+        dev = ("VIDRAIN drain dint DC 0\nVISW dint dsw DC 0\nS1 dsw 0 g 0 SWMOD\n"
+               ".model SWMOD SW(RON=0.2 ROFF=1e6 VT=0.5 VH=0)\nVG g 0 PULSE(0 1 0 1p 1p 0.499n 1n)\n")
+        an = f".options minbreak=1e-14\n.tran 1p {tstop_s:.12g} 0 1p uic\n"
+    else:
+        dev, an = f"IPORT drain 0 DC {idc_a:.12g}\n", ""
+    return (f"quarter-wave class F sanity circuit\nVDD vdd 0 DC {VDD}\n"
+            f"L_feed vdd drain {choke}{icv('L_feed')}\n{dev}"
+            f"C_block drain n1 {block}{icv('C_block')}\nT_line n1 0 load 0 Z0=70.71 TD=0.25n\n"
+            f"L_tank load 0 1.59n{icv('L_tank')}\nC_tank load 0 15.9p{icv('C_tank')}\n"
+            f"RLOAD load 0 50\n{an}.end\n")
+
+
+def _harmonic(x, n):
+    """Amplitude of harmonic n of a signal sampled over an integer number (2) of periods."""
+    spec = np.fft.rfft(x) / len(x)
+    return 2 * abs(spec[2 * n])
+
+
+@pytest.mark.ngspice
+def test_quarter_wave_class_f_settles_with_expected_powers():
+    sim = SimSpec(max_cycles=600, points_per_cycle=1000)
+    w = steady.simulate_netlist(class_f_line, f0_hz=F0, vdd_v=VDD, sim=sim,
+                                make_op=lambda idc: class_f_line(None, 0, mode="op", idc_a=idc),
+                                idc_est_a=0.08)
+    assert w.settled, w.note
+    assert w.cycles < 600 and len(w.history["pdc_w"]) == w.cycles
+    assert len(w.t_s) == 2000 and w.t_s[0] == 0.0
+    np.testing.assert_allclose(np.diff(w.t_s), 1e-12, rtol=1e-9)
+    pdc = VDD * np.mean(w.i["supply"])
+    p1 = _harmonic(w.v["load"], 1) ** 2 / 2 / 50
+    # Measured values of NGSPICE_NOTES.md (sanity results; measured, not theory):
+    # Pdc 0.8054 W, P1 0.8002 W, eta 99.35 %. 1 % allows the 0.1 % settle tolerance and resampling.
+    assert pdc == pytest.approx(0.8054, rel=0.01)
+    assert p1 == pytest.approx(0.8002, rel=0.01)
+    assert p1 / pdc >= 0.95  # task acceptance: eta >= 95 %
+    # Drain voltage close to a square wave: V1 = (4/pi) Vdd, V3 = V1/3, V5 = V1/5
+    # (Fourier series of a square wave, REFERENCES.md); the notes measured 1.264/0.430/0.256.
+    v = [_harmonic(w.v["drain"], n) / VDD for n in (1, 3, 5)]
+    np.testing.assert_allclose(v, [4 / np.pi, 4 / (3 * np.pi), 4 / (5 * np.pi)], rtol=0.03)
+    # Drain current sense: in steady state mean drain current = mean supply current
+    # (Kirchhoff: no DC flows through the block capacitor).
+    assert np.mean(w.i["drain"]) == pytest.approx(np.mean(w.i["supply"]), rel=5e-3)
+
+
+@pytest.mark.ngspice
+def test_huge_choke_cold_start_is_reported_not_settled():
+    # 100 uH choke, no warm start: NGSPICE_NOTES measured ~8000 cycles to settle cold.
+    sim = SimSpec(max_cycles=40, warm_start=False, points_per_cycle=500)
+    w = steady.simulate_netlist(lambda ic, ts: class_f_line(ic, ts, choke="100u", block="1n"),
+                                f0_hz=F0, vdd_v=VDD, sim=sim)
+    assert not w.settled
+    assert w.cycles == 40
+    assert w.note.startswith("not settled within sim.max_cycles = 40")
+    assert "sim.warm_start" in w.note
+
+
+@pytest.mark.ngspice
+def test_slow_drift_with_agreeing_cycles_is_not_settled():
+    # 100 uH choke warm-started from a 12 % low Idc (0.07 A; the circuit draws ~0.0805 A):
+    # the choke current creeps with a time constant of thousands of cycles, so consecutive
+    # cycles agree to better than 0.1 % while Pdc is still ~13 % below its final value
+    # (the trap NGSPICE_NOTES describes). It must not be declared settled.
+    sim = SimSpec(max_cycles=80, points_per_cycle=500)
+    w = steady.simulate_netlist(
+        lambda ic, ts: class_f_line(ic, ts, choke="100u", block="1n"), f0_hz=F0, vdd_v=VDD, sim=sim,
+        make_op=lambda idc: class_f_line(None, 0, choke="100u", block="1n", mode="op", idc_a=idc),
+        idc_est_a=0.07)
+    pdc = w.history["pdc_w"]
+    step = np.abs(np.diff(pdc[20:])) / np.abs(pdc[21:])
+    assert step.max() < 1e-3  # the naive consecutive-cycle test would pass
+    assert pdc[-1] < 0.95 * 0.8054  # still far from the final Pdc (NGSPICE_NOTES, measured)
+    assert not w.settled and "still changing" in w.note
+
+
+def test_judge_rejects_slow_drift_that_consecutive_cycles_hide():
+    # x_k = 1 + 0.3 exp(-k/2000): per-cycle change 0.3/2000 = 1.5e-4 < 1e-3, but 30 % still to go.
+    k = np.arange(200)
+    x = 1 + 0.3 * np.exp(-k / 2000)
+    assert np.max(np.abs(np.diff(x) / x[1:])) < 1e-3
+    ok, why = steady.judge({"pdc_w": x, "pload_w": x}, None, 1e-3, 10)
+    assert not ok and "still changing" in why
+
+
+def test_judge_accepts_fast_decay_and_extrapolates():
+    # x_k = 1 + 0.3 exp(-k/3): after 100 cycles the remaining change is ~1e-15 (exact exponential).
+    k = np.arange(100)
+    x = 1 + 0.3 * np.exp(-k / 3)
+    ok, why = steady.judge({"pdc_w": x, "pload_w": x}, None, 1e-3, 10)
+    assert ok, why
+    # An exponential with 0.5 % left: Aitken's delta-squared predicts it (tau = 10 cycles, 30 cycles in).
+    k = np.arange(30)
+    y = 1 + 0.1 * np.exp(-k / 10)
+    ok, why = steady.judge({"pdc_w": y, "pload_w": y}, None, 1e-3, 10)
+    assert not ok
+
+
+def test_judge_needs_min_cycles_and_checks_waveform():
+    x = np.ones(8)
+    ok, why = steady.judge({"pdc_w": x}, None, 1e-3, 10)
+    assert not ok and "fewer than" in why
+    x = np.ones(60)
+    waves = np.ones((60, 6), dtype=complex)
+    waves[-5:, 3] = 1.2  # third harmonic moved in the last cycles
+    ok, why = steady.judge({"pdc_w": x}, waves, 1e-3, 10)
+    assert not ok and "drain waveform" in why
+
+
+def test_netlist_elements_and_rload():
+    net = class_f_line(None, 1e-8)
+    el = steady.netlist_elements(net)
+    assert el["RLOAD"][3] == "50" and "VIDRAIN" in el and "VG" in el
+    assert steady._rload(el) == 50.0

@@ -1,0 +1,100 @@
+"""The SQLite sweep store (netgen.store): commit per point, no duplicates, resume identity, CSV export."""
+
+from __future__ import annotations
+
+import csv
+import json
+import sqlite3
+
+import pytest
+
+from netgen.errors import OutputError
+from netgen.store import KEY_COLUMNS, STORE_NAME, SweepStore, export_csv
+
+SPEC = {"variations": [{"name": "design.vdd", "axis": [10.0, 12.0]}], "tolerances": [], "samples": 0,
+        "seed": None, "dist": None}
+METRICS = {"settled": True, "drain_efficiency": 0.785, "pout_w": 0.5, "pdc_w": 0.637, "peak_vd_v": 20.0,
+           "peak_vd_over_vdd": 2.0, "harmonics": [{"n": 1, "pload_dbc": 0.0}, {"n": 2, "pload_dbc": -42.5}]}
+
+
+@pytest.fixture
+def store(tmp_path):
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        yield st
+
+
+def test_wal_and_tables(store):
+    # SQLite documents journal_mode=WAL as persistent in the file (sqlite.org/wal.html)
+    con = sqlite3.connect(store.path)
+    assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    cols = {r[1] for r in con.execute("PRAGMA table_info(points)")}
+    assert {"sweep_id", "idx", "inputs", "status", "metrics", "settled", "error", "seconds", *KEY_COLUMNS} <= cols
+
+
+def test_each_point_is_committed_and_visible_to_another_connection(store):
+    sid = store.open_sweep("abc", "", SPEC, 2)
+    store.record(sid, 0, {"axes": {"design.vdd": 10.0}}, "ok", METRICS, None, 1.5)
+    other = sqlite3.connect(store.path)  # a second connection sees it without any close/flush
+    row = other.execute("SELECT idx, status, drain_efficiency, pout_w, settled, seconds FROM points").fetchone()
+    assert row == (0, "ok", 0.785, 0.5, 1, 1.5)
+
+
+def test_duplicate_index_is_ignored(store):
+    sid = store.open_sweep("abc", "", SPEC, 2)
+    assert store.record(sid, 1, {}, "failed", None, "SimulationError: x", 0.1) is True
+    assert store.record(sid, 1, {}, "ok", METRICS, None, 0.2) is False
+    rows = list(store.rows(sid))
+    assert len(rows) == 1 and rows[0]["status"] == "failed" and rows[0]["metrics"] is None
+    assert store.done_indices(sid) == {1}
+    assert store.count(sid) == {"ok": 0, "not_settled": 0, "failed": 1}
+
+
+def test_same_spec_resumes_the_same_sweep(tmp_path):
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        sid = st.open_sweep("abc", "toml", SPEC, 2)
+        st.record(sid, 0, {}, "ok", METRICS, None, 0.0)
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        assert st.open_sweep("abc", "toml", json.loads(json.dumps(SPEC)), 2) == sid
+        assert st.done_indices(sid) == {0}
+
+
+def test_changed_spec_or_design_is_refused(store):
+    store.open_sweep("abc", "", SPEC, 2)
+    other = {**SPEC, "samples": 5}
+    with pytest.raises(OutputError, match=r"holds a sweep with different variations .*choose another output folder with -o"):
+        store.open_sweep("abc", "", other, 2)
+    with pytest.raises(OutputError, match=r"holds a sweep of a different design"):
+        store.open_sweep("xyz", "", SPEC, 2)
+
+
+def test_bad_status_is_a_bug_not_a_row(store):
+    sid = store.open_sweep("abc", "", SPEC, 2)
+    with pytest.raises(ValueError):
+        store.record(sid, 0, {}, "maybe", None, None, 0.0)
+
+
+def test_not_a_database_is_a_clear_error(tmp_path):
+    bad = tmp_path / STORE_NAME
+    bad.write_bytes(b"this is not sqlite" * 100)
+    with pytest.raises(OutputError, match=r"sweep\.sqlite: cannot open the sweep store"):
+        SweepStore(bad)
+
+
+def test_export_csv(tmp_path):
+    db = tmp_path / STORE_NAME
+    with SweepStore(db) as st:
+        sid = st.open_sweep("abc", "", SPEC, 2)
+        st.record(sid, 1, {"axes": {"design.vdd": 12.0}, "sample": None}, "failed", None, "SizingError: no", 0.25)
+        st.record(sid, 0, {"axes": {"design.vdd": 10.0}, "set": {"design.vdd": "10 V", "design.load_x": "5 ohm"},
+                           "sample": None, "values": {"tank_c": "7.9 pF"}},
+                  "ok", METRICS, None, 1.0)
+    path = export_csv(db, tmp_path / "sweep.csv")
+    with open(path, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["idx"] for r in rows] == ["0", "1"]
+    assert rows[0]["design.vdd"] == "10.0" and rows[0]["values.tank_c"] == "7.9 pF"
+    assert rows[0]["design.load_x"] == "5 ohm" and rows[1]["design.load_x"] == ""
+    assert float(rows[0]["drain_efficiency"]) == 0.785 and float(rows[0]["h2_dbc"]) == -42.5
+    assert rows[1]["status"] == "failed" and rows[1]["error"] == "SizingError: no" and rows[1]["pout_w"] == ""
+    with pytest.raises(OutputError, match="no such sweep store"):
+        export_csv(tmp_path / "missing.sqlite", tmp_path / "x.csv")
