@@ -142,7 +142,9 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
                    "(Clopper-Pearson; failed and not-settled points count as failing)")
     for row in rows:
         if row["status"] == "failed":
-            click.echo(f"  point {row['idx']} failed: {row['error']}")
+            n_failed = summary["failed"]
+            more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
+            click.echo(f"  point {row['idx']} failed: {row['error'].splitlines()[0]}{more}")
             break
     click.echo(f"wrote {out / STORE_NAME}, {csv_path}" + (f", {len(made)} plots" if made else ""))
 

@@ -157,7 +157,7 @@ def write_outputs(result: RunResult, outdir: Path, *, plots: bool = True) -> dic
 
             made = P.plot_all(tmp, result.sized, result.waveforms, result.metrics, result.z_f_hz, result.z_ohm)
             for kind, path in made.items():
-                names[kind] = Path(path).name
+                names[f"plot_{kind}"] = Path(path).name
             write_report(tmp, result.sized, result.metrics, {k: Path(v).name for k, v in made.items()}, result.netlist)
             names["report"] = "report.html"
     return {kind: outdir / name for kind, name in names.items()}

@@ -38,7 +38,6 @@ from __future__ import annotations
 
 import fnmatch
 import hashlib
-import itertools
 import json
 import math
 import os
@@ -612,6 +611,9 @@ def run_point(
                 "seconds": time.perf_counter() - t0, "applied": applied}
     except NetgenError as exc:
         error = f"{type(exc).__name__}: {exc}"
+        log = str(getattr(exc, "log", "") or "").strip()
+        if log:  # the simulator's last words, enough to diagnose without re-running
+            error += "\n" + "\n".join(log.splitlines()[-8:])
     except Exception as exc:  # a bug or numerical failure in one point must not stop the sweep
         tb = traceback.extract_tb(exc.__traceback__)
         where = f" at {Path(tb[-1].filename).name}:{tb[-1].lineno}" if tb else ""
@@ -660,6 +662,7 @@ def run_sweep(
     evaluator: Evaluator | None = None,
     wave_dir: str | Path | None = None,
     progress: ProgressFn | None = None,
+    cluster_timeout_s: float = 30.0,
 ) -> dict:
     """Run every point of ``plan`` not yet in ``store`` and commit each as it finishes.
 
@@ -680,6 +683,8 @@ def run_sweep(
         Write each point's settled waveforms there as ``point_<idx>.csv``.
     progress : callable(done, total, result), optional
         Called after each finished point (``done`` counts stored points).
+    cluster_timeout_s : float
+        How long to try to reach the Dask scheduler, s.
 
     Returns
     -------
@@ -710,7 +715,7 @@ def run_sweep(
             progress(counts["ran"] + counts["skipped"], total, res)
 
     if cluster:
-        _run_dask(cluster, todo, task, finish)
+        _run_dask(cluster, todo, task, finish, cluster_timeout_s)
     else:
         n = max(1, int(workers or os.cpu_count() or 1))
         _run_local(n, todo, task, finish)
@@ -757,8 +762,21 @@ def _run_local(n_workers: int, todo: Iterator[int], task, finish) -> None:
                 for idx in suspects:
                     finish(_run_isolated(ctx, task(idx), idx))
                 pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx)
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+    except BaseException:  # interrupted (Ctrl-C) or our own error: do not wait for running points
+        _terminate(pool)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _terminate(pool) -> None:
+    """Stop a pool's worker processes now (the points they run are lost and will re-run on resume)."""
+    procs = list(getattr(pool, "_processes", {}).values())  # no public API before Python 3.14
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        if proc.is_alive():
+            proc.terminate()
+    for proc in procs:
+        proc.join(timeout=5)
 
 
 def _run_isolated(ctx, args: tuple, idx: int) -> dict:
@@ -775,15 +793,15 @@ def _run_isolated(ctx, args: tuple, idx: int) -> dict:
                     "seconds": time.perf_counter() - t0, "applied": {}}
 
 
-def _run_dask(address: str, todo: Iterator[int], task, finish) -> None:
+def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float = 30.0) -> None:
     """Submit points to a Dask distributed scheduler with a bounded window; record as they complete."""
     try:
         from distributed import Client, as_completed
     except ImportError:  # pragma: no cover - dask[distributed] is a dependency
         raise NetgenError("--cluster needs the 'distributed' package; pip install 'dask[distributed]'.") from None
     try:
-        client = Client(address, timeout=30)
-    except (OSError, TimeoutError) as exc:
+        client = Client(address, timeout=timeout_s)
+    except (OSError, TimeoutError, ValueError) as exc:
         raise NetgenError(f"--cluster {address}: cannot reach the Dask scheduler ({exc}); check the address and that it is running.") from None
     try:
         nthreads = sum(client.nthreads().values()) or 1

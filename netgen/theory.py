@@ -20,6 +20,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from functools import lru_cache
 
@@ -264,4 +265,15 @@ def bound_for(sized) -> dict:
     if topo == "class_e":
         return {"efficiency": 1.0, "name": "ideal class E (zero-voltage, zero-slope switching)",
                 "source": _SRC_SOKAL}
-    return {"efficiency": None, "name": "no ideal bound (user template)", "source": ""}
+    # a user template: the bound of the built-in sizing it declares ({# sizing: <topology> #}),
+    # marked as such, since the template's own network may control other harmonics
+    try:
+        from .errors import NetgenError
+        from .topologies import resolve_topology
+
+        base = resolve_topology(design).name
+    except (ImportError, NetgenError):
+        return {"efficiency": None, "name": "no ideal bound (user template)", "source": ""}
+    bound = bound_for(dataclasses.replace(design, topology=base))
+    bound["name"] += f" (user template sized as {base}; valid only if it controls the same harmonics)"
+    return bound

@@ -318,6 +318,22 @@ def test_grid_plot_data_equal_the_database(tmp_path):
     assert all(Path(p).stat().st_size > 1000 for p in made.values())
 
 
+def test_line_and_circle_plot_data_equal_the_database(tmp_path):
+    from netgen.sweep_plots import circle_data, line_data, plot_sweep
+
+    plan, _, rows = _run(tmp_path, tuned_b_eval, vswr="3.0:8")
+    x, y = line_data(rows, "load_phase_deg", "drain_efficiency")
+    con = sqlite3.connect(tmp_path / STORE_NAME)
+    db = [e for (e,) in con.execute("SELECT drain_efficiency FROM points ORDER BY idx")]
+    assert_allclose(x, np.arange(8) * 45.0) and list(y) == db
+    c = circle_data(rows, 50.0)
+    assert_allclose(np.abs(c["gamma"]), 0.5, rtol=1e-9)  # |Gamma| = (S-1)/(S+1) = 0.5 for S = 3 (Pozar)
+    assert_allclose(np.degrees(np.angle(c["gamma"])) % 360, x, atol=1e-7)
+    assert list(c["drain_efficiency"]) == db
+    made = plot_sweep(tmp_path / STORE_NAME, tmp_path)
+    assert set(made) == {"load_circle", "line_load_phase_deg"}
+
+
 def test_resume_runs_only_missing_points(tmp_path):
     plan = make_plan(BASE, vary=["design.vdd=10V:13V:4"])
     with SweepStore(tmp_path / STORE_NAME) as st:
@@ -459,9 +475,13 @@ def test_real_vdd_sweep_power_scales_with_vdd_squared(tmp_path):
     plan = make_plan(REAL, vary=["design.vdd=5V,10V,20V"])
     with SweepStore(tmp_path / STORE_NAME) as st:
         sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)
-        run_sweep(plan, st, sid, workers=2)
+        run_sweep(plan, st, sid, workers=2, wave_dir=tmp_path / "waves")
         rows = list(st.rows(sid))
     assert [r["status"] for r in rows] == ["ok"] * 3, [r["error"] for r in rows]
+    # --keep-waveforms: each point's settled waveforms; the supply node sits at that point's Vdd
+    for idx, vdd in enumerate((5.0, 10.0, 20.0)):
+        table = np.genfromtxt(tmp_path / "waves" / f"point_{idx:06d}.csv", delimiter=",", names=True)
+        assert_allclose(np.mean(table["v_vdd_v"]), vdd, rtol=1e-6)
     p = np.array([r["metrics"]["pout_w"] for r in rows])
     eff = np.array([r["metrics"]["drain_efficiency"] for r in rows])
     assert_allclose(p / p[1], [0.25, 1.0, 4.0], rtol=0.02)
@@ -498,3 +518,27 @@ def test_real_sizing_failure_is_recorded(tmp_path):
         rows = list(st.rows(sid))
     assert rows[0]["status"] in ("ok", "not_settled"), rows[0]["error"]
     assert rows[1]["status"] == "failed" and rows[1]["error"].startswith("SizingError")
+
+
+def test_unreachable_cluster_is_a_clear_error(tmp_path):
+    from netgen.errors import NetgenError
+
+    plan = make_plan(BASE, vary=["design.vdd=10V,11V"])
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)
+        with pytest.raises(NetgenError, match=r"^--cluster tcp://127\.0\.0\.1:9: cannot reach the Dask scheduler"):
+            run_sweep(plan, st, sid, cluster="tcp://127.0.0.1:9", evaluator=tuned_b_eval, cluster_timeout_s=1.0)
+        assert st.done_indices(sid) == set()
+
+
+def test_cli_list_prints_points_without_running(tmp_path):
+    design = _design_file(tmp_path)
+    proc = _cli([str(design), "--vary", "design.vdd=10V:12V:3", "--vswr", "2:2", "--list", "-o", str(tmp_path / "l")])
+    stdout, stderr = proc.communicate()
+    assert proc.returncode == 0, stderr
+    lines = stdout.strip().splitlines()
+    assert len(lines) == 6
+    first = json.loads(lines[0].split("\t", 1)[1])
+    # phase 0 on the VSWR-2 circle: Z = 2 RL = 100 ohm (Pozar)
+    assert first["set"] == {"design.vdd": "10 V", "design.load": "100 ohm", "design.load_x": "0 ohm"}
+    assert not (tmp_path / "l").exists()

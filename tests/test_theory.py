@@ -137,3 +137,13 @@ def test_bound_for_topologies():
     assert user["efficiency"] is None
     # works from a Design too
     assert bound_for(replace(_sized("class_e").design))["efficiency"] == 1.0
+
+
+def test_bound_for_user_template_uses_declared_sizing(tmp_path):
+    # a user template declaring class_b_tuned sizing inherits the tuned class-B bound pi/4 (Cripps)
+    tpl = tmp_path / "my_pa.j2"
+    tpl.write_text("{# sizing: class_b_tuned #}\n* my network\n", encoding="utf-8")
+    d = Design(name="t", topology="my_pa.j2", f0_hz=1e9, vdd_v=10.0, source=tmp_path / "pa.toml")
+    b = bound_for(SizedDesign(design=d, ropt_ohm=50.0, components={}))
+    assert_allclose(b["efficiency"], math.pi / 4, rtol=1e-12)
+    assert "user template" in b["name"]
