@@ -35,6 +35,7 @@ def main() -> None:
     plan = make_plan(design.raw, source=design.source,
                      vary=[f"design.vdd={0.8 * vdd:.6g}V:{1.2 * vdd:.6g}V:{args.points}"])
     results = {}
+    load_before = os.getloadavg()
     for workers in (1, 2):
         with tempfile.TemporaryDirectory() as tmp, SweepStore(Path(tmp) / STORE_NAME) as st:
             sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)
@@ -47,9 +48,13 @@ def main() -> None:
         print(f"{workers} worker(s): {plan.n_points} points in {dt:.2f} s = {plan.n_points / dt:.3f} points/s "
               f"({n_ok})", flush=True)
     ratio = results[2]["points_per_s"] / results[1]["points_per_s"]
-    print(f"speed-up with 2 workers: {ratio:.2f}x (target >= 1.8x; cpus: {os.cpu_count()})")
+    load_after = os.getloadavg()
+    print(f"speed-up with 2 workers: {ratio:.2f}x (target >= 1.8x; cpus: {os.cpu_count()}; "
+          f"1-min load average {load_before[0]:.1f} before, {load_after[0]:.1f} after: "
+          "other processes on the machine lower the speed-up)")
     out = {"design": str(path), "cpus": os.cpu_count(), "runs": list(results.values()), "speedup": round(ratio, 3),
-           "target": 1.8, "python": sys.version.split()[0]}
+           "target": 1.8, "python": sys.version.split()[0],
+           "loadavg_before": [round(x, 2) for x in load_before], "loadavg_after": [round(x, 2) for x in load_after]}
     atomic_write_text(Path(__file__).resolve().parent / "sweep.json", json.dumps(out, indent=2) + "\n")
 
 

@@ -121,8 +121,10 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         finally:
             if bar is not None:
                 bar.close()
-        rows = list(store.rows(sid))
-    summary = summarize(rows, spec_list, plan.n_points)
+        summary = summarize(store.rows(sid), spec_list, plan.n_points)  # streamed, one row at a time
+        first_failed = store.con.execute(
+            "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'failed' ORDER BY idx LIMIT 1", (sid,)
+        ).fetchone()
     csv_path = export_csv(out / STORE_NAME, out / "sweep.csv")
     made = {}
     if not no_plots:
@@ -140,12 +142,10 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         click.echo(f"yield {100 * summary['yield']:.1f}% ({summary['passed']}/{summary['stored']}), "
                    f"95% interval {100 * summary['yield_lo']:.1f}%..{100 * summary['yield_hi']:.1f}% "
                    "(Clopper-Pearson; failed and not-settled points count as failing)")
-    for row in rows:
-        if row["status"] == "failed":
-            n_failed = summary["failed"]
-            more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
-            click.echo(f"  point {row['idx']} failed: {row['error'].splitlines()[0]}{more}")
-            break
+    if first_failed:
+        n_failed = summary["failed"]
+        more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
+        click.echo(f"  point {first_failed[0]} failed: {first_failed[1].splitlines()[0]}{more}")
     click.echo(f"wrote {out / STORE_NAME}, {csv_path}" + (f", {len(made)} plots" if made else ""))
 
 

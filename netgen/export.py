@@ -204,6 +204,31 @@ def _without_save(netlist: str) -> str:
     return "".join(line for line in netlist.splitlines(keepends=True) if not line.lstrip().lower().startswith(".save"))
 
 
+def _with_minbreak(netlist: str) -> str:
+    """Add ``.options minbreak=<TMAX/100>`` before ``.tran`` when the circuit has a T line.
+
+    Measured in ngspice 39 (NGSPICE_NOTES.md): a lossless T line in a switching
+    circuit makes the step collapse after a few hundred periods unless near-coincident
+    breakpoints are merged with ``minbreak`` of about 0.01 TMAX.
+    """
+    lines = netlist.splitlines(keepends=True)
+    has_line = any(ln[:1].upper() == "T" for ln in lines)
+    has_option = any(ln.lower().startswith(".options") and "minbreak" in ln.lower() for ln in lines)
+    if not has_line or has_option:
+        return netlist
+    from .analysis import parse_spice_number
+
+    out = []
+    for ln in lines:
+        words = ln.split()
+        if words and words[0].lower() == ".tran":
+            rest = [w for w in words[1:] if w.lower() != "uic"]
+            tmax = parse_spice_number(rest[3]) if len(rest) > 3 else parse_spice_number(rest[0])
+            out.append(f".options minbreak={0.01 * tmax:.6g}\n")
+        out.append(ln)
+    return "".join(out)
+
+
 def _tran_settings(netlist: str) -> dict:
     for line in netlist.splitlines():
         words = line.split()
@@ -255,14 +280,20 @@ def _waveforms_csv(wf) -> str:
     return buf.getvalue()
 
 
-def _safe_replace(tmp: Path, target: Path) -> None:
-    """Move the finished pack into place; an existing target must be a pack or empty."""
+def _check_target(target: Path) -> None:
+    """An existing target must be a folder that is empty or an earlier pack."""
     if target.exists():
         if not target.is_dir():
             raise OutputError(f"{target}: exists and is not a folder; choose another pack folder with -o.")
         if any(target.iterdir()) and not (target / MANIFEST).is_file():
             raise OutputError(f"{target}: exists and is not a netgen pack (no {MANIFEST}); "
                               "choose an empty or new folder with -o so nothing of yours is replaced.")
+
+
+def _safe_replace(tmp: Path, target: Path) -> None:
+    """Move the finished pack into place; an existing target must be a pack or empty."""
+    if target.exists():
+        _check_target(target)
         old = target.with_name(f".{target.name}.old-{os.getpid()}")
         os.replace(target, old)
         try:
@@ -312,6 +343,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     from .render import render
 
     outdir = Path(outdir)
+    _check_target(outdir)  # before any simulation
     backend = backend or design.sim.backend
     if result is None:
         result = run_design(design, None, plots=False)
@@ -325,7 +357,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     verify_note = ""
     while True:
         tstop = cycles * period
-        portable = _without_save(render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic))
+        portable = _with_minbreak(_without_save(render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic)))
         problems = check_portable(portable)
         if problems:
             raise RenderError("The portable netlist is not portable (a template problem):\n" + format_problems(problems))
@@ -484,7 +516,9 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         lines.append(f"| harmonic {h['n']}: level, Z at drain | {_fmt(h.get('pload_dbc'))} dBc, {z} |")
     lines += [
         "",
-        "A run that agrees within 0.5 % on Pdc, Pout and efficiency reproduces the design.",
+        "A run that agrees within 0.5 % on Pdc, Pout and efficiency reproduces the design. The peak drain "
+        "voltage is the maximum of sampled points on a switching spike; expect a few per cent from time-step "
+        "placement.",
         verify_note or "The portable netlist was not re-run at export (--no-verify).",
         "",
         "Network impedance at the harmonics (from the Touchstone data):",

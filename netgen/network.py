@@ -61,8 +61,11 @@ def line_plan(sized: SizedDesign, base: str) -> dict:
     """How line ``base`` is built: ``{z0, td_seg, k, r_seg, r_total}``.
 
     A lossy line (network.line_loss > 0 dB) is k = 8 lossless segments of TD/k with k-1
-    resistors R_total/(k-1) between them. R_total = 2 Z0 ln(10^(dB/20)): the attenuation of a
-    low-loss line is alpha = R'/(2 Z0) Np per length (Pozar, lossy transmission lines).
+    equal series resistors between them. A series R between matched Z0 lines passes
+    |S21| = 1/(1 + R/(2 Z0)) (Pozar, ABCD -> S conversion), so each resistor is
+    R = 2 Z0 (10^(dB/(20 (k-1))) - 1) and the matched line loses line_loss dB at f0
+    (to within the small mismatch between the lumps; for low loss this is the distributed
+    alpha = R'/(2 Z0) of Pozar, lossy transmission lines).
     """
     z0 = sized.value(f"{base}_z0")
     td = sized.value(f"{base}_td")
@@ -70,8 +73,8 @@ def line_plan(sized: SizedDesign, base: str) -> dict:
     if db <= 0:
         return {"z0": z0, "td_seg": td, "k": 1, "r_seg": 0.0, "r_total": 0.0}
     k = LINE_SEGMENTS_LOSSY
-    r_total = 2.0 * z0 * math.log(10 ** (db / 20.0))
-    return {"z0": z0, "td_seg": td / k, "k": k, "r_seg": r_total / (k - 1), "r_total": r_total}
+    r_seg = 2.0 * z0 * (10 ** (db / (20.0 * (k - 1))) - 1.0)
+    return {"z0": z0, "td_seg": td / k, "k": k, "r_seg": r_seg, "r_total": r_seg * (k - 1)}
 
 
 def tail_plan(sized: SizedDesign) -> list[tuple[str, str]]:

@@ -10,6 +10,7 @@ documented in docs/template_context.md; the portable dialect in docs/portable_di
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 from fractions import Fraction
@@ -51,7 +52,9 @@ def _fmt(value) -> str:
     return "{:.10g}".format(x)
 
 
+@functools.lru_cache(maxsize=1)
 def _environment() -> SandboxedEnvironment:
+    """The shared sandboxed environment (built once per process; templates are cached)."""
     env = SandboxedEnvironment(
         loader=jinja2.FileSystemLoader(str(template_dir())),
         undefined=jinja2.StrictUndefined,

@@ -27,9 +27,9 @@ constant VSWR S around the nominal load RL:
 ratio), written to ``design.load`` (real part) and ``design.load_x`` (imaginary
 part).
 
-Tolerances (``--tolerance "C*=5%"``): patterns match the netlist element name
-(kind letter + ``_`` + name: ``C_tank``, ``L_feed``, ``Z0_line``) or the
-component name (``tank_l``). ``normal``: the percentage is three standard
+Tolerances (``--tolerance "C*=5%"``): shell-style patterns match a component's
+kind-prefixed name (``C_tank``, ``L_feed``, ``Z0_line``, ``TD_line``), its
+netlist element name (``T_line``) or its sizing name (``tank_l``). ``normal``: the percentage is three standard
 deviations; ``uniform``: +/- the percentage. Factors come from
 ``numpy.random.default_rng(seed)`` drawn once, in the planning process.
 """
@@ -162,6 +162,8 @@ def parse_vary(text: str) -> Variation:
     if not spec:
         raise DesignError(f"{path}: --vary has no values after '='.")
     unit = key.unit if key is not None else None
+    if unit in ("values", "pins"):
+        raise DesignError(f"{path}: cannot be varied as a whole; vary one component, e.g. network.values.tank_l=2nH:3nH:3.")
     if ":" in spec:
         parts = [p.strip() for p in spec.split(":")]
         log = len(parts) == 4 and parts[3].lower() == "log"
@@ -173,7 +175,7 @@ def parse_vary(text: str) -> Variation:
             raise DesignError(f"{path}: the point count {parts[2]!r} in {spec!r} is not a whole number.") from None
         if n < 2:
             raise DesignError(f"{path}: a range needs at least 2 points (got {n}); give a single value as a list.")
-        if unit in ("str", "bool", "values", "pins"):
+        if unit in ("str", "bool"):
             raise DesignError(f"{path}: a text key cannot take a range; list the values, e.g. {path}=a,b.")
         if unit is None:  # component override: unit from the text, must agree
             (a, ua), (b, ub) = _split_quantity(parts[0], path), _split_quantity(parts[1], path)
@@ -279,13 +281,25 @@ def parse_vswr(text: str, rl_ohm: float) -> Variation:
 
 @dataclass(frozen=True)
 class Tolerance:
-    """``pattern=pct%``: components whose element name (``C_tank``) or name (``tank_c``) match."""
+    """``pattern=pct%``: components whose kind-prefixed name (``C_tank``), element name or name (``tank_c``) match."""
 
     pattern: str
     fraction: float
 
     def matches(self, name: str, kind: str) -> bool:
-        return fnmatch.fnmatchcase(f"{kind}_{name}", self.pattern) or fnmatch.fnmatchcase(name, self.pattern)
+        return any(fnmatch.fnmatchcase(form, self.pattern) for form in _name_forms(name, kind))
+
+
+def _name_forms(name: str, kind: str) -> set[str]:
+    """The names a tolerance pattern may use for a component: ``tank_l``, ``L_tank`` (kind + base),
+    and the netlist element name (``T_line`` for ``line_z0`` and ``line_td``)."""
+    base, _, suffix = name.rpartition("_")
+    base = base or name
+    forms = {name, f"{kind}_{base}"}
+    element = {"l": "L", "c": "C", "z0": "T", "td": "T"}.get(suffix)
+    if element:
+        forms.add(f"{element}_{base}")
+    return forms
 
 
 def parse_tolerance(text: str) -> Tolerance:
@@ -673,7 +687,8 @@ def run_sweep(
     sweep_id : int
         From ``store.open_sweep``.
     workers : int, optional
-        Local worker processes (default ``os.cpu_count()``); ignored with ``cluster``.
+        Local worker processes (default ``os.cpu_count()``); ignored with
+        ``cluster``. With 1 the points run one after another in this process.
     cluster : str, optional
         Address of a Dask distributed scheduler (``tcp://host:port``); the
         workers there must have netgen installed.
@@ -718,7 +733,11 @@ def run_sweep(
         _run_dask(cluster, todo, task, finish, cluster_timeout_s)
     else:
         n = max(1, int(workers or os.cpu_count() or 1))
-        _run_local(n, todo, task, finish)
+        if n == 1:  # in this process: no pool to start (the engine still runs ngspice in its own process)
+            for idx in todo:
+                finish(run_point(*task(idx)))
+        else:
+            _run_local(n, todo, task, finish)
     return counts
 
 

@@ -161,3 +161,76 @@ def test_check_command_user_error_exit_2(tmp_path):
     assert "Error: " in out.output and "no golden file b.expect.json" in out.output
     out = CliRunner().invoke(check_command, [str(tmp_path)])
     assert out.exit_code == 2 and "no design with a golden file" in out.output
+
+
+# ---------------------------------------------------------------- with the real pipeline
+
+
+def _design_folder(tmp_path: Path) -> tuple[Path, str]:
+    """sims/class_f_line.toml and its golden copied, plus a copy with line_z0 raised 5 %."""
+    from netgen.design import load_design
+    from netgen.sizing import size
+
+    folder = tmp_path / "designs"
+    folder.mkdir()
+    src = SIMS / "class_f_line.toml"
+    shutil.copy(src, folder / "ref.toml")
+    shutil.copy(regress.golden_path(src), folder / "ref.expect.json")
+    z0 = size(load_design(src)).value("line_z0")
+    text = src.read_text(encoding="utf-8") + f'\n[network.values]\nline_z0 = "{1.05 * z0:.6g} ohm"\n'
+    (folder / "bumped.toml").write_text(text, encoding="utf-8")
+    shutil.copy(regress.golden_path(src), folder / "bumped.expect.json")
+    return folder, f"{1.05 * z0:.6g}"
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_five_percent_component_change_fails_check_and_names_the_metric(tmp_path):
+    from netgen.cli_check import check_command
+
+    folder, _ = _design_folder(tmp_path)
+    out = CliRunner().invoke(check_command, [str(folder), "-j", "1"])
+    assert out.exit_code == 1, out.output
+    blocks = {b.splitlines()[0]: b for b in out.output.split("\n\n") if b.strip()}
+    ref = next(b for h, b in blocks.items() if h.endswith("ref.toml"))
+    bumped = next(b for h, b in blocks.items() if h.endswith("bumped.toml"))
+    assert ref.startswith("PASS")
+    assert bumped.startswith("FAIL") and "sized design changed since the golden" in bumped
+    # a quarter-wave line presents Z0^2/RL (Pozar): +5 % Z0 is +10 % Ropt, so Pout drops ~9 % (Raab: Pout ~ 1/Ropt)
+    pout_line = next(line for line in bumped.splitlines() if line.strip().startswith("pout_w"))
+    assert pout_line.rstrip().endswith("FAIL")
+    assert "1 of 2 designs pass; failed: bumped.toml" in out.output
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_pytest_plugin_runs_a_design_folder(pytester, tmp_path):
+    folder, _ = _design_folder(tmp_path)
+    result = pytester.runpytest(f"--netgen-designs={folder}", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1, failed=1)
+    result.stdout.fnmatch_lines(["*FAIL*bumped.toml*", "*pout_w*FAIL*"])
+    # without the option the plugin collects nothing
+    result = pytester.runpytest(str(folder), "-p", "no:cacheprovider")
+    result.assert_outcomes()
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_all_sims_designs_pass_check():
+    results = regress.check_designs([SIMS], jobs=2)
+    assert len(results) >= 6
+    bad = [regress.format_result(r, only_failures=True) for r in results if not r.ok]
+    assert not bad, "\n\n".join(bad)
+
+
+def test_diff_no_run_lists_component_changes(tmp_path):
+    # sizing is pure Python (no simulator): the overridden line Z0 shows +5 %, the rest 0 %
+    folder, value = _design_folder(tmp_path)
+    diff = regress.diff_designs(str(folder / "ref.toml"), str(folder / "bumped.toml"), run=False)
+    rows = {c.name: c for c in diff.components}
+    assert rows["line_z0"].change_pct == pytest.approx(5.0, abs=1e-3)
+    assert rows["line_z0"].b == pytest.approx(float(value))
+    others = [c for c in diff.components if c.name != "line_z0"]
+    assert others and all(abs(c.change_pct or 0.0) < 1e-9 for c in others)
+    text = regress.format_diff(diff, changed_only=True)
+    assert "line_z0" in text and "+5.00%" in text

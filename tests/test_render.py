@@ -68,9 +68,12 @@ def test_examples_tran_runs_in_ngspice(path, tmp_path):
 
 
 @pytest.mark.ngspice
-def test_portable_dialect_runs_in_ngspice(tmp_path):
-    s = size(load_design(SIMS / "class_f_feed.toml"))
-    text = render(s, "tran", "portable", tstop_s=10 / 2.4e9)
+@pytest.mark.parametrize("stem", ["class_e", "class_b_tuned"])
+def test_portable_dialect_runs_in_ngspice(stem, tmp_path):
+    # Line topologies are left out on purpose: without minbreak (not portable) ngspice 39 can
+    # stall on T lines in switching circuits (NGSPICE_NOTES.md); docs/portable_dialect.md says so.
+    d = load_design(SIMS / f"{stem}.toml")
+    text = render(size(d), "tran", "portable", tstop_s=10 * d.period_s)
     proc = run_ngspice(text, tmp_path)
     assert ngspice_ok(proc), proc.stdout[-2000:]
 
@@ -132,14 +135,15 @@ def test_loss_elements_values():
 
 
 def test_lossy_line_segments():
-    # R_total = 2 Z0 ln(10^(dB/20)) split into 7 resistors between 8 segments (network.line_plan)
+    # 7 equal resistors between 8 segments, each passing |S21| = 1/(1 + R/(2 Z0)) (Pozar), so
+    # together 0.2 dB: R = 2 Z0 (10^(0.2/(20*7)) - 1) (network.line_plan)
     s = size(make(network={"line_loss": "0.2 dB"}))
     text = render(s)
     segs = re.findall(r"^T_line_(\d) ", text, re.M)
     assert segs == [str(i) for i in range(1, 9)]
     rs = [r for n, a, b, r in loss_elements(text) if n.startswith("RLOSS_line_")]
     assert len(rs) == 7
-    assert_allclose(sum(rs), 2 * s.value("line_z0") * math.log(10 ** (0.2 / 20)), rtol=1e-8)
+    assert_allclose(rs, [2 * s.value("line_z0") * (10 ** (0.2 / 140) - 1)] * 7, rtol=1e-8)
 
 
 def test_portable_dialect_subset():

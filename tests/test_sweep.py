@@ -124,6 +124,9 @@ def test_vary_unit_mismatch_names_the_key():
     ("design.vdd=20V:28V", r"design\.vdd: range '20V:28V' must be START:STOP:N"),
     ("network.feed_l=0nH:1uH:3:log", r"network\.feed_l: log spacing needs positive start and stop"),
     ("design.vdd", r"--vary 'design\.vdd': write PATH=START:STOP:N"),
+    ("network.values=1,2", r"network\.values: cannot be varied as a whole"),
+    ("design.topology=a:b:3", r"design\.topology: a text key cannot take a range"),
+    ("network.values.tank_l=1nH:3pF:3", r"network\.values\.tank_l: start '1nH' and stop '3pF' need the same unit"),
 ])
 def test_vary_errors(text, message):
     with pytest.raises(DesignError, match=message):
@@ -166,7 +169,11 @@ def test_tolerance_patterns():
     assert parse_tolerance("C*=5%").matches("tank_c", "C")
     assert not parse_tolerance("C*=5%").matches("tank_l", "L")
     assert parse_tolerance("tank_l=1%").matches("tank_l", "L")
-    assert parse_tolerance("Z0*=3%").matches("line", "Z0")
+    assert parse_tolerance("Z0*=3%").matches("line_z0", "Z0")
+    assert not parse_tolerance("Z0*=3%").matches("line_td", "TD")
+    assert parse_tolerance("L_tank=1%").matches("tank_l", "L")
+    assert not parse_tolerance("C_tank=1%").matches("tank_l", "L")
+    assert parse_tolerance("T_line=1%").matches("line_td", "TD")  # the netlist element name
     with pytest.raises(DesignError, match="with a % sign"):
         parse_tolerance("C*=5")
     with pytest.raises(DesignError, match=r"'Q\*': matches no component; the components are L_feed"):
@@ -291,7 +298,7 @@ def test_monte_carlo_metrics_do_not_depend_on_worker_count(tmp_path):
     kw = dict(tolerance=["C*=5%", "L*=2%"], samples=6, seed=11)
     _, _, one = _run(tmp_path / "a", tuned_b_eval, workers=1, **kw)
     _, _, two = _run(tmp_path / "b", tuned_b_eval, workers=2, **kw)
-    _, _, other = _run(tmp_path / "c", tuned_b_eval, workers=2, tolerance=kw["tolerance"], samples=6, seed=12)
+    _, _, other = _run(tmp_path / "c", tuned_b_eval, workers=1, tolerance=kw["tolerance"], samples=6, seed=12)
     assert [(r["inputs"], r["metrics"]) for r in one] == [(r["inputs"], r["metrics"]) for r in two]
     assert [r["metrics"]["drain_efficiency"] for r in one] != [r["metrics"]["drain_efficiency"] for r in other]
     # the overrides written are the nominal sized value times the factor
@@ -305,7 +312,7 @@ def test_monte_carlo_metrics_do_not_depend_on_worker_count(tmp_path):
 def test_grid_plot_data_equal_the_database(tmp_path):
     from netgen.sweep_plots import grid_data, plot_sweep
 
-    plan, _, rows = _run(tmp_path, tuned_b_eval, vary=["design.vdd=10V:14V:3", "design.ropt=80ohm,100ohm"])
+    plan, _, rows = _run(tmp_path, tuned_b_eval, workers=1, vary=["design.vdd=10V:14V:3", "design.ropt=80ohm,100ohm"])
     xs, ys, z = grid_data(rows, "design.vdd", "design.ropt", "pout_w")
     con = sqlite3.connect(tmp_path / STORE_NAME)
     for idx, pout, inputs in con.execute("SELECT idx, pout_w, inputs FROM points"):
@@ -321,7 +328,7 @@ def test_grid_plot_data_equal_the_database(tmp_path):
 def test_line_and_circle_plot_data_equal_the_database(tmp_path):
     from netgen.sweep_plots import circle_data, line_data, plot_sweep
 
-    plan, _, rows = _run(tmp_path, tuned_b_eval, vswr="3.0:8")
+    plan, _, rows = _run(tmp_path, tuned_b_eval, workers=1, vswr="3.0:8")
     x, y = line_data(rows, "load_phase_deg", "drain_efficiency")
     con = sqlite3.connect(tmp_path / STORE_NAME)
     db = [e for (e,) in con.execute("SELECT drain_efficiency FROM points ORDER BY idx")]
@@ -493,7 +500,7 @@ def test_real_vdd_sweep_power_scales_with_vdd_squared(tmp_path):
 @pytest.mark.ngspice
 @pytest.mark.slow
 def test_real_pipeline_local_and_dask_identical(tmp_path, dask_cluster):
-    plan = make_plan(REAL, tolerance=["C*=5%"], samples=2, seed=1)
+    plan = make_plan(REAL, tolerance=["C*=5%", "Z0*=3%"], samples=2, seed=1)
     got = {}
     for name, kw in (("local", {"workers": 2}), ("dask", {"cluster": dask_cluster})):
         with SweepStore(tmp_path / name / STORE_NAME) as st:
@@ -542,3 +549,14 @@ def test_cli_list_prints_points_without_running(tmp_path):
     # phase 0 on the VSWR-2 circle: Z = 2 RL = 100 ohm (Pozar)
     assert first["set"] == {"design.vdd": "10 V", "design.load": "100 ohm", "design.load_x": "0 ohm"}
     assert not (tmp_path / "l").exists()
+
+
+def test_cli_reports_failures_and_exits_zero(tmp_path):
+    design = _design_file(tmp_path)
+    proc = _cli([str(design), "--vary", "design.vdd=10V:16V:4", "-o", str(tmp_path / "f"), "--workers", "1",
+                 "--quiet", "--no-plots", "--evaluator", "test_sweep:failing_eval"])
+    stdout, stderr = proc.communicate()
+    assert proc.returncode == 0, stderr
+    assert "4 points: 2 ok, 0 not settled, 2 failed (0 already stored, 4 run now)." in stdout
+    assert ("  point 1 failed: SimulationError: ngspice: timestep too small Hint: lower points_per_cycle "
+            "(and 1 more; see the error column of sweep.csv)") in stdout
