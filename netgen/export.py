@@ -204,6 +204,32 @@ def _without_save(netlist: str) -> str:
     return "".join(line for line in netlist.splitlines(keepends=True) if not line.lstrip().lower().startswith(".save"))
 
 
+def _wrap_cards(netlist: str, width: int = 78) -> str:
+    """Split cards longer than the portable width onto ``+`` continuation lines (at spaces)."""
+    out = []
+    for line in netlist.splitlines():
+        if len(line) <= width or line.lstrip().startswith("*"):
+            out.append(line)
+            continue
+        words, cur = [], ""
+        for w in line.split(" "):  # an over-long expression is split after its operators
+            while len(w) > width - 4:
+                cut = max(w.rfind(op, 0, width - 4) for op in "*-+/")
+                if cut <= 0:
+                    break
+                words.append(w[: cut + 1])
+                w = w[cut + 1:]
+            words.append(w)
+        for w in words:
+            if cur and len(cur) + 1 + len(w) > width:
+                out.append(cur)
+                cur = "+ " + w
+            else:
+                cur = f"{cur} {w}" if cur else w
+        out.append(cur)
+    return "\n".join(out) + ("\n" if netlist.endswith("\n") else "")
+
+
 def _with_minbreak(netlist: str) -> str:
     """Add ``.options minbreak=<TMAX/100>`` before ``.tran`` when the circuit has a T line.
 
@@ -357,7 +383,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     verify_note = ""
     while True:
         tstop = cycles * period
-        portable = _with_minbreak(_without_save(render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic)))
+        portable = _wrap_cards(_with_minbreak(_without_save(render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic))))
         problems = check_portable(portable)
         if problems:
             raise RenderError("The portable netlist is not portable (a template problem):\n" + format_problems(problems))

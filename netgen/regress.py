@@ -470,6 +470,8 @@ def _fmt(x: float | None) -> str:
 def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
     """A pass/fail table for one design: metric, golden, new, deviation, tolerance, result."""
     status = "PASS" if r.ok else "FAIL"
+    if r.ok and not r.rows and not r.golden_path.is_file():
+        status = "NEW "
     head = f"{status}  {r.design_path}"
     lines = [head]
     for note in r.notes:

@@ -25,7 +25,7 @@ from .network import line_plan, loss_ohm, tail_plan
 from .records import SizedDesign
 from .sizing import element_name
 
-__all__ = ["render", "loss_elements", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
+__all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
 MODES = ("tran", "ac", "op")
 DIALECTS = ("ngspice", "portable")
@@ -302,6 +302,11 @@ def _finish(text: str, mode: str) -> str:
     lines = [ln for ln in lines if ln]
     if lines and lines[-1].lower() == ".end":
         lines.pop()
+    if mode == "op":
+        floating = dc_islands("\n".join(lines))
+        if floating:
+            lines.append("* DC paths for nodes isolated by capacitors (op mode only; 1e12 ohm changes nothing else)")
+            lines += [f"RDC_{n} {n} 0 1e12" for n in floating]
     if mode == "tran":
         nodes = []
         for _, a, b, _r in loss_elements("\n".join(lines)):
@@ -312,6 +317,56 @@ def _finish(text: str, mode: str) -> str:
             lines.append(".save " + " ".join(f"v({n})" for n in nodes))
     lines.append(".end")
     return "\n".join(lines) + "\n"
+
+
+def dc_islands(netlist_text: str) -> list[str]:
+    """One node of each group of nodes with no DC path to ground (R, L, V and T lines conduct).
+
+    Such an island (e.g. between a DC block and a series capacitor) makes the ``.op`` matrix
+    singular; ngspice's gmin stepping then returns a wrong operating point for the rest of the
+    circuit (measured on class_f_feed), so op mode ties each island to ground with 1e12 ohm.
+    """
+    parent: dict[str, str] = {}
+
+    def find(x: str) -> str:
+        parent.setdefault(x, x)
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    def union(a: str, b: str) -> None:
+        parent[find(a)] = find(b)
+
+    order: list[str] = []
+    for line in netlist_text.splitlines():
+        tok = line.split()
+        if not tok or tok[0][0] in "*.+":
+            continue
+        kind = tok[0][0].upper()
+        nodes = [t.lower() for t in tok[1:5] if "=" not in t]
+        if kind in "RLVCI" and len(nodes) >= 2:
+            nodes = nodes[:2]
+        for n in nodes:
+            if n not in parent:
+                order.append(n)
+            find(n)
+        if kind in "RLV" and len(nodes) >= 2:
+            union(nodes[0], nodes[1])
+        elif kind == "T" and len(nodes) >= 4:
+            union(nodes[0], nodes[2])
+            union(nodes[1], nodes[3])
+        elif kind not in "CI" and len(nodes) >= 2:
+            for n in nodes[1:]:
+                union(nodes[0], n)
+    ground = find("0")
+    seen, out = set(), []
+    for n in order:
+        root = find(n)
+        if root != find(ground) and root not in seen:
+            seen.add(root)
+            out.append(n)
+    return out
 
 
 def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:

@@ -30,7 +30,6 @@ from __future__ import annotations
 import difflib
 import math
 from pathlib import Path
-from typing import Callable
 
 from .design import Design
 from .errors import DesignError, SizingError
@@ -364,11 +363,15 @@ def size_class_e(b: _Builder, r_ohm: float) -> None:
 
 
 def size_class_b_tuned(b: _Builder, ropt: float) -> None:
-    """Tuned-load class B: choke, parallel f0 tank at the drain (loaded Q vs Ropt), block, L-section."""
+    """Tuned-load class B: choke, DC block, parallel f0 tank (loaded Q vs Ropt), L-section.
+
+    The tank sits just after the DC block (reactance Ropt/60 at f0, so it is at the drain
+    for RF) because its inductor to ground would otherwise short the supply.
+    """
     d = b.design
     b.feed(ropt)
-    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
     b.block(ropt)
+    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
     l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
     _load_x(b)
 

@@ -57,7 +57,7 @@ TOPOLOGY_REGISTRY: dict[str, Topology] = {
         Topology("class_e", "class_e.j2", sizing.size_class_e, "E", "class_e",
                  "Class E (Sokal): shunt C, series-tuned load with excess reactance, L-section match."),
         Topology("class_b_tuned", "class_b_tuned.j2", sizing.size_class_b_tuned, "B", "class_b",
-                 "Tuned-load class B: parallel f0 tank at the drain, DC block, L-section match."),
+                 "Tuned-load class B: DC block, parallel f0 tank (at the drain for RF), L-section match."),
     )
 }
 

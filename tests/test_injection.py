@@ -83,7 +83,9 @@ def assert_same_structure(text: str, baseline: str) -> None:
     for line, base in zip(text.split("\n"), baseline.split("\n")):
         low = line.strip().lower()
         assert not low.startswith((".control", ".endc", "shell", "system", "!", ".exec"))
-        if "49" in line and "49" not in base:
+        # (comment lines carry a hex digest that changes with the model file's path, so may
+        # hold '49' by chance; a comment cannot execute anyway)
+        if "49" in line and "49" not in base and not low.startswith("*"):
             raise AssertionError(f"template expression evaluated from a design value: {line!r}")
 
 

@@ -122,7 +122,7 @@ class SkrfModel:
         elif t == "class_e":
             net = feed ** self.shunt1(self.to_gnd("shunt_c")) ** self.ser("series_c") ** self.ser("series_l") ** self.ser("excess_l") ** self.tail()
         elif t == "class_b_tuned":
-            net = feed ** self.shunt1(self.par_to_gnd("tank_l", "tank_c")) ** self.ser("block_c") ** self.tail()
+            net = feed ** self.ser("block_c") ** self.shunt1(self.par_to_gnd("tank_l", "tank_c")) ** self.tail()
         else:
             raise AssertionError(t)
         return net.z[:, 0, 0]

@@ -148,3 +148,36 @@ def test_pyspice_read_check_can_fail():
     # the helper notices a card PySpice did not take (a deck whose R card lost its value)
     with pytest.raises(AssertionError):
         pyspice_read_check(GOOD.replace("RLOAD load 0 50", "RLOAD load 0 50\nRBAD"))
+
+
+def _sims_designs():
+    from pathlib import Path
+
+    return sorted((Path(__file__).resolve().parents[1] / "sims").glob("*.toml"))
+
+
+@pytest.mark.parametrize("path", _sims_designs(), ids=lambda p: p.stem)
+def test_every_pack_netlist_we_render_is_portable(path):
+    # what `netgen export` puts in a pack: render(dialect="portable") with .save dropped and
+    # minbreak added for lines, long cards wrapped (netgen.export); rendering needs no simulator
+    from netgen.design import load_design
+    from netgen.export import _with_minbreak, _without_save, _wrap_cards
+    from netgen.render import render
+    from netgen.sizing import size
+
+    sized = size(load_design(path))
+    text = _wrap_cards(_with_minbreak(_without_save(render(sized, mode="tran", dialect="portable", tstop_s=20 / sized.design.f0_hz))))
+    assert check_portable(text) == [], format_problems(check_portable(text))
+    pyspice_read_check(text)
+
+
+@pytest.mark.xfail(strict=True, reason="render's portable dialect still emits a .save card (reported to its owner); "
+                                       "remove this mark when it stops")
+def test_render_portable_dialect_itself_is_portable():
+    from netgen.design import load_design
+    from netgen.render import render
+    from netgen.sizing import size
+
+    sized = size(load_design(_sims_designs()[0]))
+    text = render(sized, mode="tran", dialect="portable", tstop_s=20 / sized.design.f0_hz)
+    assert check_portable(text) == [], format_problems(check_portable(text))

@@ -5,7 +5,6 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
@@ -235,3 +234,18 @@ def test_examples_size_and_round_trip(path, tmp_path):
 def test_every_topology_has_an_example():
     stems = {p.stem for p in SIMS.glob("*.toml")}
     assert set(TOPOLOGY_REGISTRY) <= stems and "demo" in stems
+
+
+def test_ron_estimate_against_measured_sanity_circuit():
+    # NGSPICE_NOTES.md sanity circuit (measured there, ngspice 39, S switch Ron = 0.2 ohm, 1 GHz,
+    # Vdd 10 V, Ropt 100 ohm, quarter-wave line): Pdc = 0.8054 W. Our Vdd_eff estimate predicts
+    # Pdc = Vdd Idc_est; it must land within 0.5 % of that measurement. The sized network must
+    # also be the one measured there: 1.59 nH || 15.9 pF tank, ~1 uH choke, ~100 pF block.
+    d = design_from_dict({
+        "design": {"name": "sanity", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V", "ropt": "100 ohm"},
+        "device": {"model": "switch", "ron": "0.2 ohm"},
+    })
+    s = size(d)
+    assert_allclose(10.0 * s.idc_est_a, 0.8054, rtol=5e-3)
+    assert_allclose([s.value("tank_l"), s.value("tank_c")], [1.59e-9, 15.9e-12], rtol=2e-3)
+    assert_allclose(s.value("line_z0"), 70.71, rtol=1e-4)
