@@ -53,7 +53,7 @@ def test_class_e_sokal_values():
     assert_allclose(s.ropt_ohm, r, rtol=1e-6)
     assert_allclose(s.value("shunt_c") + 1e-12, 0.1836 / (w * r), rtol=1e-6)
     assert_allclose(w * s.value("excess_l"), 1.1525 * r, rtol=1e-6)
-    # series resonator at f0 with loaded Q 5 (default): L0 = Q R / omega (Krauss et al., loaded Q)
+    # series resonator at f0 with loaded Q 5 (default): L0 = Q R / omega (common practice: loaded Q of a series RLC)
     assert_allclose(w * s.value("series_l"), 5 * r, rtol=1e-6)
     assert_allclose(1 / (2 * PI * math.sqrt(s.value("series_l") * s.value("series_c"))), 1e9, rtol=1e-12)
 

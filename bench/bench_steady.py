@@ -1,0 +1,334 @@
+"""Time to a trustworthy periodic steady state: netgen's warm start vs a naive cold transient.
+
+Per design (sims/<name>.toml):
+
+* **netgen**: ``netgen.steady.simulate(sized)`` as a user gets it (warm start, automatic stop),
+  wall time (median of ``repeats``), its cycles, and its Pdc / P1 / efficiency.
+* **naive**: the same transient netlist (``netgen.render.render(sized, "tran")``, same step)
+  without initial conditions and without ``uic`` -- a plain ``.tran`` that starts from ngspice's
+  DC operating point -- run long once. Per-cycle Pdc and P1 give the converged reference (mean of
+  the last 10 cycles) and the cycles really needed to stay within 0.1 % of it. The naive time to
+  0.1 % is read from the same long run's wall-clock stamps at that cycle (the run is chunked into
+  ``chunk`` cycles only to take those stamps).
+* **warm oracle**: the transient netlist netgen itself ran (captured from its call of
+  ``netgen.engine.run_transient``, warm-start initial conditions included) run long, to count the
+  cycles the warm start really needs, independent of netgen's stopping rule.
+"""
+
+from __future__ import annotations
+
+import json
+import statistics
+import subprocess
+import sys
+import time
+from contextlib import contextmanager
+
+import numpy as np
+
+try:  # run as a script from bench/ or imported as bench.bench_steady
+    from common import (TOL, CycleStats, cycles_to_tol, load_sized, plain_tran, proc_peak_rss_mb, set_tstop,
+                        tail_change, waveform_powers)
+except ImportError:  # pragma: no cover
+    from bench.common import (TOL, CycleStats, cycles_to_tol, load_sized, plain_tran, proc_peak_rss_mb,
+                              set_tstop, tail_change, waveform_powers)
+
+__all__ = ["warm_up", "netgen_runs", "long_run", "measure_design", "settle_cycles", "overhead", "memory_batch",
+           "chunk_overhead", "line_segments"]
+
+_DIVIDER = """bench divider
+V1 in 0 DC 10
+R1 in out 1k
+R2 out 0 1k
+.op
+.end
+"""
+
+_SMALL_TRAN = """bench overhead probe: RC driven by a pulse
+V1 in 0 PULSE(0 1 0 1n 1n 5n 10n)
+R1 in out 1k
+C1 out 0 1p
+.tran 0.1n 20n
+.end
+"""
+
+
+def warm_up(backend: str = "shared") -> float:
+    """Start the simulator worker (if needed) with a trivial operating point; seconds taken."""
+    from netgen import engine
+
+    t0 = time.monotonic()
+    engine.run_op(_DIVIDER, backend=backend)
+    return time.monotonic() - t0
+
+
+@contextmanager
+def _spy():
+    """Record every ``engine.run_transient`` / ``engine.run_op`` call made inside the block:
+    [(kind, netlist, seconds)]."""
+    from netgen import engine
+
+    calls = []
+    orig_tran, orig_op = engine.run_transient, engine.run_op
+
+    def tran(netlist, *a, **k):
+        t0 = time.monotonic()
+        try:
+            return orig_tran(netlist, *a, **k)
+        finally:
+            calls.append(("tran", netlist, time.monotonic() - t0))
+
+    def op(netlist, *a, **k):
+        t0 = time.monotonic()
+        try:
+            return orig_op(netlist, *a, **k)
+        finally:
+            calls.append(("op", netlist, time.monotonic() - t0))
+
+    engine.run_transient, engine.run_op = tran, op
+    try:
+        yield calls
+    finally:
+        engine.run_transient, engine.run_op = orig_tran, orig_op
+
+
+def netgen_runs(sized, repeats: int = 3) -> dict:
+    """``netgen.steady.simulate(sized)`` ``repeats`` times; wall time, cycles and powers of the last run."""
+    from netgen import steady
+
+    d = sized.design
+    times, calls = [], []
+    wf = None
+    for _ in range(repeats):
+        with _spy() as calls:
+            t0 = time.monotonic()
+            wf = steady.simulate(sized)
+            times.append(time.monotonic() - t0)
+    pdc, p1, pload = waveform_powers(wf, vdd_v=d.vdd_v, rload_ohm=d.load_ohm)
+    trans = [c for c in calls if c[0] == "tran"]
+    return {
+        "seconds_all": [round(t, 3) for t in times],
+        "seconds": statistics.median(times),
+        "cycles": int(wf.cycles),
+        "settled": bool(wf.settled),
+        "note": wf.note,
+        "pdc_w": pdc, "p1_w": p1, "pload_w": pload, "efficiency": p1 / pdc,
+        "engine_calls": [(k, round(s, 3)) for k, _, s in calls],
+        "warm_netlist": trans[-1][1] if trans else None,
+    }
+
+
+def long_run(netlist: str, sized, cycles: int, *, chunk: int = 50, budget_s: float = float("inf")) -> dict:
+    """Run ``netlist`` for ``cycles`` periods, recording per-cycle powers and wall-clock stamps.
+
+    Returns
+    -------
+    dict
+        ``pdc_w``, ``p1_w``, ``pload_w`` (lists, W), ``wall_s``, ``stamps`` [(cycles, seconds since
+        the call)], ``points_per_cycle`` (simulator time points per cycle), ``truncated`` (the
+        wall-time budget ended it early).
+    """
+    from netgen import engine
+
+    d = sized.design
+    T = 1.0 / d.f0_hz
+    net = set_tstop(netlist, cycles * T)
+    t0 = time.monotonic()
+    check = CycleStats(period_s=T, vdd_v=d.vdd_v, rload_ohm=d.load_ohm, budget_s=budget_s, started=t0)
+    res = engine.run_transient(net, save=["load", "vdd#branch"], stop_check=check, chunk_s=chunk * T,
+                               keep_s=2 * T, timeout_s=max(600.0, 3 * budget_s if budget_s < 1e9 else 7200.0))
+    wall = time.monotonic() - t0
+    c = res.checker
+    return {"pdc_w": list(c.pdc_w), "p1_w": list(c.p1_w), "pload_w": list(c.pload_w), "wall_s": wall,
+            "stamps": [(n, s - t0) for n, s in c.stamps], "points_per_cycle": list(c.points_per_cycle),
+            "truncated": len(c.pdc_w) < cycles}
+
+
+def time_at_cycle(run: dict, n: int) -> float:
+    """Wall time (s) the long run took to complete ``n`` cycles (linear between chunk stamps)."""
+    xs = [0] + [c for c, _ in run["stamps"]]
+    ys = [0.0] + [s for _, s in run["stamps"]]
+    return float(np.interp(n, xs, ys))
+
+
+def settle_cycles(run: dict, final: dict | None = None) -> int | None:
+    """Cycles until Pdc and P1 stay within TOL of ``final`` (default: the run's own last 10 cycles)."""
+    return cycles_to_tol({"pdc_w": run["pdc_w"], "p1_w": run["p1_w"]}, TOL, final=final)
+
+
+def _final(run: dict, tail: int = 10) -> dict:
+    return {k: float(np.mean(run[k][-tail:])) for k in ("pdc_w", "p1_w", "pload_w")}
+
+
+def _rel(a: float, b: float) -> float:
+    return (a - b) / b
+
+
+def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repeats: int = 3,
+                   chunk: int = 50, budget_s: float = float("inf"), progress=print) -> dict:
+    """All steady-state numbers of one design (see the module docstring)."""
+    from netgen import engine
+    from netgen.render import render
+
+    d = sized.design
+    T = 1.0 / d.f0_hz
+    out: dict = {"design": name, "topology": d.topology, "f0_hz": d.f0_hz, "points_per_cycle": d.sim.points_per_cycle,
+                 "feed_l_h": sized.components["feed_l"].value if "feed_l" in sized.components else None,
+                 "block_c_f": sized.components["block_c"].value if "block_c" in sized.components else None}
+    engine.shutdown()
+    out["worker_start_s"] = round(warm_up(), 3)
+
+    ng = netgen_runs(sized, repeats)
+    out["netgen"] = {k: v for k, v in ng.items() if k != "warm_netlist"}
+    out["netgen"]["worker_peak_rss_mb"] = proc_peak_rss_mb(engine.worker_pid())
+    progress(f"  {name}: netgen {ng['seconds']:.2f} s, {ng['cycles']} cycles, settled={ng['settled']}")
+
+    cold_net = plain_tran(render(sized, mode="tran", tstop_s=cold_cycles * T))
+    cold = long_run(cold_net, sized, cold_cycles, chunk=chunk, budget_s=budget_s)
+    ref = _final(cold)
+    n_cold = settle_cycles(cold, ref)
+    naive = {
+        "cycles_run": len(cold["pdc_w"]), "wall_s": round(cold["wall_s"], 3), "truncated": cold["truncated"],
+        "s_per_cycle_late": None, "sim_points_per_cycle_late": int(np.median(cold["points_per_cycle"][-20:])),
+        "ref_pdc_w": ref["pdc_w"], "ref_p1_w": ref["p1_w"], "ref_efficiency": ref["p1_w"] / ref["pdc_w"],
+        "ref_tail_change_pdc": tail_change(cold["pdc_w"]), "ref_tail_change_p1": tail_change(cold["p1_w"]),
+        "cycles_to_tol": n_cold,
+        "seconds_to_tol": round(time_at_cycle(cold, n_cold), 3) if n_cold else None,
+        "time_method": "wall-clock stamp of the long run at that cycle (chunks of %d cycles)" % chunk,
+        "worker_peak_rss_mb": proc_peak_rss_mb(engine.worker_pid()),
+    }
+    st = cold["stamps"]
+    if len(st) >= 3:
+        (c_a, s_a), (c_b, s_b) = st[len(st) // 2], st[-1]
+        if c_b > c_a:
+            naive["s_per_cycle_late"] = round((s_b - s_a) / (c_b - c_a), 5)
+    if len(cold["pdc_w"]) >= 400:
+        k = 399
+        naive["at_400"] = {
+            "pdc_err": _rel(cold["pdc_w"][k], ref["pdc_w"]),
+            "p1_err": _rel(cold["p1_w"][k], ref["p1_w"]),
+            "efficiency_err_points": 100 * (cold["p1_w"][k] / cold["pdc_w"][k] - ref["p1_w"] / ref["pdc_w"]),
+            "seconds": round(time_at_cycle(cold, 400), 3),
+        }
+    out["naive"] = naive
+    progress(f"  {name}: naive {naive['cycles_run']} cycles in {naive['wall_s']:.1f} s, 0.1 % after {n_cold} cycles")
+
+    out["netgen"]["pdc_err"] = _rel(ng["pdc_w"], ref["pdc_w"])
+    out["netgen"]["p1_err"] = _rel(ng["p1_w"], ref["p1_w"])
+    out["netgen"]["efficiency_diff_points"] = 100 * (ng["efficiency"] - naive["ref_efficiency"])
+    out["netgen"]["within_tol"] = bool(abs(out["netgen"]["pdc_err"]) <= TOL and abs(out["netgen"]["p1_err"]) <= TOL)
+    out["ratio"] = (naive["seconds_to_tol"] / ng["seconds"]) if naive["seconds_to_tol"] else None
+
+    if ng["warm_netlist"] is not None and warm_cycles > 0:
+        warm = long_run(ng["warm_netlist"], sized, warm_cycles, chunk=chunk, budget_s=budget_s)
+        wfin = _final(warm)
+        out["warm"] = {
+            "cycles_run": len(warm["pdc_w"]), "wall_s": round(warm["wall_s"], 3), "truncated": warm["truncated"],
+            "cycles_to_tol": settle_cycles(warm, wfin),
+            "cycles_to_tol_vs_cold_ref": settle_cycles(warm, ref),
+            "final_vs_cold_ref_pdc": _rel(wfin["pdc_w"], ref["pdc_w"]),
+            "final_vs_cold_ref_p1": _rel(wfin["p1_w"], ref["p1_w"]),
+            "first_cycle_err_pdc": _rel(warm["pdc_w"][0], wfin["pdc_w"]),
+            "first_cycle_err_p1": _rel(warm["p1_w"][0], wfin["p1_w"]),
+            "tail_change_pdc": tail_change(warm["pdc_w"]),
+        }
+        progress(f"  {name}: warm start reaches 0.1 % after {out['warm']['cycles_to_tol']} cycles")
+    else:
+        out["warm"] = {"note": "netgen's transient netlist could not be captured (no engine.run_transient call seen)"}
+    out["cold_first_cycle_err_pdc"] = _rel(cold["pdc_w"][0], ref["pdc_w"])
+    return out
+
+
+def overhead(runs: int = 20) -> dict:
+    """Per-run wall time of a tiny transient (200 points) through the shared library and the batch executable."""
+    from netgen import engine
+
+    out = {"circuit": "RC driven by a pulse, .tran 0.1n 20n", "runs": runs}
+    engine.shutdown()
+    t0 = time.monotonic()
+    engine.run_transient(_SMALL_TRAN, backend="shared")
+    out["shared_first_run_s"] = round(time.monotonic() - t0, 4)
+    for backend in ("shared", "batch"):
+        ts = []
+        for _ in range(runs):
+            t0 = time.monotonic()
+            engine.run_transient(_SMALL_TRAN, backend=backend)
+            ts.append(time.monotonic() - t0)
+        out[f"{backend}_median_s"] = round(statistics.median(ts), 5)
+        out[f"{backend}_min_s"] = round(min(ts), 5)
+        ts = []
+        for _ in range(runs):
+            t0 = time.monotonic()
+            engine.run_op(_DIVIDER, backend=backend)
+            ts.append(time.monotonic() - t0)
+        out[f"{backend}_op_median_s"] = round(statistics.median(ts), 5)
+    return out
+
+
+def chunk_overhead(name: str, cycles: int, chunks=(5, 50)) -> dict:
+    """Cost of stop/resume chunking: the cold netlist run straight vs in chunks of 5 and 50 cycles."""
+    from netgen import engine
+    from netgen.render import render
+
+    sized = load_sized(name)
+    d = sized.design
+    T = 1.0 / d.f0_hz
+    net = plain_tran(render(sized, mode="tran", tstop_s=cycles * T))
+    warm_up()
+    t0 = time.monotonic()
+    engine.run_transient(net, save=["load", "vdd#branch"], keep_s=2 * T)
+    out = {"design": name, "cycles": cycles, "straight_s": round(time.monotonic() - t0, 3)}
+    for ch in chunks:
+        run = long_run(net, sized, cycles, chunk=ch)
+        out[f"chunk{ch}_s"] = round(run["wall_s"], 3)
+    return out
+
+
+def line_segments(cycles: int) -> dict:
+    """Demo with its lossy line (8 lossless segments + series R) vs the same design with a lossless
+    single line: simulator time points per cycle and seconds per cycle of a cold run."""
+    import dataclasses
+
+    from netgen.render import render
+    from netgen.sizing import size
+
+    base = load_sized("demo")
+    out = {"cycles": cycles}
+    for label, db in (("lossy_line_8_segments", base.design.network.line_loss_db), ("lossless_single_line", 0.0)):
+        design = dataclasses.replace(base.design, network=dataclasses.replace(base.design.network, line_loss_db=db))
+        sized = size(design)
+        T = 1.0 / design.f0_hz
+        run = long_run(plain_tran(render(sized, mode="tran", tstop_s=cycles * T)), sized, cycles, chunk=25)
+        late = run["points_per_cycle"][-10:]
+        out[label] = {"s_per_cycle": round(run["wall_s"] / cycles, 5),
+                      "sim_points_per_cycle_first": run["points_per_cycle"][0],
+                      "sim_points_per_cycle_last10": int(np.median(late))}
+    return out
+
+
+_MEM_CHILD = """
+import json, resource, sys, time
+sys.path.insert(0, {bench!r})
+from common import load_sized
+from netgen import steady
+sized = load_sized({name!r})
+t0 = time.monotonic()
+wf = steady.simulate(sized, backend="batch")
+print(json.dumps({{"seconds": time.monotonic() - t0, "cycles": wf.cycles,
+    "children_maxrss_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0,
+    "self_maxrss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}}))
+"""
+
+
+def memory_batch(name: str) -> dict:
+    """Peak RSS of the ngspice executable for one netgen run on the batch path, measured in a fresh
+    Python process with ``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` (the largest child)."""
+    from pathlib import Path
+
+    code = _MEM_CHILD.format(bench=str(Path(__file__).resolve().parent), name=name)
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=3600)
+    if proc.returncode != 0:
+        return {"design": name, "error": proc.stderr.strip().splitlines()[-1:] or ["failed"]}
+    res = json.loads(proc.stdout.strip().splitlines()[-1])
+    res["design"] = name
+    return res
