@@ -130,6 +130,11 @@ class Waveforms:
         value per simulated cycle.
     note : str
         Why it did not settle, or how it settled.
+    peaks : dict[str, float]
+        Extremes over the settled window taken from the simulator's own time
+        points (not the resampled grid, which can step over a narrow switching
+        spike): ``vd_max_v``, ``vd_min_v``, ``id_max_a``, ``id_min_a``. Empty
+        when not available.
     """
 
     f0_hz: float
@@ -140,3 +145,4 @@ class Waveforms:
     cycles: int
     history: dict = field(default_factory=dict)
     note: str = ""
+    peaks: dict = field(default_factory=dict)
