@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from .engine import (EXECUTABLE_ENV, MAX_COMMAND_CHARS, _SENTINEL, _executable, _fail, _looks_failed,
-                     _save_spelling, _tran_stop, canonical_name)
+                     _save_spelling, _short_run, _tran_stop, canonical_name)
 from .errors import SimulationError, SimulatorNotFoundError
 from .rawfile import read_raw
 
@@ -115,9 +115,19 @@ class _BatchSession:
         if save:
             self.send(["save " + " ".join(_save_spelling(n) for n in save)])
 
-    def result(self, name="out.raw", start: int = 0) -> dict:
+    def result(self, what: str, start: int = 0, name: str = "out.raw") -> dict:
+        """Vectors of the current plot (from point ``start`` on), read back through a raw file.
+
+        When ngspice writes no usable file, the error carries ngspice's log and its diagnosis
+        (``what`` names the analysis), not only the missing file.
+        """
+        path = Path(self.dir.name) / name
+        path.unlink(missing_ok=True)
         self.send([f"write {name}"])
-        plots = read_raw(Path(self.dir.name) / name)
+        try:
+            plots = read_raw(path)
+        except SimulationError:
+            raise _fail(what, "\n".join(self.log), "ngspice wrote no result; see its messages in the log") from None
         plot = plots[-1]
         out = {}
         for raw_name in plot.names:
@@ -135,13 +145,13 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
             text = sess.send(["op"])
             if _looks_failed(text) and "successfully" not in text.lower():
                 raise _fail("operating point", "\n".join(sess.log))
-            vecs = sess.result()
+            vecs = sess.result("operating point")
             return {"vectors": {k: float(np.real(v[0])) for k, v in vecs.items()}, "log": "\n".join(sess.log)}
         if kind == "ac":
             text = sess.send(["run"])
             if _looks_failed(text):
                 raise _fail("AC analysis", "\n".join(sess.log))
-            vecs = sess.result()
+            vecs = sess.result("AC analysis")
             if "frequency" not in vecs:
                 raise _fail("AC analysis", "\n".join(sess.log))
             vecs["frequency"] = np.real(vecs["frequency"]).astype(np.float64)
@@ -152,10 +162,12 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
         stopped = False
         if not chunk:
             text = sess.send(["run"])
-            vecs = sess.result()
-            t = vecs.get("time")
-            if t is None or t[-1] < tstop * (1 - 1e-9) or _looks_failed(text):
+            if _looks_failed(text):
                 raise _fail("transient analysis", "\n".join(sess.log))
+            vecs = sess.result("transient analysis")
+            t = vecs.get("time")
+            if t is None or not t.size or t[-1] < tstop * (1 - 1e-9):
+                raise _short_run(float(t[-1]) if t is not None and t.size else None, tstop, "\n".join(sess.log))
         else:
             t_next, started, last = chunk, False, 0
             while True:
@@ -167,15 +179,15 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
                 text = sess.send(cmds)
                 if _looks_failed(text):
                     raise _fail("transient analysis", "\n".join(sess.log))
-                part = sess.result(start=max(last - 1, 0))
+                part = sess.result("transient analysis", start=max(last - 1, 0))
                 tp = part.get("time")
                 if tp is None or not tp.size:
-                    raise _fail("transient analysis", "\n".join(sess.log))
+                    raise _short_run(None, tstop, "\n".join(sess.log))
                 last = max(last - 1, 0) + tp.size
                 t_end = float(tp[-1])
                 done = t_end >= tstop * (1 - 1e-9)
                 if not done and t_end < t_next * (1 - 1e-9):
-                    raise _fail("transient analysis", "\n".join(sess.log))
+                    raise _short_run(t_end, tstop, "\n".join(sess.log))
                 if check is not None:
                     verdict = check(t_end, part)
                     message = None
@@ -191,7 +203,7 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
                 if done:
                     break
                 t_next += chunk
-            vecs = sess.result()
+            vecs = sess.result("transient analysis")
         keep = opts.get("keep_s")
         if keep:
             t = vecs["time"]

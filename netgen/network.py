@@ -165,10 +165,19 @@ def z_in(abcd: np.ndarray, zl: complex | np.ndarray) -> np.ndarray:
 # ---------------------------------------------------------------- per topology
 
 def _parallel(sized, names, w):
+    """Admittance of components in parallel, S.
+
+    A lossless tank exactly at resonance sums to zero; the result is floored at 1e-15 of the
+    branch admittances (an open to 15 digits) so that a series tank stays a finite ABCD entry.
+    """
     y = np.zeros(w.shape, dtype=complex)
+    scale = np.zeros(w.shape)
     for n in names:
-        y = y + 1.0 / _z_elem(sized, n, w)
-    return y
+        yi = 1.0 / _z_elem(sized, n, w)
+        y = y + yi
+        scale = scale + np.abs(yi)
+    floor = 1e-15 * scale
+    return np.where(np.abs(y) < floor, floor, y)
 
 
 def _feed(sized, w):

@@ -228,16 +228,18 @@ def _include(sized: SizedDesign, dialect: str) -> dict:
     text_path = str(path)
     if any(ch in text_path for ch in "\"\n\r\x00;") or not path.is_file():
         raise RenderError(f"device.include: '{path.name}' is not a readable model file with a plain path; move it to a simple path.")
-    if dialect == "ngspice":
-        return {"include_path": text_path, "include_text": ""}
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise RenderError(f"device.include: cannot read '{path.name}' ({exc}); check the file.") from None
     for line in text.splitlines():
-        word = line.strip().lower().split(" ")[0] if line.strip() else ""
-        if word in (".control", ".endc", ".end", ".include", ".lib"):
-            raise RenderError(f"device.include: '{path.name}' contains '{word}'; the portable dialect inlines the model file, so it may hold only models and subcircuits.")
+        word = line.strip().lower().split()[0] if line.strip() else ""
+        # ngspice runs .control blocks of included files (a route to the shell); the portable
+        # dialect inlines the file, so nested includes and .end would break it too
+        if word in (".control", ".endc", ".end", ".include", ".lib", ".inc"):
+            raise RenderError(f"device.include: '{path.name}' contains '{word}'; a model file may hold only models and subcircuits.")
+    if dialect == "ngspice":
+        return {"include_path": text_path, "include_text": ""}
     return {"include_path": "", "include_text": text.rstrip("\n")}
 
 
@@ -293,6 +295,11 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
         raise RenderError(f"template for {d.topology}: syntax error at line {exc.lineno}: {exc.message}.") from None
     except jinja2.TemplateError as exc:
         raise RenderError(f"template for {d.topology}: {exc}.") from None
+    except RenderError:
+        raise
+    except (TypeError, ValueError, OverflowError, ZeroDivisionError, ArithmeticError, LookupError,
+            AttributeError, RecursionError) as exc:
+        raise RenderError(f"template for {d.topology}: {type(exc).__name__}: {exc}; fix the template expression.") from None
     return _finish(text, mode)
 
 

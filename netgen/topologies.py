@@ -101,9 +101,13 @@ def resolve_topology(design: Design) -> Topology:
     """The registry entry whose sizing ``design`` uses (a user template names one)."""
     if design.topology in TOPOLOGY_REGISTRY:
         return TOPOLOGY_REGISTRY[design.topology]
-    path = design.template_path
-    if path is None or not path.is_file():
-        raise DesignError(f"design.topology: template file '{design.topology}' not found next to the design; check the path.")
+    try:
+        path = design.template_path
+        found = path is not None and path.is_file()
+    except (OSError, ValueError):  # e.g. a name too long for the file system
+        found = False
+    if not found:
+        raise DesignError("design.topology: the template file named there was not found next to the design; check the path.")
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:

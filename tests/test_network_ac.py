@@ -278,3 +278,17 @@ def test_lossy_line_attenuation():
         a, b, c, dd = abcd_drain_to_load(s, [1e9])[0].ravel()
         s21 = 2 / (a + b / 50 + c * 50 + dd)
         assert_allclose(-20 * np.log10(abs(s21)), db, rtol=0.02)
+
+
+@pytest.mark.parametrize("topology", list(TOPOLOGY_REGISTRY))
+def test_port_matrix_reciprocal_and_consistent(topology):
+    # A passive network of R, L, C and lines is reciprocal: Z12 = Z21 (Pozar, reciprocal
+    # networks); terminating port 2 in RL gives Zin = Z11 - Z12 Z21/(Z22 + RL) = z_drain.
+    from netgen.network import z_port_matrix
+
+    s = example(topology)
+    f = HARM * s.design.f0_hz
+    z = z_port_matrix(s, f)
+    assert_allclose(z[:, 0, 1], z[:, 1, 0], rtol=1e-9)
+    rl = s.design.load_ohm
+    assert_allclose(z[:, 0, 0] - z[:, 0, 1] * z[:, 1, 0] / (z[:, 1, 1] + rl), z_drain(s, f), rtol=1e-9)

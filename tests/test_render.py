@@ -176,8 +176,9 @@ def test_spice_device(tmp_path):
     port = render(s, dialect="portable")
     assert ".include" not in port and str(tmp_path) not in port and "G1 d s g s 0.5" in port
     model.write_text(".control\nshell rm -rf /\n.endc\n")
-    with pytest.raises(RenderError, match=r"^device\.include: 'fet\.lib' contains '\.control'"):
-        render(s, dialect="portable")
+    for dialect in ("portable", "ngspice"):  # ngspice runs .control blocks of included files
+        with pytest.raises(RenderError, match=r"^device\.include: 'fet\.lib' contains '\.control'"):
+            render(s, dialect=dialect)
 
 
 def test_user_template(tmp_path):

@@ -473,7 +473,6 @@ REAL = {
 
 
 @pytest.mark.ngspice
-@pytest.mark.slow
 def test_real_vdd_sweep_power_scales_with_vdd_squared(tmp_path):
     # A switch (resistance switched by time, not by voltage) into a fixed linear network is a linear
     # circuit: every voltage scales with Vdd, so Pout ~ Vdd^2 and the efficiency does not change
@@ -512,7 +511,6 @@ def test_real_pipeline_local_and_dask_identical(tmp_path, dask_cluster):
 
 
 @pytest.mark.ngspice
-@pytest.mark.slow
 def test_real_sizing_failure_is_recorded(tmp_path):
     # class E needs Cout below the shunt C = 0.1836/(omega R) (Sokal & Sokal 1975; here about 0.29 pF
     # at 1 GHz and 100 ohm): 1 pF cannot be realised and that point fails; the other runs.
