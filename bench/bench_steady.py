@@ -27,13 +27,13 @@ from contextlib import contextmanager
 import numpy as np
 
 try:  # run as a script from bench/ or imported as bench.bench_steady
-    from common import (TOL, CycleStats, cycles_to_tol, load_sized, plain_tran, proc_peak_rss_mb, set_tstop,
-                        tail_change, waveform_powers)
+    from common import (TOL, CycleStats, cycles_to_tol, jitter, load_sized, plain_tran, proc_peak_rss_mb,
+                        set_tstop, tail_change, waveform_powers)
 except ImportError:  # pragma: no cover
-    from bench.common import (TOL, CycleStats, cycles_to_tol, load_sized, plain_tran, proc_peak_rss_mb,
+    from bench.common import (TOL, CycleStats, cycles_to_tol, jitter, load_sized, plain_tran, proc_peak_rss_mb,
                               set_tstop, tail_change, waveform_powers)
 
-__all__ = ["warm_up", "netgen_runs", "long_run", "measure_design", "settle_cycles", "overhead", "memory_batch",
+__all__ = ["warm_up", "netgen_runs", "long_run", "measure_design", "settle_cycles", "settle_summary", "overhead", "memory_batch",
            "chunk_overhead", "line_segments"]
 
 _DIVIDER = """bench divider
@@ -141,7 +141,7 @@ def long_run(netlist: str, sized, cycles: int, *, chunk: int = 50, budget_s: flo
     c = res.checker
     return {"pdc_w": list(c.pdc_w), "p1_w": list(c.p1_w), "pload_w": list(c.pload_w), "wall_s": wall,
             "stamps": [(n, s - t0) for n, s in c.stamps], "points_per_cycle": list(c.points_per_cycle),
-            "truncated": len(c.pdc_w) < cycles}
+            "truncated": len(c.pdc_w) < cycles - 1}
 
 
 def time_at_cycle(run: dict, n: int) -> float:
@@ -151,9 +151,26 @@ def time_at_cycle(run: dict, n: int) -> float:
     return float(np.interp(n, xs, ys))
 
 
-def settle_cycles(run: dict, final: dict | None = None) -> int | None:
-    """Cycles until Pdc and P1 stay within TOL of ``final`` (default: the run's own last 10 cycles)."""
-    return cycles_to_tol({"pdc_w": run["pdc_w"], "p1_w": run["p1_w"]}, TOL, final=final)
+#: trailing-mean length used when per-cycle values jitter by more than JITTER_LIMIT * TOL
+SMOOTH_CYCLES = 10
+JITTER_LIMIT = 0.2
+
+
+def settle_cycles(run: dict, final: dict | None = None, smooth: int = 1) -> int | None:
+    """Cycles until Pdc and P1 (or their ``smooth``-cycle trailing means) stay within TOL of ``final``
+    (default: the run's own last 10 cycles)."""
+    return cycles_to_tol({"pdc_w": run["pdc_w"], "p1_w": run["p1_w"]}, TOL, final=final, smooth=smooth)
+
+
+def settle_summary(run: dict, final: dict) -> dict:
+    """Cycles to TOL per cycle and on 10-cycle means, the jitter floor, and which count to trust."""
+    jit = max(jitter(run["pdc_w"]), jitter(run["p1_w"]))
+    raw = settle_cycles(run, final)
+    smoothed = settle_cycles(run, final, SMOOTH_CYCLES)
+    use_smooth = jit > JITTER_LIMIT * TOL
+    return {"cycles_per_cycle": raw, "cycles_10_cycle_mean": smoothed, "jitter_rel": jit,
+            "criterion": f"{SMOOTH_CYCLES}-cycle mean" if use_smooth else "per cycle",
+            "cycles": smoothed if use_smooth else raw}
 
 
 def _final(run: dict, tail: int = 10) -> dict:
@@ -186,13 +203,14 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
     cold_net = plain_tran(render(sized, mode="tran", tstop_s=cold_cycles * T))
     cold = long_run(cold_net, sized, cold_cycles, chunk=chunk, budget_s=budget_s)
     ref = _final(cold)
-    n_cold = settle_cycles(cold, ref)
+    cold_settle = settle_summary(cold, ref)
+    n_cold = cold_settle["cycles"]
     naive = {
         "cycles_run": len(cold["pdc_w"]), "wall_s": round(cold["wall_s"], 3), "truncated": cold["truncated"],
         "s_per_cycle_late": None, "sim_points_per_cycle_late": int(np.median(cold["points_per_cycle"][-20:])),
         "ref_pdc_w": ref["pdc_w"], "ref_p1_w": ref["p1_w"], "ref_efficiency": ref["p1_w"] / ref["pdc_w"],
         "ref_tail_change_pdc": tail_change(cold["pdc_w"]), "ref_tail_change_p1": tail_change(cold["p1_w"]),
-        "cycles_to_tol": n_cold,
+        "cycles_to_tol": n_cold, "settle": cold_settle,
         "seconds_to_tol": round(time_at_cycle(cold, n_cold), 3) if n_cold else None,
         "time_method": "wall-clock stamp of the long run at that cycle (chunks of %d cycles)" % chunk,
         "worker_peak_rss_mb": proc_peak_rss_mb(engine.worker_pid()),
@@ -222,10 +240,12 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
     if ng["warm_netlist"] is not None and warm_cycles > 0:
         warm = long_run(ng["warm_netlist"], sized, warm_cycles, chunk=chunk, budget_s=budget_s)
         wfin = _final(warm)
+        warm_settle = settle_summary(warm, wfin)
+        use = SMOOTH_CYCLES if warm_settle["criterion"] != "per cycle" else 1
         out["warm"] = {
             "cycles_run": len(warm["pdc_w"]), "wall_s": round(warm["wall_s"], 3), "truncated": warm["truncated"],
-            "cycles_to_tol": settle_cycles(warm, wfin),
-            "cycles_to_tol_vs_cold_ref": settle_cycles(warm, ref),
+            "cycles_to_tol": warm_settle["cycles"], "settle": warm_settle,
+            "cycles_to_tol_vs_cold_ref": settle_cycles(warm, ref, use),
             "final_vs_cold_ref_pdc": _rel(wfin["pdc_w"], ref["pdc_w"]),
             "final_vs_cold_ref_p1": _rel(wfin["p1_w"], ref["p1_w"]),
             "first_cycle_err_pdc": _rel(warm["pdc_w"][0], wfin["pdc_w"]),

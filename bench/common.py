@@ -28,7 +28,7 @@ TOPOLOGIES = ("class_f_line", "class_f_feed", "class_f_lumped", "inverse_f_line"
 TOL = 1e-3
 
 __all__ = ["REPO", "SIMS", "TOPOLOGIES", "TOL", "load_sized", "plain_tran", "set_tstop", "cycle_powers",
-           "waveform_powers", "CycleStats", "cycles_to_tol", "tail_change", "machine_info", "proc_peak_rss_mb"]
+           "waveform_powers", "CycleStats", "cycles_to_tol", "jitter", "tail_change", "machine_info", "proc_peak_rss_mb"]
 
 
 def load_sized(name: str, *, feed_scale: float = 1.0, block_scale: float = 1.0):
@@ -161,7 +161,7 @@ class CycleStats:
         return over, f"{len(self.pdc_w)} cycles"
 
 
-def cycles_to_tol(series: dict, tol: float = TOL, final: dict | None = None, tail: int = 10):
+def cycles_to_tol(series: dict, tol: float = TOL, final: dict | None = None, tail: int = 10, smooth: int = 1):
     """Cycles one must simulate before every series stays within ``tol`` (relative) of its final value.
 
     Parameters
@@ -170,23 +170,34 @@ def cycles_to_tol(series: dict, tol: float = TOL, final: dict | None = None, tai
         One value per cycle (W).
     final : dict of name -> float, optional
         The converged values; default the mean of the last ``tail`` cycles of each series.
+    smooth : int
+        Judge the trailing mean of this many cycles instead of single cycles (for circuits whose
+        per-cycle values jitter by about ``tol`` for numerical reasons; see docs/benchmarks.md).
 
     Returns
     -------
     int or None
-        N such that cycles N, N+1, ... (1-based) are all within tolerance; None when the last
-        cycle is still outside it.
+        N such that the values (or trailing means) at cycles N, N+1, ... (1-based) are all within
+        tolerance; None when the last one is still outside it.
     """
-    worst = 1
+    worst = smooth
     for name, values in series.items():
         x = np.asarray(values, dtype=float)
         ref = final[name] if final else float(x[-tail:].mean())
+        if smooth > 1:
+            x = np.convolve(x, np.ones(smooth) / smooth, mode="valid")  # x[j] ends at cycle j + smooth - 1
         bad = np.nonzero(np.abs(x / ref - 1.0) > tol)[0]
         if bad.size:
             if bad[-1] == len(x) - 1:
                 return None
-            worst = max(worst, int(bad[-1]) + 2)
+            worst = max(worst, int(bad[-1]) + smooth + 1)
     return worst
+
+
+def jitter(values, n: int = 100) -> float:
+    """Standard deviation of the last ``n`` values relative to their mean (cycle-to-cycle noise floor)."""
+    x = np.asarray(values, dtype=float)[-n:]
+    return float(x.std() / abs(x.mean()))
 
 
 def tail_change(values, parts: int = 4) -> float:

@@ -372,6 +372,14 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     losses["load_harmonics"] = pload_total - pout  # load power outside the fundamental (n >= 2, DC)
     balance = (pdc - pout - sum(losses.values())) / pdc if pdc > 0 else None
 
+    # extremes from the simulator's own time points when steady.py supplied them (the uniform
+    # grid can step over a narrow switching spike); the grid otherwise
+    peaks = getattr(wf, "peaks", None) or {}
+    vd_max = float(peaks.get("vd_max_v", vd.max()))
+    vd_min = float(peaks.get("vd_min_v", vd.min()))
+    id_max = float(peaks.get("id_max_a", idr.max()))
+    id_min = float(peaks.get("id_min_a", idr.min()))
+
     metrics = {
         "design": {
             "name": design.name,
@@ -392,11 +400,11 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "pin_w": _f(pin),
         "drain_efficiency": _f(eff),
         "pae": _f(pae),
-        "peak_vd_v": _f(vd.max()),
-        "peak_vd_over_vdd": _f(vd.max() / vdd),
-        "min_vd_v": _f(vd.min()),
-        "peak_id_a": _f(idr.max()),
-        "min_id_a": _f(idr.min()),
+        "peak_vd_v": _f(vd_max),
+        "peak_vd_over_vdd": _f(vd_max / vdd),
+        "min_vd_v": _f(vd_min),
+        "peak_id_a": _f(id_max),
+        "min_id_a": _f(id_min),
         "harmonics": table,
         "losses": {k: _f(v) for k, v in losses.items()},
         "loss_balance_error": _f(balance),

@@ -271,8 +271,10 @@ _CAUSES = [
 ]
 _IGNORE = ("no graphics interface", "run simulation interrupted", "pause requested", "x-server is running",
            "compiled properly")
-#: lines that name the failure better than ngspice's closing 'simulation(s) aborted'
-_KEY_LINE = re.compile(r"error|timestep too small|stepping failed|solution failed", re.I)
+#: the line quoted in the message, in order of preference: an error, a collapsed step, ngspice's
+#: closing 'simulation(s) aborted'
+_KEY_LINES = [re.compile(r"error", re.I), re.compile(r"timestep too small|solution failed", re.I),
+              re.compile(r"aborted", re.I)]
 
 
 def _clean(line: str) -> str:
@@ -282,17 +284,19 @@ def _clean(line: str) -> str:
 def diagnose(log: str) -> tuple[str, str]:
     """ngspice's key message in ``log`` and a hint for it (``("", "")`` if nothing is found).
 
-    The message is the first error or 'timestep too small' line (else the 'aborted'
-    line), with the first 'singular matrix' note, which ngspice prints as a warning,
-    appended. The hint follows the most specific cause found: singular matrix, then
+    The message is the first error line (else the first 'timestep too small' line, else
+    the 'aborted' line), with a note that gmin/source stepping failed and the first
+    'singular matrix' note, which ngspice prints as warnings, appended. The hint follows the most specific cause found: singular matrix, then
     a failed operating point (gmin/source stepping), then a collapsed time step during
     the run, then other non-convergence, then undefined names.
     """
     lines = [_clean(ln) for ln in log.splitlines() if ln.strip()]
     lines = [ln for ln in lines if not any(s in ln.lower() for s in _IGNORE)]
-    error = next((ln for ln in lines if _KEY_LINE.search(ln)), "")
-    if not error:
-        error = next((ln for ln in lines if re.search(r"aborted", ln, re.I)), "")
+    error = ""
+    for pattern in _KEY_LINES:
+        error = next((ln for ln in lines if pattern.search(ln)), "")
+        if error:
+            break
     stepping = any(re.search(r"stepping failed", ln, re.I) for ln in lines)
     if stepping and "stepping failed" not in error.lower():
         error = f"{error} (gmin and source stepping failed)" if error else "gmin and source stepping failed"

@@ -46,7 +46,7 @@ from .errors import SimulationError
 from .records import SizedDesign, Waveforms
 
 __all__ = ["simulate", "simulate_netlist", "SettleCheck", "judge", "dc_initial_conditions",
-           "netlist_elements"]
+           "netlist_elements", "window_peaks"]
 
 #: cycles per chunk (ngspice stop/resume); small chunks stop sooner, large ones cost less overhead
 CHUNK_CYCLES = 5
@@ -294,7 +294,44 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
         i["supply"] = -np.interp(grid, t, vecs["vdd#branch"])
     if "vdrive#branch" in vecs:
         i["gate"] = -np.interp(grid, t, vecs["vdrive#branch"])
-    return grid - start, v, i, int(round(end / T))
+    peaks = window_peaks(t, vecs, start, end)
+    return grid - start, v, i, int(round(end / T)), peaks
+
+
+def window_peaks(t: np.ndarray, vecs, start_s: float, end_s: float) -> dict[str, float]:
+    """Extremes of the drain voltage and current over [start_s, end_s] from the simulator's own points.
+
+    The uniform output grid interpolates between ngspice's time points and can step over a
+    switching spike narrower than one grid step; every grid value lies between two
+    simulator points, so these extremes are never smaller than the grid's.
+
+    Parameters
+    ----------
+    t : ndarray
+        ngspice's time points, s (increasing).
+    vecs : mapping
+        ``drain`` (V) and ``vidrain#branch`` (A, into the device's drain) where saved.
+    start_s, end_s : float
+        The window, s; the values interpolated at both ends are included.
+
+    Returns
+    -------
+    dict
+        ``vd_max_v``, ``vd_min_v`` (V), ``id_max_a``, ``id_min_a`` (A); keys whose vector
+        is missing are left out.
+    """
+    t = np.asarray(t, dtype=float)
+    inside = (t >= start_s) & (t <= end_s)
+    peaks: dict[str, float] = {}
+    for name, key, unit in (("drain", "vd", "v"), ("vidrain#branch", "id", "a")):
+        if name not in vecs:
+            continue
+        y = np.asarray(vecs[name], dtype=float)
+        ends = np.interp([start_s, end_s], t, y)
+        values = np.concatenate([y[inside], ends])
+        peaks[f"{key}_max_{unit}"] = float(values.max())
+        peaks[f"{key}_min_{unit}"] = float(values.min())
+    return peaks
 
 
 def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: float, vdd_v: float,
@@ -344,7 +381,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
                                 stop_check=check, chunk_s=CHUNK_CYCLES * T, progress=progress,
                                 keep_s=3 * T)
     check = vecs.checker
-    t_s, v, i, _ = _final_waveforms(vecs, f0_hz, sim.points_per_cycle, nodes, elements)
+    t_s, v, i, _, peaks = _final_waveforms(vecs, f0_hz, sim.points_per_cycle, nodes, elements)
     settled = bool(check.settled)
     if settled:
         note = check.reason + (" (warm start)" if warm else " (cold start)")
@@ -353,7 +390,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
                 "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
     return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
                      history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
-                     note=note)
+                     note=note, peaks=peaks)
 
 
 def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = None,

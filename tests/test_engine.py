@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import re
 import signal
 import struct
 
@@ -206,3 +207,110 @@ def test_doctor_report_finds_both_paths():
     rep = engine.doctor_report()
     assert rep["executable"] and rep["version"].startswith("39")
     assert rep["shared_ok"] and rep["batch_ok"] and rep["fixes"] == []
+
+
+# ---------------------------------------------------------------- failures mid-run and diagnosis
+
+# C dv/dt = k v^2 with v(0) = 1 V, C = 1 pF, k = 1e-3 A/V^2: v(t) = v0 / (1 - k v0 t / C) reaches
+# infinity at t* = C / (k v0) = 1 ns (separable ODE, any calculus textbook); the 1 Mohm leak
+# (1e-6 A against 1e-3 A) moves t* by about 0.1 %. ngspice must stop there, before the 10 ns asked for.
+BLOWUP = """finite-time blow-up
+C1 x 0 1p IC=1
+B1 0 x I = 1e-3*v(x)*v(x)
+R1 x 0 1meg
+.tran 1p 10n uic
+.end
+"""
+
+
+class NeverStop:
+    """A picklable stop_check that never asks to stop."""
+
+    def __call__(self, t, vec):
+        return False
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("backend", ["shared", "batch"])
+@pytest.mark.parametrize("chunked", [False, True])
+def test_run_aborted_mid_way_is_an_error_naming_the_time(backend, chunked):
+    kwargs = {"chunk_s": 0.3e-9, "stop_check": NeverStop()} if chunked else {}
+    with pytest.raises(SimulationError) as info:
+        engine.run_transient(BLOWUP, backend=backend, timeout_s=60, **kwargs)
+    message = str(info.value)
+    assert "Timestep too small" in message  # ngspice's own words in the one-line message
+    t_fail = float(re.search(r"time = ([0-9.eE+-]+)", message).group(1))
+    assert t_fail == pytest.approx(1e-9, rel=0.01)  # closed-form blow-up time t* = C/(k v0)
+    assert "minbreak" in info.value.hint
+
+
+# ngspice 39.3 log excerpts (measured on this machine, shared-library spelling with the
+# stdout/stderr prefixes) for diagnose(): a circuit without a DC solution, two parallel voltage
+# sources, and the blow-up above.
+LOG_NO_DC = """stdout Note: Starting dynamic gmin stepping
+stderr Warning: Dynamic gmin stepping failed
+stdout Note: Starting source stepping
+stderr Warning: source stepping failed
+stdout Note: Transient op started
+stderr Error: Transient op failed, timestep too small
+stdout DC solution failed -
+stderr doAnalyses: OP:  Timestep too small; trouble with node "b"
+stderr op simulation(s) aborted"""
+LOG_SINGULAR = """stderr Warning: singular matrix:  check node v1#branch
+stderr Warning: Dynamic gmin stepping failed
+stderr Warning: source stepping failed
+stderr Error: Transient op failed, timestep too small
+stderr doAnalyses: TRAN:  Timestep too small; initial timepoint: cause unrecorded.
+stderr run simulation(s) aborted"""
+LOG_MID_RUN = """stdout Using transient initial conditions
+stderr doAnalyses: TRAN:  Timestep too small; time = 1.00005e-09, timestep = 8.42236e-24: trouble with node "x"
+stderr run simulation(s) aborted"""
+
+
+def test_diagnose_picks_the_most_specific_cause():
+    line, hint = engine.diagnose(LOG_NO_DC)
+    assert line.startswith("Error: Transient op failed") and "stepping failed" in line
+    assert "converge" in hint and ".nodeset" in hint and "minbreak" not in hint
+    line, hint = engine.diagnose(LOG_SINGULAR)
+    assert "singular matrix:  check node v1#branch" in line
+    assert "loop of voltage sources" in hint
+    line, hint = engine.diagnose(LOG_MID_RUN)
+    assert line.startswith("doAnalyses: TRAN:  Timestep too small; time = 1.00005e-09")
+    assert "minbreak" in hint
+    assert engine.diagnose("stdout No. of Data Rows : 11\n") == ("", "")
+
+
+# ---------------------------------------------------------------- shell hidden in included files
+
+SHELL_BLOCK = ".control\nshell touch /tmp/netgen_should_not_exist\n.endc\n"
+
+
+def test_shell_in_nested_relative_include_is_refused(tmp_path):
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "inner.lib").write_text("* inner\n" + SHELL_BLOCK)
+    (tmp_path / "models" / "outer.lib").write_text(".subckt m a b\nR1 a b 1k\n.ends\n.inc inner.lib\n")
+    (tmp_path / "top.lib").write_text(".lib 'models/outer.lib' typ\n")
+    netlist = "t\n.include top.lib\nV1 a 0 DC 1\nX1 a 0 m\n.end\n"
+    with pytest.raises(SimulationError, match=r"inner\.lib line 3: the control command 'shell"):
+        engine.check_netlist(netlist, base_dir=tmp_path)
+    engine.check_netlist(netlist, base_dir=tmp_path, allow_shell=True)  # the caller's explicit choice
+    # a harmless control block in a model file passes
+    (tmp_path / "models" / "inner.lib").write_text("* inner\n.control\nop\n.endc\n")
+    engine.check_netlist(netlist, base_dir=tmp_path)
+
+
+def test_source_in_a_control_block_is_followed(tmp_path):
+    (tmp_path / "evil.cir").write_text("evil\n" + SHELL_BLOCK + ".end\n")
+    netlist = f'''t\nV1 a 0 DC 1\nR1 a 0 1k\n.control\nsource "{tmp_path / 'evil.cir'}"\n.endc\n.end\n'''
+    with pytest.raises(SimulationError, match="evil.cir line 3"):
+        engine.check_netlist(netlist)
+
+
+def test_include_cycle_ends_and_deep_nesting_is_refused(tmp_path):
+    (tmp_path / "a.lib").write_text(".include b.lib\n")
+    (tmp_path / "b.lib").write_text(".include a.lib\n")
+    engine.check_netlist("t\n.include a.lib\n.end\n", base_dir=tmp_path)  # a cycle is scanned once
+    for k in range(engine.MAX_INCLUDE_DEPTH + 2):
+        (tmp_path / f"d{k}.lib").write_text(f".include d{k + 1}.lib\n")
+    with pytest.raises(SimulationError, match="nested more than"):
+        engine.check_netlist("t\n.include d0.lib\n.end\n", base_dir=tmp_path)

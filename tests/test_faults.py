@@ -46,14 +46,17 @@ C1 b 0 1p IC=0
 .end
 """
 
-# A switch with hysteresis that shorts a 1 pF capacitor through 1 micro-ohm when it charges
-# past 0.6 V (~0.9 ns): the discharge time constant (1e-18 s) collapses the step mid-run. Measured with ngspice 39: "Timestep too small; time = 9.16e-10 ...".
+# A capacitor charged by a current that grows with the square of its voltage:
+# C dv/dt = k v^2 has the solution v(t) = v0 / (1 - k v0 t / C), which reaches infinity at
+# t* = C / (k v0) = 1e-12 / (1e-3 * 1) = 1 ns (separable ODE, any calculus textbook). No solution
+# exists past t*, so the step collapses mid-run. Measured with ngspice 39.3 (both backends):
+# "Timestep too small; time = 1.00005e-09". (The switch circuit first used here, a 1 pF
+# capacitor shorted through 1 micro-ohm by a hysteretic S switch, ran to the end without error
+# on this ngspice 39 build, so it did not exercise the protection.)
 TIMESTEP_TOO_SMALL = """timestep collapse
-V1 a 0 DC 1
-R1 a c 1k
-C1 c 0 1p
-S1 c 0 c 0 swm
-.model swm SW(RON=1e-6 ROFF=1e12 VT=0.5 VH=0.1)
+C1 x 0 1p IC=1
+B1 0 x I = 1e-3*v(x)*v(x)
+R1 x 0 1meg
 .tran 1p 10n uic
 .end
 """

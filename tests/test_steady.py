@@ -197,3 +197,72 @@ def test_warm_start_settles_sooner_than_cold_and_matches_long_reference(make, id
     pload = np.mean(warm.v["load"] ** 2) / 50
     assert pdc == pytest.approx(pdc_ref, rel=2e-3)
     assert pload == pytest.approx(pload_ref, rel=2e-3)
+
+
+# ---------------------------------------------------------------- peaks from the simulator's points
+
+SPIKE_AT_S = 0.31e-9   # between the 20 ps grid points at 300 ps and 320 ps (points_per_cycle = 50)
+SPIKE_WIDTH_S = 2e-12  # narrower than one grid step
+
+
+def test_peaks_see_a_spike_narrower_than_the_grid_step():
+    # Synthetic simulator output: drain at 10 V with one 2 ps, +5 V spike per period (rising and
+    # falling in 1 fs), on irregular time points as ngspice would return them. Every value of the
+    # uniform grid is an interpolation between two simulator points, so the grid's maximum
+    # here is 10 V while the true peak is 15 V; the peaks must report 15 V (and 15 V / 100 ohm).
+    T = 1 / F0
+    base = np.sort(np.concatenate([np.arange(0, 4 * T, 5e-12), np.arange(0, 4 * T, 7e-12)]))
+    edges = np.concatenate([k * T + SPIKE_AT_S + np.array([0, 1e-15, SPIKE_WIDTH_S, SPIKE_WIDTH_S + 1e-15])
+                            for k in range(4)])
+    t = np.unique(np.concatenate([base, edges]))
+    vd = np.full(t.size, 10.0)
+    for k in range(4):
+        on = (t >= k * T + SPIKE_AT_S + 1e-15) & (t <= k * T + SPIKE_AT_S + SPIKE_WIDTH_S)
+        vd[on] = 15.0
+    vd[-1] = 10.0
+    vecs = {"time": t, "drain": vd, "vidrain#branch": vd / 100.0}
+    t_s, v, i, cycles, peaks = steady._final_waveforms(vecs, F0, 50, ["drain"], {})
+    assert v["drain"].max() == pytest.approx(10.0)  # the grid steps over the spike
+    assert peaks["vd_max_v"] == 15.0 and peaks["vd_min_v"] == 10.0
+    assert peaks["id_max_a"] == pytest.approx(0.15) and peaks["id_min_a"] == pytest.approx(0.10)
+    # the window is the grid's (the two periods before the last whole period boundary, here
+    # T..3T): a value outside it counts for neither
+    early = dict(vecs, drain=np.where(t < 0.5 * T, 99.0, vd))
+    _, v, _, _, peaks = steady._final_waveforms(early, F0, 50, ["drain"], {})
+    assert v["drain"].max() == pytest.approx(10.0) and peaks["vd_max_v"] == 15.0
+
+
+def spike_circuit(ic, tstop_s):
+    """Resistive circuit following docs/netlist_conventions.md whose drain sits at Vdd = 10 V
+    with a 5 V, 2 ps pulse every period (SPICE PULSE source: V1 V2 TD TR TF PW PER)."""
+    return (f"narrow spike\nVDD vdd 0 DC {VDD}\n"
+            f"VSPIKE drain vdd PULSE(0 5 {SPIKE_AT_S:.6g} 1f 1f {SPIKE_WIDTH_S:.6g} 1n)\n"
+            "VIDRAIN drain dint DC 0\nRDEV dint 0 100\nRSER drain load 50\nRLOAD load 0 50\n"
+            f".tran 1p {tstop_s:.12g} 0 5p\n.end\n")
+
+
+@pytest.mark.ngspice
+def test_simulated_spike_is_reported_in_peaks_and_metrics():
+    # The PULSE source sets the drain to exactly 10 + 5 = 15 V for 2 ps; the device resistor
+    # (100 ohm, Ohm's law) then carries 0.15 A. A 50-point grid (20 ps step) misses the spike.
+    from netgen.analysis import analyse
+    from netgen.design import Design
+    from netgen.records import SizedDesign
+
+    sim = SimSpec(points_per_cycle=50, min_cycles=6, max_cycles=30, warm_start=False)
+    w = steady.simulate_netlist(spike_circuit, f0_hz=F0, vdd_v=VDD, sim=sim)
+    assert w.settled, w.note
+    assert w.v["drain"].max() < 10.5  # the resampled grid steps over the spike
+    assert w.peaks["vd_max_v"] == pytest.approx(15.0, rel=1e-6)
+    assert w.peaks["vd_min_v"] == pytest.approx(10.0, rel=1e-6)
+    assert w.peaks["id_max_a"] == pytest.approx(0.15, rel=1e-6)
+    sized = SizedDesign(design=Design(name="spike", topology="class_f_line", f0_hz=F0, vdd_v=VDD,
+                                      sim=sim), ropt_ohm=100.0, components={})
+    metrics = analyse(w, sized, spike_circuit(None, 1e-8))
+    assert metrics["peak_vd_v"] == pytest.approx(15.0, rel=1e-6)
+    assert metrics["peak_vd_over_vdd"] == pytest.approx(1.5, rel=1e-6)
+    assert metrics["peak_id_a"] == pytest.approx(0.15, rel=1e-6)
+    # without peaks (an older Waveforms) the analysis falls back to the grid
+    from dataclasses import replace
+
+    assert analyse(replace(w, peaks={}), sized, spike_circuit(None, 1e-8))["peak_vd_v"] < 10.5
