@@ -81,7 +81,8 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
                   keep_waveforms, no_plots, list_only, quiet, evaluator):
     from .design import load_design
     from .store import STORE_NAME, SweepStore, export_csv
-    from .sweep import make_plan, parse_spec, run_sweep, summarize
+    from .sweep import make_plan, parse_spec, summarize
+    from .sweep_exec import run_sweep
 
     if workers is not None and workers < 1:
         raise click.BadParameter("must be at least 1.", param_hint="--workers")

@@ -27,8 +27,9 @@ from netgen.quantities import parse_quantity
 from netgen.store import STORE_NAME, SweepStore
 from netgen.sweep import (
     load_circle, make_plan, metric_value, parse_spec, parse_tolerance, parse_vary, parse_vswr,
-    point_passes, run_sweep, summarize, yield_interval,
+    point_passes, summarize, yield_interval,
 )
+from netgen.sweep_exec import run_sweep
 
 TESTS = Path(__file__).resolve().parent
 
