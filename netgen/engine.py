@@ -27,14 +27,11 @@ messages in ``.log`` and a suggestion in ``.hint``.
 from __future__ import annotations
 
 import atexit
-import ctypes.util
 import os
-import queue
 import re
 import shutil
 import subprocess
 import sys
-import tempfile
 import threading
 import time as _time
 from pathlib import Path
@@ -43,7 +40,6 @@ from typing import Callable
 import numpy as np
 
 from .errors import SimulationError, SimulatorNotFoundError
-from .rawfile import read_raw
 
 __all__ = [
     "Vectors",
@@ -788,66 +784,17 @@ def run_op(netlist: str, *, backend: str = "shared", timeout_s: float = 60.0,
     return _wrap(_dispatch("op", netlist, {}, backend, timeout_s, None, allow_shell))
 
 
-# ---------------------------------------------------------------- doctor
-
-_TRIVIAL = """netgen doctor check
-V1 in 0 DC 10
-R1 in out 1k
-R2 out 0 1k
-.end
-"""
-
-
-def _library_path() -> str | None:
-    env = os.environ.get(LIBRARY_ENV)
-    if env:
-        return env
-    return ctypes.util.find_library("ngspice")
-
+# ---------------------------------------------------------------- doctor (code in engine_batch.py)
 
 def find_ngspice() -> dict:
     """Where ngspice is: ``{"executable", "version", "library", "library_env"}`` (None when absent)."""
-    exe = _executable()
-    version = None
-    if exe:
-        try:
-            out = subprocess.run([exe, "--version"], capture_output=True, text=True, timeout=20).stdout
-            m = re.search(r"ngspice-?\s*([0-9][0-9.]*\S*)", out)
-            version = m.group(1) if m else out.strip()[:60] or None
-        except (OSError, subprocess.TimeoutExpired):
-            version = None
-    return {"executable": exe, "version": version, "library": _library_path(),
-            "library_env": os.environ.get(LIBRARY_ENV)}
+    from .engine_batch import find_ngspice as _find
+
+    return _find()
 
 
 def doctor_report(timeout_s: float = 60.0) -> dict:
-    """Check both simulator paths with a trivial circuit (a 10 V divider: out = 5 V).
+    """Check both simulator paths with a trivial circuit; see :func:`netgen.engine_batch.doctor_report`."""
+    from .engine_batch import doctor_report as _doctor
 
-    Returns
-    -------
-    dict
-        ``executable``, ``version``, ``library`` (paths or None), ``shared_ok``,
-        ``batch_ok`` (bool), ``shared_error`` / ``batch_error`` (text or None),
-        ``fixes`` (list of sentences; empty when all is well).
-    """
-    report = find_ngspice()
-    fixes: list[str] = []
-    for backend in ("shared", "batch"):
-        ok, err = False, None
-        try:
-            res = run_op(_TRIVIAL, backend=backend, timeout_s=timeout_s)
-            ok = abs(res["out"] - 5.0) < 1e-6
-            if not ok:
-                err = f"the test divider gave {res['out']} V instead of 5 V"
-        except SimulationError as exc:
-            err = str(exc)
-        report[f"{backend}_ok"] = ok
-        report[f"{backend}_error"] = err
-    if not report["shared_ok"]:
-        fixes.append(f"Shared library path: install libngspice (Debian: libngspice0-dev) or set {LIBRARY_ENV} "
-                     "to the full path of libngspice.so; meanwhile use sim.backend = \"batch\".")
-    if not report["batch_ok"]:
-        fixes.append(f"Executable path: install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} "
-                     "to the ngspice executable.")
-    report["fixes"] = fixes
-    return report
+    return _doctor(timeout_s)

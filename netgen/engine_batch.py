@@ -7,12 +7,20 @@ standard input; results come back through raw files read by
 
 This module does not import PySpice (only :mod:`netgen.engine` does); it is
 reached through :func:`netgen.engine.run_transient` / ``run_ac`` / ``run_op``
-with ``backend="batch"``.
+with ``backend="batch"``. It also holds the installation check behind
+``netgen.engine.find_ngspice`` / ``doctor_report``.
+
+ngspice's standard output and error are captured together; every failure is
+diagnosed from them (:func:`netgen.engine.diagnose`), including a run after
+which ngspice wrote no raw file.
 """
 
 from __future__ import annotations
 
+import ctypes.util
+import os
 import queue
+import re
 import subprocess
 import tempfile
 import threading
@@ -21,12 +29,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .engine import (EXECUTABLE_ENV, MAX_COMMAND_CHARS, _SENTINEL, _executable, _fail, _looks_failed,
-                     _save_spelling, _short_run, _tran_stop, canonical_name)
+from .engine import (EXECUTABLE_ENV, LIBRARY_ENV, MAX_COMMAND_CHARS, _SENTINEL, _executable, _fail,
+                     _looks_failed, _save_spelling, _short_run, _tran_stop, canonical_name, run_op)
 from .errors import SimulationError, SimulatorNotFoundError
 from .rawfile import read_raw
 
-__all__ = ["run_batch"]
+__all__ = ["run_batch", "find_ngspice", "doctor_report"]
 
 class _BatchSession:
     """``ngspice -p`` in a temporary folder, driven through its standard input."""
@@ -212,3 +220,80 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
         return {"vectors": vecs, "log": "\n".join(sess.log), "stopped": stopped, "checker": check}
     finally:
         sess.close()
+
+
+# ---------------------------------------------------------------- doctor (engine.find_ngspice / doctor_report)
+
+_TRIVIAL = """netgen doctor check
+V1 in 0 DC 10
+R1 in out 1k
+R2 out 0 1k
+.end
+"""
+
+
+def _library_path() -> str | None:
+    env = os.environ.get(LIBRARY_ENV)
+    if env:
+        return env
+    return ctypes.util.find_library("ngspice")
+
+
+def find_ngspice() -> dict:
+    """Where ngspice is: ``{"executable", "version", "library", "library_env"}`` (None when absent)."""
+    exe = _executable()
+    version = None
+    if exe:
+        try:
+            out = subprocess.run([exe, "--version"], capture_output=True, text=True, timeout=20).stdout
+            m = re.search(r"ngspice-?\s*([0-9][0-9.]*\S*)", out)
+            version = m.group(1) if m else out.strip()[:60] or None
+        except (OSError, subprocess.TimeoutExpired):
+            version = None
+    return {"executable": exe, "version": version, "library": _library_path(),
+            "library_env": os.environ.get(LIBRARY_ENV)}
+
+
+def doctor_report(timeout_s: float = 60.0) -> dict:
+    """Check both simulator paths with a trivial circuit (a 10 V divider: out = 5 V).
+
+    Returns
+    -------
+    dict
+        ``executable``, ``version``, ``library`` (paths or None), ``shared_ok``,
+        ``batch_ok`` (bool), ``shared_error`` / ``batch_error`` (text or None),
+        ``fixes`` (list of sentences; empty when all is well), ``checks`` (one dict
+        per path: ``what``, ``ok``, ``detail``, ``fix``; what ``netgen doctor`` prints).
+    """
+    report = find_ngspice()
+    fixes: list[str] = []
+    checks: list[dict] = []
+    for backend in ("shared", "batch"):
+        ok, err = False, None
+        try:
+            res = run_op(_TRIVIAL, backend=backend, timeout_s=timeout_s)
+            ok = abs(res["out"] - 5.0) < 1e-6
+            if not ok:
+                err = f"the test divider gave {res['out']} V instead of 5 V"
+        except SimulationError as exc:
+            err = str(exc)
+        report[f"{backend}_ok"] = ok
+        report[f"{backend}_error"] = err
+    fix_shared = (f"Shared library path: install libngspice (Debian: libngspice0-dev) or set {LIBRARY_ENV} "
+                  "to the full path of libngspice.so; meanwhile use sim.backend = \"batch\".")
+    fix_batch = (f"Executable path: install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} "
+                 "to the ngspice executable.")
+    for backend, what, where, fix in (("shared", "shared library (sim.backend = \"shared\")", report["library"],
+                                       fix_shared),
+                                      ("batch", "executable (sim.backend = \"batch\")", report["executable"],
+                                       fix_batch)):
+        ok = report[f"{backend}_ok"]
+        if not ok:
+            fixes.append(fix)
+        detail = (f"{where or 'found'}; 10 V divider gives 5 V" + (f" (ngspice {report['version']})"
+                                                                     if backend == "batch" and report["version"] else "")
+                  if ok else report[f"{backend}_error"] or "not found")
+        checks.append({"what": what, "ok": ok, "detail": detail, "fix": None if ok else fix})
+    report["fixes"] = fixes
+    report["checks"] = checks
+    return report

@@ -19,7 +19,7 @@ T = 1 / F0
 
 # A small switching circuit: supply, 1 uH choke, S switch at 50 % duty, 100 pF block,
 # parallel tank (1.59 nH || 15.9 pF, resonant at 1 GHz) and 50 ohm load.
-SWITCHING = f"""switching test circuit
+SWITCHING = """switching test circuit
 VDD vdd 0 DC 10
 L_feed vdd drain 1u
 VIDRAIN drain dint DC 0
@@ -207,6 +207,18 @@ def test_doctor_report_finds_both_paths():
     rep = engine.doctor_report()
     assert rep["executable"] and rep["version"].startswith("39")
     assert rep["shared_ok"] and rep["batch_ok"] and rep["fixes"] == []
+    # what 'netgen doctor' prints: one check per path (Ohm's law: the 1k/1k divider gives 5 V)
+    assert [c["ok"] for c in rep["checks"]] == [True, True]
+    assert all("5 V" in c["detail"] and c["fix"] is None for c in rep["checks"])
+
+
+@pytest.mark.ngspice
+def test_doctor_report_names_the_fix_for_a_missing_executable(monkeypatch):
+    monkeypatch.setenv(engine.EXECUTABLE_ENV, "/nonexistent/ngspice")
+    rep = engine.doctor_report()
+    assert rep["shared_ok"] and not rep["batch_ok"]
+    (bad,) = [c for c in rep["checks"] if not c["ok"]]
+    assert "not found" in bad["detail"] and engine.EXECUTABLE_ENV in bad["fix"]
 
 
 # ---------------------------------------------------------------- failures mid-run and diagnosis
@@ -314,3 +326,13 @@ def test_include_cycle_ends_and_deep_nesting_is_refused(tmp_path):
         (tmp_path / f"d{k}.lib").write_text(f".include d{k + 1}.lib\n")
     with pytest.raises(SimulationError, match="nested more than"):
         engine.check_netlist("t\n.include d0.lib\n.end\n", base_dir=tmp_path)
+
+
+def test_short_run_without_message_is_still_an_error():
+    # A run that ends early with no ngspice error line (the silent case) still names where it
+    # stopped and points at the time step (NGSPICE_NOTES: silent collapse with transmission lines).
+    err = engine._short_run(4.2e-9, 1e-8, "stdout No. of Data Rows : 420\n")
+    assert "stopped at t = 4.2e-09 s, before the requested 1e-08 s without an error message" in str(err)
+    assert "minbreak" in err.hint
+    err = engine._short_run(None, 1e-8, LOG_MID_RUN)
+    assert "before its first time point" in str(err) and "Timestep too small" in str(err)
