@@ -199,62 +199,6 @@ def _warm_ic(sized, backend: str) -> dict:
     return dc_initial_conditions(op, tran, backend=backend, timeout_s=sized.design.sim.timeout_s)
 
 
-def _without_save(netlist: str) -> str:
-    """Drop ``.save`` cards: vector selection is the receiver's business and not SPICE3-portable."""
-    return "".join(line for line in netlist.splitlines(keepends=True) if not line.lstrip().lower().startswith(".save"))
-
-
-def _wrap_cards(netlist: str, width: int = 78) -> str:
-    """Split cards longer than the portable width onto ``+`` continuation lines (at spaces)."""
-    out = []
-    for line in netlist.splitlines():
-        if len(line) <= width or line.lstrip().startswith("*"):
-            out.append(line)
-            continue
-        words, cur = [], ""
-        for w in line.split(" "):  # an over-long expression is split after its operators
-            while len(w) > width - 4:
-                cut = max(w.rfind(op, 0, width - 4) for op in "*-+/")
-                if cut <= 0:
-                    break
-                words.append(w[: cut + 1])
-                w = w[cut + 1:]
-            words.append(w)
-        for w in words:
-            if cur and len(cur) + 1 + len(w) > width:
-                out.append(cur)
-                cur = "+ " + w
-            else:
-                cur = f"{cur} {w}" if cur else w
-        out.append(cur)
-    return "\n".join(out) + ("\n" if netlist.endswith("\n") else "")
-
-
-def _with_minbreak(netlist: str) -> str:
-    """Add ``.options minbreak=<TMAX/100>`` before ``.tran`` when the circuit has a T line.
-
-    Measured in ngspice 39 (NGSPICE_NOTES.md): a lossless T line in a switching
-    circuit makes the step collapse after a few hundred periods unless near-coincident
-    breakpoints are merged with ``minbreak`` of about 0.01 TMAX.
-    """
-    lines = netlist.splitlines(keepends=True)
-    has_line = any(ln[:1].upper() == "T" for ln in lines)
-    has_option = any(ln.lower().startswith(".options") and "minbreak" in ln.lower() for ln in lines)
-    if not has_line or has_option:
-        return netlist
-    from .analysis import parse_spice_number
-
-    out = []
-    for ln in lines:
-        words = ln.split()
-        if words and words[0].lower() == ".tran":
-            rest = [w for w in words[1:] if w.lower() != "uic"]
-            tmax = parse_spice_number(rest[3]) if len(rest) > 3 else parse_spice_number(rest[0])
-            out.append(f".options minbreak={0.01 * tmax:.6g}\n")
-        out.append(ln)
-    return "".join(out)
-
-
 def _tran_settings(netlist: str) -> dict:
     for line in netlist.splitlines():
         words = line.split()
@@ -383,7 +327,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     verify_note = ""
     while True:
         tstop = cycles * period
-        portable = _wrap_cards(_with_minbreak(_without_save(render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic))))
+        portable = render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic)
         problems = check_portable(portable)
         if problems:
             raise RenderError("The portable netlist is not portable (a template problem):\n" + format_problems(problems))

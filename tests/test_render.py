@@ -68,14 +68,18 @@ def test_examples_tran_runs_in_ngspice(path, tmp_path):
 
 
 @pytest.mark.ngspice
-@pytest.mark.parametrize("stem", ["class_e", "class_b_tuned"])
-def test_portable_dialect_runs_in_ngspice(stem, tmp_path):
-    # Line topologies are left out on purpose: without minbreak (not portable) ngspice 39 can
-    # stall on T lines in switching circuits (NGSPICE_NOTES.md); docs/portable_dialect.md says so.
-    d = load_design(SIMS / f"{stem}.toml")
-    text = render(size(d), "tran", "portable", tstop_s=10 * d.period_s)
+@pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.stem)
+def test_portable_dialect_runs_in_ngspice(path, tmp_path):
+    # Every example as the portable dialect writes it; the line topologies carry
+    # .options minbreak=TMAX/100 (NGSPICE_NOTES.md: without it ngspice 39 can stall on T lines in
+    # switching circuits), the others no .options at all (docs/portable_dialect.md).
+    d = load_design(path)
+    s = size(d)
+    text = render(s, "tran", "portable", tstop_s=10 * d.period_s, ic={"L_feed": s.idc_est_a})
+    assert (".options minbreak=" in text) == bool(re.search(r"^T", text, re.M))
     proc = run_ngspice(text, tmp_path)
     assert ngspice_ok(proc), proc.stdout[-2000:]
+    assert (tmp_path / "out.raw").stat().st_size > 1000
 
 
 # ------------------------------------------------------------ conventions
@@ -183,7 +187,7 @@ def test_spice_device(tmp_path):
 
 def test_user_template(tmp_path):
     (tmp_path / "mine.j2").write_text(
-        '{# sizing: class_b_tuned #}\n{% import "devices.j2" as dev with context %}\n{{ dev.header() }}\n'
+        '{# sizing: class_f_line #}\n{% import "devices.j2" as dev with context %}\n{{ dev.header() }}\n'
         '{{ dev.supply() }}\n{{ dev.lossy_l(comp.feed_l, "vdd", "drain") }}\n'
         '{{ dev.lossy_c(comp.block_c, "drain", "load") }}\nRLOAD load 0 {{ design.load_ohm|n }}\n'
         '{{ dev.device_block() }}\n{{ dev.analysis() }}\n'
@@ -192,11 +196,11 @@ def test_user_template(tmp_path):
     (tmp_path / "d.toml").write_text(doc.format("mine.j2"))
     text = render(size(load_design(tmp_path / "d.toml")))
     assert "C_block drain load" in text and "S_SW" in text
-    (tmp_path / "bad.j2").write_text('{# sizing: class_b_tuned #}\n{{ nothing_here }}\n')
+    (tmp_path / "bad.j2").write_text('{# sizing: class_f_line #}\n{{ nothing_here }}\n')
     (tmp_path / "d2.toml").write_text(doc.format("bad.j2"))
     with pytest.raises(RenderError, match="nothing_here"):
         render(size(load_design(tmp_path / "d2.toml")))
-    (tmp_path / "evil.j2").write_text("{# sizing: class_b_tuned #}\n{{ design.__class__.__mro__ }}\n")
+    (tmp_path / "evil.j2").write_text("{# sizing: class_f_line #}\n{{ design.__class__.__mro__ }}\n")
     (tmp_path / "d3.toml").write_text(doc.format("evil.j2"))
     with pytest.raises(RenderError):
         render(size(load_design(tmp_path / "d3.toml")))

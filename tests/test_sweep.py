@@ -36,7 +36,7 @@ TESTS = Path(__file__).resolve().parent
 BASE = {
     "design": {"name": "sw_test", "topology": "class_b_tuned", "f0": "1 GHz", "vdd": "10 V",
                "ropt": "100 ohm", "load": "50 ohm"},
-    "device": {"model": "switch"},
+    "device": {"model": "gm"},
     "sim": {"points_per_cycle": 200, "min_cycles": 4, "max_cycles": 60, "harmonics": 3},
 }
 
@@ -360,7 +360,7 @@ def _design_file(tmp_path, extra: str = "") -> Path:
     p = tmp_path / "pa.toml"
     p.write_text(
         '[design]\nname = "sw_test"\ntopology = "class_b_tuned"\nf0 = "1 GHz"\nvdd = "10 V"\n'
-        'ropt = "100 ohm"\nload = "50 ohm"\n[sim]\npoints_per_cycle = 200\nmin_cycles = 4\n'
+        'ropt = "100 ohm"\nload = "50 ohm"\n[device]\nmodel = "gm"\n[sim]\npoints_per_cycle = 200\nmin_cycles = 4\n'
         'max_cycles = 60\nharmonics = 3\n' + extra, encoding="utf-8")
     return p
 
@@ -468,7 +468,7 @@ def test_dask_cluster_gives_the_same_points_as_local_processes(tmp_path, dask_cl
 REAL = {
     "design": {"name": "sw_real", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V",
                "ropt": "100 ohm", "load": "50 ohm"},
-    "device": {"model": "switch"},
+    "device": {"model": "gm"},
     "sim": {"points_per_cycle": 200, "min_cycles": 10, "max_cycles": 400, "harmonics": 3},
 }
 
