@@ -308,7 +308,7 @@ def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float 
         for _ in range(window):
             if not submit():
                 break
-        for fut in ac:
+        for fut in _completed(ac, client, keys):
             idx = keys.pop(fut.key)
             try:
                 res = fut.result()
@@ -320,3 +320,31 @@ def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float 
             submit()
     finally:
         client.close()
+
+
+def _completed(ac, client, keys: dict, poll_s: float = 30.0, lost_after: int = 2):
+    """Yield finished futures; raise NetgenError when the cluster has had no workers for a while.
+
+    A point may legitimately run for minutes, so waiting is unbounded while workers exist;
+    but a cluster whose workers have all gone would otherwise leave the sweep waiting for ever.
+    """
+    empty = 0
+    last_check = time.monotonic()
+    while keys:
+        batch = ac.next_batch(block=False)
+        if batch:
+            yield from batch
+            empty = 0
+            last_check = time.monotonic()
+            continue
+        time.sleep(0.05)
+        if time.monotonic() - last_check < poll_s:
+            continue
+        last_check = time.monotonic()
+        workers = client.scheduler_info().get("workers", {})
+        empty = 0 if workers else empty + 1
+        if empty >= lost_after:
+            raise NetgenError(
+                f"the Dask cluster has had no workers for {poll_s * lost_after:.0f} s; "
+                f"{len(keys)} point(s) are not stored; restart the workers and run the same command to resume."
+            )
