@@ -468,7 +468,7 @@ def test_dask_cluster_gives_the_same_points_as_local_processes(tmp_path, dask_cl
 REAL = {
     "design": {"name": "sw_real", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V",
                "ropt": "100 ohm", "load": "50 ohm"},
-    "device": {"model": "gm"},
+    "device": {"model": "switch"},
     "sim": {"points_per_cycle": 200, "min_cycles": 10, "max_cycles": 400, "harmonics": 3},
 }
 
