@@ -52,6 +52,7 @@ __all__ = [
     "sized_toml_text",
     "CLASS_COEFF",
     "FEED_X_RATIO",
+    "E_FEED_X_RATIO",
     "ropt_from_power",
     "lumped_resonator_z",
     "even_reactance_factor",
@@ -84,6 +85,8 @@ E_SHUNT_K = 0.1836
 E_EXCESS_K = 1.1525
 #: feed reactance = FEED_X_RATIO * Ropt, block reactance = Ropt / FEED_X_RATIO (NGSPICE_NOTES)
 FEED_X_RATIO = 60.0
+#: class E: the feed choke's reactance in units of R (Sokal's equations assume an RF choke)
+E_FEED_X_RATIO = 300.0
 _SUFFIX_KIND = {"l": "L", "c": "C", "z0": "T", "td": "T"}
 
 
@@ -138,13 +141,13 @@ class _Builder:
         self.add(f"{base}_z0", "Z0", z0_ohm, how_z0, role)
         self.add(f"{base}_td", "TD", 1.0 / (4.0 * self.design.f0_hz), "quarter wave at f0: TD = 1/(4 f0) (Pozar)", role)
 
-    def feed(self, r_ohm: float, name: str = "feed_l") -> None:
-        """DC-feed choke: reactance 60 x R at f0 (NGSPICE_NOTES), or network.feed_l."""
+    def feed(self, r_ohm: float, name: str = "feed_l", ratio: float = FEED_X_RATIO) -> None:
+        """DC-feed choke: reactance ``ratio`` x R at f0 (default 60, NGSPICE_NOTES), or network.feed_l."""
         net = self.design.network
         if net.feed_l_h is not None:
             self.add(name, "L", net.feed_l_h, "set by network.feed_l", "feed", lossy=False)
         else:
-            self.inductor_x(name, FEED_X_RATIO * r_ohm, f"{FEED_X_RATIO:g} x {r_ohm:.6g} ohm (common practice: RF choke)", "feed", lossy=False)
+            self.inductor_x(name, ratio * r_ohm, f"{ratio:g} x {r_ohm:.6g} ohm (common practice: RF choke)", "feed", lossy=False)
 
     def block(self, r_ohm: float, name: str = "block_c") -> None:
         """DC block (or RF bypass): reactance R/60 at f0, or network.block_c."""
@@ -439,15 +442,23 @@ def size_class_e(b: _Builder, r_ohm: float) -> None:
     L-section R -> RL.
     """
     d = b.design
-    b.feed(r_ohm)
-    c_total = E_SHUNT_K / (b.w0 * r_ohm)
+    # Sokal's equations assume an ideal RF choke. A finite choke in parallel with the shunt C
+    # cancels part of its susceptance at f0 (a 60 R choke: 9 %, enough to lose zero-voltage
+    # switching), so class E gets a larger choke (300 R) and the shunt C is raised by the
+    # choke's susceptance 1/(omega0^2 L_feed) at f0.
+    b.feed(r_ohm, ratio=E_FEED_X_RATIO)
+    l_feed = next(c.value for c in b.items if c.name == "feed_l")
+    c_sokal = E_SHUNT_K / (b.w0 * r_ohm)
+    c_total = c_sokal + 1.0 / (b.w0**2 * l_feed)
     c_shunt = c_total - d.device.cout_f
     if c_shunt <= 0:
         raise SizingError(
             f"device.cout: {d.device.cout_f:.4g} F is not below the class-E shunt capacitance "
             f"0.1836/(omega0 R) = {c_total:.4g} F; lower design.pout, raise design.vdd or use a smaller device."
         )
-    b.add("shunt_c", "C", c_shunt, f"class-E shunt C = 0.1836/(omega0 R) - Cout = {c_total:.6g} - {d.device.cout_f:.6g} F (Sokal & Sokal 1975)", "shunt")
+    b.add("shunt_c", "C", c_shunt,
+          f"class-E shunt C = 0.1836/(omega0 R) + 1/(omega0^2 L_feed) - Cout = {c_sokal:.6g} + "
+          f"{c_total - c_sokal:.6g} - {d.device.cout_f:.6g} F (Sokal & Sokal 1975; choke compensation at f0)", "shunt")
     q = d.network.loaded_q
     l0 = q * r_ohm / b.w0
     b.add("series_c", "C", 1.0 / (b.w0**2 * l0), f"series resonator C0 = 1/(omega0^2 L0) (also the DC block)", "block")
