@@ -1,0 +1,49 @@
+"""The command line as a user meets it: help everywhere, even without the simulator."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+
+import pytest
+
+COMMANDS = ["demo", "size", "render", "run", "sweep", "check", "diff", "export", "doctor"]
+
+
+def _netgen(*args, env=None):
+    return subprocess.run([sys.executable, "-m", "netgen.cli", *args], capture_output=True, text=True,
+                          env=env, timeout=120)
+
+
+def _no_simulator_env():
+    env = dict(os.environ)
+    env["NGSPICE_LIBRARY_PATH"] = "/nonexistent/libngspice.so"  # PySpice's own variable
+    env["PATH"] = "/nonexistent"  # no ngspice executable either
+    return env
+
+
+def test_help_works_without_libngspice():
+    res = _netgen("--help", env=_no_simulator_env())
+    assert res.returncode == 0, res.stderr
+    for cmd in COMMANDS:
+        assert cmd in res.stdout
+
+
+@pytest.mark.parametrize("cmd", COMMANDS)
+def test_every_command_has_help_with_an_example(cmd):
+    res = _netgen(cmd, "--help", env=_no_simulator_env())
+    assert res.returncode == 0, res.stderr
+    assert "Example" in res.stdout
+
+
+def test_importing_the_cli_does_not_load_the_simulator():
+    # only netgen.engine imports PySpice (DESIGN.md), and only when a simulation runs
+    code = "import sys, netgen.cli, netgen.pipeline, netgen.design; print('PySpice' in sys.modules)"
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert res.stdout.strip() == "False", res.stderr
+
+
+def test_version():
+    res = _netgen("--version")
+    assert res.returncode == 0 and "netgen" in res.stdout
