@@ -20,15 +20,17 @@ window-mean drain waveform changed by less than tol (rms, relative). A slow
 drift makes q close to 1 and the prediction large, so consecutive cycles that
 agree to 0.1 % do not pass.
 
-Warm start
-----------
+Warm start and bias nulling
+---------------------------
 (a) a DC operating point of the passive network (``render(mode="op")``, the
 device replaced by a DC sink of the estimated Idc) gives the current of every
 inductor and the voltage of every capacitor; they become ``IC=`` values with
-``uic``. A shooting-style correction (restart with the DC state re-derived
-from the mean drain current measured after a few cycles) was tried and
-dropped: the early mean drain current still carries the tanks' build-up and
-moved the estimate away from the final Idc (docs/simulation.md).
+``uic``. (b) The run netlist gets zero-valued auxiliary DC sources across the
+feed inductors and in series with the DC blocks (:func:`with_aux_sources`);
+:class:`BiasNulling` sets them at a few cycle boundaries with ``alter`` so
+that the slow choke-block states sit at their periodic values, then keeps them
+constant (the circuit is then exactly equivalent to the real one: in the
+periodic state the sources deliver no average power). See docs/simulation.md.
 """
 
 from __future__ import annotations
@@ -45,7 +47,8 @@ from .design import SimSpec
 from .errors import SimulationError
 from .records import SizedDesign, Waveforms
 
-__all__ = ["simulate", "simulate_netlist", "SettleCheck", "judge", "dc_initial_conditions",
+__all__ = ["simulate", "simulate_netlist", "SettleCheck", "BiasNulling", "AuxSource", "with_aux_sources", "judge",
+           "dc_initial_conditions",
            "netlist_elements", "window_peaks"]
 
 #: cycles per chunk (ngspice stop/resume); small chunks stop sooner, large ones cost less overhead
@@ -54,6 +57,10 @@ CHUNK_CYCLES = 5
 NOISE_FRACTION = 0.05
 #: drain-voltage harmonics (DC..N f0) compared between windows
 HARMONICS_JUDGED = 5
+#: harmonic impedances are judged where the drain current is at least this fraction of I1
+Z_CURRENT_FLOOR = 0.01
+#: largest relative change of a judged harmonic impedance between the last two windows
+Z_CHANGE_TOL = 0.004
 
 
 # ---------------------------------------------------------------- netlist parsing helpers
@@ -95,15 +102,21 @@ def _rload(elements: dict) -> float:
 # ---------------------------------------------------------------- convergence
 
 def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
-          min_cycles: int) -> tuple[bool, str]:
+          min_cycles: int, iwaves: np.ndarray | None = None) -> tuple[bool, str]:
     """Decide from per-cycle values whether the run has settled.
 
     Parameters
     ----------
     series : dict of name -> ndarray
         One value per completed cycle (``pdc_w``, ``pload_w``), W.
-    waves : ndarray (cycles, m) or None
-        Drain voltage of each cycle on a uniform grid, V.
+    waves : ndarray (cycles, h) or None
+        Fourier coefficients DC..5f0 of each cycle's drain voltage, V.
+    iwaves : ndarray (cycles, h) or None
+        The same for the drain current, A. With it, the harmonic impedance V_n/I_n at every
+        harmonic whose current is at least 1 % of the fundamental must have stopped changing
+        (relative change between the last two windows below ``Z_CHANGE_TOL``): lightly damped
+        modes of a lossless line near a harmonic hardly touch the powers but move the small
+        odd-harmonic currents, and with them the reported impedances.
     tol : float
         Relative tolerance (sim.settle_tol).
     min_cycles : int
@@ -158,6 +171,18 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         change = float(np.sqrt(np.sum(np.abs(b - a) ** 2))) / scale
         if change >= tol:
             return False, f"drain waveform still changing ({change:.2g} relative), tolerance {tol:g}"
+        if iwaves is not None and len(iwaves) >= 2 * w:
+            ia = iwaves[-2 * w:-w].mean(axis=0)
+            ib = iwaves[-w:].mean(axis=0)
+            i1 = abs(ib[1])
+            for k in range(1, min(len(ib), len(b))):
+                if abs(ib[k]) < Z_CURRENT_FLOOR * i1 or abs(ia[k]) == 0.0 or abs(b[k]) == 0.0:
+                    continue
+                za, zb = a[k] / ia[k], b[k] / ib[k]
+                zchange = abs(zb - za) / abs(zb)
+                if zchange >= Z_CHANGE_TOL:
+                    return False, (f"drain impedance at {k} f0 still changing ({zchange:.2g} relative "
+                                   f"between windows of {w} cycles), tolerance {Z_CHANGE_TOL:g}")
     return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
 
 
@@ -180,13 +205,22 @@ class SettleCheck:
     pload_w: list = field(default_factory=list)
     idrain_a: list = field(default_factory=list)
     waves: list = field(default_factory=list)
+    iwaves: list = field(default_factory=list)
     settled: bool = False
     reason: str = ""
+    #: extra vectors whose cycle means are kept in ``means`` (vector name -> list, one per cycle)
+    extra: tuple = ()
+    means: dict = field(default_factory=dict)
+    #: the judge sees only cycles from this index on (cycles before a change of the circuit are not evidence)
+    judge_from: int = 0
+    #: cycles the judge needs after judge_from (line modes excited by the corrections must show)
+    judge_min_after: int = 6
     _buf: dict | None = None
 
     def _append(self, vecs) -> None:
         names = {"time": "time", "drain": "drain", "load": "load", "supply": "vdd#branch",
                  "idrain": "vidrain#branch"}
+        names.update({f"x:{v}": v for v in self.extra})
         new = {k: np.asarray(vecs[v], dtype=float) for k, v in names.items() if v in vecs}
         if self._buf is None:
             self._buf = new
@@ -212,34 +246,213 @@ class SettleCheck:
             isup = -np.interp(grid, buf["time"], buf["supply"])
             self.pdc_w.append(self.vdd_v * float(isup.mean()))
             self.pload_w.append(float(np.mean(vl ** 2)) / self.rload_ohm)
-            if "idrain" in buf:
-                self.idrain_a.append(float(np.interp(grid, buf["time"], buf["idrain"]).mean()))
+            idg = np.interp(grid, buf["time"], buf["idrain"]) if "idrain" in buf else None
+            if idg is not None:
+                self.idrain_a.append(float(idg.mean()))
+            for v in self.extra:
+                if f"x:{v}" in buf:
+                    self.means.setdefault(v, []).append(float(np.interp(grid, buf["time"], buf[f"x:{v}"]).mean()))
             self.waves.append(np.fft.rfft(vd)[:HARMONICS_JUDGED + 1] / m)
+            if idg is not None:
+                self.iwaves.append(np.fft.rfft(idg)[:HARMONICS_JUDGED + 1] / m)
             # drop what is no longer needed (keep one point before the next cycle)
             cut = max(int(np.searchsorted(buf["time"], t_b)) - 1, 0)
             for key in buf:
                 buf[key] = buf[key][cut:]
         n = len(self.pdc_w)
-        ok, why = judge({"pdc_w": np.array(self.pdc_w), "pload_w": np.array(self.pload_w)},
-                        np.array(self.waves) if self.waves else None, self.tol, self.min_cycles)
+        j = self.judge_from
+        ok, why = judge({"pdc_w": np.array(self.pdc_w[j:]), "pload_w": np.array(self.pload_w[j:])},
+                        np.array(self.waves[j:]) if self.waves[j:] else None, self.tol,
+                        max(self.min_cycles - j, self.judge_min_after) if j else self.min_cycles,
+                        np.array(self.iwaves[j:]) if len(self.iwaves) == len(self.waves) and self.iwaves[j:] else None)
+        if ok and j:
+            why = f"settled after {n} cycles ({n - j} judged after the last bias correction; {why.split('(', 1)[-1]}"
         self.settled, self.reason = ok, why
         pdc = self.pdc_w[-1] if self.pdc_w else float("nan")
         pl = self.pload_w[-1] if self.pload_w else float("nan")
         return ok, f"cycle {n}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
 
 
+# ---------------------------------------------------------------- nulling the slow bias mode
+
+#: cycle boundaries (cycles completed) at which the auxiliary bias sources are corrected
+CORRECT_AT = (6, 10, 14, 18, 22)
+#: cycles per stop once the corrections are done
+LATE_CHUNK_CYCLES = 2
+
+
+@dataclass(frozen=True)
+class AuxSource:
+    """One auxiliary DC source added for the bias correction (see :func:`with_aux_sources`).
+
+    ``kind`` is ``"feed"`` (a current source across a feed element, A) or ``"block"`` (a voltage
+    source in series with a DC-block capacitor, V); ``element`` its netlist name; ``node`` the
+    node whose cycle mean it steers (the block's DC side) or the saved feed current vector
+    (``l_feed#branch``); ``base``, ``slope``: that quantity's periodic cycle mean is
+    ``base + slope*Idc`` (from two DC operating points).
+    """
+
+    kind: str
+    element: str
+    vector: str
+    base: float
+    slope: float
+
+
+def with_aux_sources(netlist: str, feeds, blocks, dc_a: dict, dc_b: dict, idc_a: float,
+                     idc_b: float) -> tuple[str, list[AuxSource]]:
+    """The transient netlist with zero-valued auxiliary DC sources at the feed and DC-block elements.
+
+    ``I_AUX_FEED<k> a b DC 0`` in parallel with each feed element ``X a b`` and
+    ``V_AUX_BLOCK<k> d aux_blk<k> DC 0`` in series with each block capacitor on its DC side
+    ``d`` (the node with the larger DC voltage). At zero they change nothing; a constant value
+    changes no periodic voltage or current of the real circuit except the split of DC current
+    between the feed and its source, and the DC voltage of the capacitor (both dissipate no
+    average power in the periodic state: their DC quantity times a zero-mean partner).
+
+    Parameters
+    ----------
+    feeds, blocks : sequence of str
+        Element names (``L_feed``, ``C_block``); names not in the netlist are skipped.
+    dc_a, dc_b : dict
+        DC operating points of the passive network (``run_op`` vectors) with the drain sinking
+        ``idc_a`` and ``idc_b`` A; the periodic cycle means are affine in the mean drain current
+        (the network is linear; over a period an inductor's mean voltage and a capacitor's mean
+        current vanish, so the cycle means satisfy the DC equations).
+
+    Returns
+    -------
+    (netlist, sources)
+    """
+    lines = netlist.splitlines()
+    index = {}
+    for n, raw in enumerate(lines):
+        toks = raw.split()
+        if toks and not raw.lstrip().startswith(("*", "+", ".")):
+            index[toks[0].upper()] = n
+    out_extra: list[str] = []
+    sources: list[AuxSource] = []
+    span = idc_b - idc_a
+
+    def affine(key: str) -> tuple[float, float]:
+        a, b = float(dc_a.get(key, 0.0)), float(dc_b.get(key, 0.0))
+        slope = (b - a) / span
+        return a - slope * idc_a, slope
+
+    for k, name in enumerate(feeds):
+        n = index.get(name.upper())
+        if (n is None or not name.upper().startswith("L")
+                or n + 1 < len(lines) and lines[n + 1].lstrip().startswith("+")):
+            continue
+        toks = lines[n].split()
+        src = f"I_AUX_FEED{k or ''}"
+        out_extra.append(f"{src} {toks[1]} {toks[2]} DC 0")
+        vec = f"{toks[0].lower()}#branch"
+        base, slope = affine(vec)
+        sources.append(AuxSource("feed", src.lower(), vec, base, slope))
+    for k, name in enumerate(blocks):
+        n = index.get(name.upper())
+        if n is None or n + 1 < len(lines) and lines[n + 1].lstrip().startswith("+"):
+            continue
+        toks = lines[n].split()
+        va = 0.0 if toks[1] in ("0", "gnd") else float(dc_a.get(toks[1].lower(), 0.0))
+        vb = 0.0 if toks[2] in ("0", "gnd") else float(dc_a.get(toks[2].lower(), 0.0))
+        side = 1 if abs(va) >= abs(vb) else 2
+        node = toks[side]
+        if node in ("0", "gnd"):
+            continue
+        src, aux = f"V_AUX_BLOCK{k or ''}", f"aux_blk{k}"
+        toks[side] = aux
+        lines[n] = " ".join(toks)
+        out_extra.append(f"{src} {node} {aux} DC 0")
+        base, slope = affine(node.lower())
+        sources.append(AuxSource("block", src.lower(), node.lower(), base, slope))
+    if not sources:
+        return netlist, []
+    at = max(i for i, ln in enumerate(lines) if ln.strip()) if lines else 0
+    if lines[at].strip().lower().startswith(".end"):
+        lines[at:at] = out_extra
+    else:
+        lines += out_extra
+    return "\n".join(lines) + "\n", sources
+
+
+@dataclass
+class BiasNulling(SettleCheck):
+    """A :class:`SettleCheck` that also steers the auxiliary bias sources at cycle boundaries.
+
+    At each cycle count in ``correct_at`` (a deadbeat step on the two slow states):
+    Idc = cycle-mean drain current; each block source moves by the error of its DC node's cycle
+    mean against ``base + slope*Idc``; each feed source is set so that feed element + source
+    carry ``base + slope*Idc``. Cycle means are extrapolated half a cycle to the boundary with
+    the last two cycles' trend. After the last correction the sources stay constant (the circuit
+    is then exactly equivalent to the real one) and the judge sees only the cycles after it.
+    """
+
+    sources: list = field(default_factory=list)
+    correct_at: tuple = CORRECT_AT
+    late_chunk_cycles: int = LATE_CHUNK_CYCLES
+    values: dict = field(default_factory=dict)
+    log: list = field(default_factory=list)
+    scale_idc: bool = True
+
+    def _end(self, name: str, k: int) -> float:
+        """Cycle mean of ``name`` extrapolated to the boundary after cycle k: two-cycle means
+        (a period-2 component of line designs cancels), trend from the two pairs before."""
+        m = self.means[name] if name != "vidrain#branch" else self.idrain_a
+        last, prev = 0.5 * (m[k - 1] + m[k - 2]), 0.5 * (m[k - 3] + m[k - 4])
+        return last + 0.5 * (last - prev)
+
+    def __call__(self, t_end: float, vecs):
+        ok, message = super().__call__(t_end, vecs)
+        n = len(self.pdc_w)
+        T = self.period_s
+        pending = [c for c in self.correct_at if c > n]
+        if n in self.correct_at and self.sources and n >= 4 and len(self.idrain_a) >= n:
+            idc = self._end("vidrain#branch", n)
+            if self.scale_idc:
+                feed = [x for x in self.sources if x.kind == "feed"]
+                blk = [x for x in self.sources if x.kind == "block"]
+                if feed and blk:
+                    f_now = self._end(feed[0].vector, n) + self.values.get(feed[0].element, 0.0)
+                    vd = self._end(blk[0].vector, n)
+                    vt = blk[0].base + blk[0].slope * f_now
+                    idc = f_now * vt / vd if vd > 0 else idc
+            cmds = []
+            for src in self.sources:
+                target = src.base + src.slope * idc
+                old = self.values.get(src.element, 0.0)
+                if src.kind == "block":
+                    new = old - (self._end(src.vector, n) - target)
+                else:
+                    new = target - self._end(src.vector, n)
+                self.values[src.element] = new
+                cmds.append(f"alter {src.element} dc = {new:.12g}")
+            self.log.append((n, idc, dict(self.values)))
+            self.judge_from = n
+            ok, self.settled = False, False
+            message += f"; bias correction at cycle {n}"
+            nxt = pending[0] if pending else n + self.late_chunk_cycles
+            return False, message, engine.Resume(tuple(cmds), (nxt + 1e-6) * T)
+        if ok:
+            return ok, message
+        nxt = pending[0] if pending else n + self.late_chunk_cycles
+        return False, message, engine.Resume((), (nxt + 1e-6) * T)
+
+
 # ---------------------------------------------------------------- warm start
 
 def dc_initial_conditions(op_netlist: str, tran_netlist: str, *, backend: str = "shared",
-                          timeout_s: float = 60.0) -> dict[str, float]:
+                          timeout_s: float = 60.0, op: dict | None = None) -> dict[str, float]:
     """Initial conditions from a DC operating point of the passive network.
 
     Every inductor of the op netlist gets its DC branch current (A), every capacitor
     its DC voltage (V, first node minus second); the device's ``COUT`` gets the DC
     drain voltage. Only elements that exist in ``tran_netlist`` are returned, keyed
-    by their netlist spelling (``L_feed``).
+    by their netlist spelling (``L_feed``). ``op``: the op netlist's vectors when already run.
     """
-    op = engine.run_op(op_netlist, backend=backend, timeout_s=timeout_s)
+    if op is None:
+        op = engine.run_op(op_netlist, backend=backend, timeout_s=timeout_s)
     elems = netlist_elements(op_netlist)
     tran = {k.upper(): v for k, v in netlist_elements(tran_netlist).items()}
 
@@ -337,7 +550,7 @@ def window_peaks(t: np.ndarray, vecs, start_s: float, end_s: float) -> dict[str,
 def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: float, vdd_v: float,
                      sim: SimSpec | None = None, make_op: Callable[[float], str] | None = None,
                      idc_est_a: float | None = None, progress: Callable[[str], None] | None = None,
-                     backend: str | None = None) -> Waveforms:
+                     backend: str | None = None, feeds=(), blocks=()) -> Waveforms:
     """Run a transient netlist to periodic steady state.
 
     Parameters
@@ -355,6 +568,10 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
         ``idc_a``; needed for the warm start.
     idc_est_a : float, optional
         Expected DC current, A (the first warm start).
+    feeds, blocks : sequence of str, optional
+        Element names of the DC-feed inductors and DC-block capacitors (``L_feed``,
+        ``C_block``). With the warm start, auxiliary sources there null the slow bias mode
+        (:func:`with_aux_sources`, :class:`BiasNulling`); without them the run is plain.
 
     Returns
     -------
@@ -372,19 +589,35 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     save = nodes + branches
     warm = bool(sim.warm_start and make_op is not None and idc_est_a is not None)
     ic = None
+    sources: list[AuxSource] = []
     if warm:
-        ic = dc_initial_conditions(make_op(idc_est_a), probe, backend=backend, timeout_s=sim.timeout_s)
+        op_netlist = make_op(idc_est_a)
+        op = engine.run_op(op_netlist, backend=backend, timeout_s=sim.timeout_s)
+        ic = dc_initial_conditions(op_netlist, probe, op=op)
     netlist = make_tran(ic, tstop)
-    check = SettleCheck(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
-                        min_cycles=sim.min_cycles)
+    if warm and (feeds or blocks):
+        idc_b = 0.5 * idc_est_a if idc_est_a else 0.1
+        op_b = engine.run_op(make_op(idc_b), backend=backend, timeout_s=sim.timeout_s)
+        netlist, sources = with_aux_sources(netlist, feeds, blocks, op, op_b, idc_est_a, idc_b)
+    if sources:
+        extra = tuple(sorted({s_.vector for s_ in sources}))
+        save = save + [v for v in extra if v not in save]
+        check = BiasNulling(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
+                            min_cycles=sim.min_cycles, extra=extra, sources=sources,
+                            scale_idc=any(k.startswith("S") for k in elements),)
+        chunk = (CORRECT_AT[0] + 1e-6) * T
+    else:
+        check = SettleCheck(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
+                            min_cycles=sim.min_cycles)
+        chunk = CHUNK_CYCLES * T
     vecs = engine.run_transient(netlist, save=save, backend=backend, timeout_s=sim.timeout_s,
-                                stop_check=check, chunk_s=CHUNK_CYCLES * T, progress=progress,
-                                keep_s=3 * T)
+                                stop_check=check, chunk_s=chunk, progress=progress, keep_s=3 * T)
     check = vecs.checker
     t_s, v, i, _, peaks = _final_waveforms(vecs, f0_hz, sim.points_per_cycle, nodes, elements)
     settled = bool(check.settled)
     if settled:
-        note = check.reason + (" (warm start)" if warm else " (cold start)")
+        note = check.reason + (" (warm start, bias mode nulled)" if sources else
+                               " (warm start)" if warm else " (cold start)")
     else:
         note = (f"not settled within sim.max_cycles = {sim.max_cycles}: {check.reason}; "
                 "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
@@ -410,6 +643,11 @@ def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = Non
     def make_op(idc_a):
         return _render.render(sized, mode="op", idc_a=idc_a)
 
+    from .sizing import element_name
+
+    def names(role: str) -> list[str]:
+        return [element_name(c.name) for c in sized.components.values() if c.role == role]
+
     return simulate_netlist(make_tran, f0_hz=design.f0_hz, vdd_v=design.vdd_v, sim=design.sim,
                             make_op=make_op, idc_est_a=sized.idc_est_a, progress=progress,
-                            backend=backend)
+                            backend=backend, feeds=names("feed"), blocks=names("block"))
