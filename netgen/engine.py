@@ -34,6 +34,7 @@ import subprocess
 import sys
 import threading
 import time as _time
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -43,6 +44,7 @@ from .errors import SimulationError, SimulatorNotFoundError
 
 __all__ = [
     "Vectors",
+    "Resume",
     "run_transient",
     "run_ac",
     "run_op",
@@ -110,6 +112,45 @@ def _save_spelling(name: str) -> str:
     if low.startswith(("v(", "i(", "@")) or low == "time":
         return low
     return f"v({low})"
+
+
+@dataclass(frozen=True)
+class Resume:
+    """What a ``stop_check`` may ask for before the paused run resumes (third item of its verdict).
+
+    Attributes
+    ----------
+    commands : tuple of str
+        ngspice commands sent before ``resume``, e.g. ``("alter i_aux_feed dc = 0.0123",)``;
+        only ``alter`` and ``altermod`` are accepted, each at most MAX_COMMAND_CHARS long.
+    stop_at_s : float or None
+        Simulated time of the next stop, s (default: one ``chunk_s`` after the previous stop).
+    """
+
+    commands: tuple = ()
+    stop_at_s: float | None = None
+
+
+def _verdict(check, t_end: float, part) -> tuple[bool, str | None, Resume | None]:
+    """Call ``check(t_end, part)``: (stop, message, Resume or None) from a bool, (bool, msg) or (bool, msg, Resume)."""
+    out = check(t_end, part)
+    message, action = None, None
+    if isinstance(out, tuple):
+        out, message, action = (tuple(out) + (None, None))[:3]
+    if action is not None:
+        for c in action.commands:
+            word = c.strip().split(None, 1)[0].lower() if c.strip() else ""
+            if word not in ("alter", "altermod") or len(c) > MAX_COMMAND_CHARS or "\n" in c or ";" in c:
+                raise SimulationError(f"The stop_check asked for the command '{c[:60]}'; only single 'alter' / "
+                                      f"'altermod' commands up to {MAX_COMMAND_CHARS} characters are sent.")
+    return bool(out), message, action
+
+
+def _next_stop(t_next: float, t_end: float, chunk: float, action: Resume | None) -> float:
+    """Time of the next stop: the stop_check's ``stop_at_s`` if later than now, else one chunk on."""
+    if action is not None and action.stop_at_s is not None and action.stop_at_s > t_end:
+        return float(action.stop_at_s)
+    return max(t_next + chunk, t_end + 1e-3 * chunk)
 
 
 # ---------------------------------------------------------------- netlist checks
@@ -485,11 +526,9 @@ class _SharedSession:
                 done = t_end >= tstop * (1 - 1e-9)
                 if not done and t_end < t_next * (1 - 1e-9):
                     raise _short_run(t_end, tstop, text)
+                action = None
                 if check is not None:
-                    verdict = check(t_end, part)
-                    message = None
-                    if isinstance(verdict, tuple):
-                        verdict, message = verdict
+                    verdict, message, action = _verdict(check, t_end, part)
                     if message:
                         send(("progress", str(message)))
                     if verdict:
@@ -500,7 +539,10 @@ class _SharedSession:
                 if done:
                     break
                 self.cmd("delete all")
-                t_next += chunk
+                for c in action.commands if action else ():
+                    if self.cmd(c):
+                        raise _fail(f"command '{c[:60]}'", "\n".join(self.log))
+                t_next = _next_stop(t_next, t_end, chunk, action)
             text = "\n".join(self.log)
         full_t = self.fetch().get("time")
         start = 0
@@ -732,9 +774,11 @@ def run_transient(netlist: str, *, save: list[str] | None = None, backend: str =
     timeout_s : float
         Wall-clock limit, s; on expiry the run is killed and SimulationError raised.
     stop_check : callable, optional
-        ``stop_check(time_s, vectors) -> bool`` (or ``(bool, message)``), picklable; called
-        after each chunk with the points added since the previous call (the previous
-        chunk's last point included). True ends the run. With the shared library it runs
+        ``stop_check(time_s, vectors) -> bool`` (or ``(bool, message)`` or
+        ``(bool, message, Resume)``), picklable; called after each chunk with the points
+        added since the previous call (the previous chunk's last point included). True ends
+        the run. A :class:`Resume` sends its ``alter`` commands to the paused run before it
+        resumes and may set the next stop time. With the shared library it runs
         inside the worker process and keeps its state for the run; the object as it was
         at the end comes back as ``result.checker``.
     chunk_s : float, optional

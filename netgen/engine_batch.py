@@ -30,7 +30,8 @@ from pathlib import Path
 import numpy as np
 
 from .engine import (EXECUTABLE_ENV, LIBRARY_ENV, MAX_COMMAND_CHARS, _SENTINEL, _executable, _fail,
-                     _looks_failed, _save_spelling, _short_run, _tran_stop, canonical_name, run_op)
+                     _looks_failed, _next_stop, _save_spelling, _short_run, _tran_stop, _verdict, canonical_name,
+                     run_op)
 from .errors import SimulationError, SimulatorNotFoundError
 from .rawfile import read_raw
 
@@ -177,9 +178,10 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
             if t is None or not t.size or t[-1] < tstop * (1 - 1e-9):
                 raise _short_run(float(t[-1]) if t is not None and t.size else None, tstop, "\n".join(sess.log))
         else:
-            t_next, started, last = chunk, False, 0
+            t_next, started, last, action = chunk, False, 0, None
             while True:
                 cmds = ["delete all"] if started else []
+                cmds += list(action.commands) if action else []
                 if t_next < tstop * (1 - 1e-9):
                     cmds.append(f"stop when time > {t_next:.15g}")
                 cmds.append("resume" if started else "run")
@@ -196,11 +198,9 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
                 done = t_end >= tstop * (1 - 1e-9)
                 if not done and t_end < t_next * (1 - 1e-9):
                     raise _short_run(t_end, tstop, "\n".join(sess.log))
+                action = None
                 if check is not None:
-                    verdict = check(t_end, part)
-                    message = None
-                    if isinstance(verdict, tuple):
-                        verdict, message = verdict
+                    verdict, message, action = _verdict(check, t_end, part)
                     if message and progress is not None:
                         progress(str(message))
                     if verdict:
@@ -210,7 +210,7 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
                     progress(f"t = {t_end:.4g} s of {tstop:.4g} s")
                 if done:
                     break
-                t_next += chunk
+                t_next = _next_stop(t_next, t_end, chunk, action)
             vecs = sess.result("transient analysis")
         keep = opts.get("keep_s")
         if keep:

@@ -135,6 +135,13 @@ class Waveforms:
         points (not the resampled grid, which can step over a narrow switching
         spike): ``vd_max_v``, ``vd_min_v``, ``id_max_a``, ``id_min_a``. Empty
         when not available.
+    fourier : dict[str, ndarray]
+        Complex Fourier coefficients c_0..c_N over the settled window (N =
+        sim.harmonics), computed exactly from the simulator's own piecewise-linear
+        time points (no resampling): keys ``drain_v``, ``drain_i``, ``load_v``,
+        ``supply_i`` and others where available. Convention x(t) = c_0 +
+        sum |c_n| cos(n w0 t + angle c_n) (c_n, n >= 1, are peak amplitudes).
+        Empty when not available (the analysis then uses the uniform grid).
     """
 
     f0_hz: float
@@ -146,3 +153,4 @@ class Waveforms:
     history: dict = field(default_factory=dict)
     note: str = ""
     peaks: dict = field(default_factory=dict)
+    fourier: dict = field(default_factory=dict)

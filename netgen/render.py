@@ -32,6 +32,10 @@ DIALECTS = ("ngspice", "portable")
 #: default AC grid: this many points per f0 from f0/AC_POINTS_PER_F0 up to harmonics x f0
 AC_POINTS_PER_F0 = 50
 _MAX_AC_POINTS = 200_001
+#: Cout series time constant in maximum time steps (resolved by the trapezoidal rule)...
+COUT_TAU_STEPS = 4
+#: ...and at least this fraction of the period (fixed physics when points_per_cycle >= 500)
+COUT_TAU_PERIODS = 1.0 / 125.0
 _RLOSS = re.compile(r"^(RLOSS_\S+)\s+(\S+)\s+(\S+)\s+(\S+)", re.IGNORECASE | re.MULTILINE)
 
 
@@ -179,9 +183,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "vgate_amp_v": dev.vgate_amp_v,
         "conduction_angle_deg": dev.conduction_angle_deg,
     }
-    if dev.cout_f > 0:
-        import os
-        device["cout_rs_ohm"] = float(os.environ.get("NETGEN_J_TAU", "1")) * tmax / dev.cout_f
+    device["cout_rs_ohm"] = cout_series_ohm(dev.cout_f, period, tmax) if (lines and dev.cout_f > 0) else 0.0
     if dev.model == "switch":
         edge = dev.transition * period if dev.transition > 0 else period / 200.0
         pw = dev.duty * period - edge
@@ -221,6 +223,30 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "version": __version__,
         "digest": sized.digest(),
     }
+
+
+def cout_series_ohm(cout_f: float, period_s: float, tmax_s: float) -> float:
+    """Series resistance given to the device output capacitance in designs with lines, ohm.
+
+    R = tau / Cout with tau = max(COUT_TAU_STEPS * TMAX, COUT_TAU_PERIODS * T): an RC
+    corner at f0 / (2 pi COUT_TAU_PERIODS), about 20 f0, above the harmonics analysed.
+
+    Notes
+    -----
+    Why (measured on sims/demo.toml, see docs/simulation.md, "Hard switching with Cout"):
+    a quarter-wave line modelled with frequency-independent loss keeps undamped
+    resonances at every harmonic and returns each switching transient after exactly
+    T/2, i.e. at the next switching instant. With an ideal Cout (discharge time constant
+    Ron*Cout far below the step) the run never settled and the drain showed
+    4-6 x Vdd spikes; with this resistance it settles and agrees with a SPICE-free
+    harmonic-balance solution. The energy C V^2 / 2 of each hard turn-on is
+    independent of the resistance it is dissipated in (textbook RC charging), so the
+    discharge loss stays; it is reported as the ``cout`` loss (element ``RLOSS_cout``).
+    """
+    if cout_f <= 0:
+        return 0.0
+    tau_s = max(COUT_TAU_STEPS * tmax_s, COUT_TAU_PERIODS * period_s)
+    return tau_s / cout_f
 
 
 def _include(sized: SizedDesign, dialect: str) -> dict:

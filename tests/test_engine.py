@@ -336,3 +336,52 @@ def test_short_run_without_message_is_still_an_error():
     assert "minbreak" in err.hint
     err = engine._short_run(None, 1e-8, LOG_MID_RUN)
     assert "before its first time point" in str(err) and "Timestep too small" in str(err)
+
+
+# ---------------------------------------------------------------- alter commands between chunks
+
+ALTER_RC = """current source into a resistor
+I1 0 out DC 1m
+R1 out 0 1k
+C1 out 0 1f
+.tran 10p 10n 0 10p
+.end
+"""
+
+
+class AlterOnce:
+    """A picklable stop_check: at the first stop ask for I1 = 2 mA and a stop at 7 ns; never stop."""
+
+    def __init__(self, command="alter i1 dc = 2e-3"):
+        self.command = command
+        self.stops = []
+
+    def __call__(self, t, vec):
+        self.stops.append(t)
+        if len(self.stops) == 1:
+            return False, "altered", engine.Resume((self.command,), stop_at_s=7e-9)
+        return False, "", None
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("backend", ["shared", "batch"])
+def test_stop_check_alters_a_source_before_resume(backend):
+    res = engine.run_transient(ALTER_RC, backend=backend, chunk_s=2e-9, stop_check=AlterOnce(),
+                               save=["out"], timeout_s=60)
+    t, v = res["time"], res["out"]
+    # Ohm's law: 1 mA x 1 kOhm = 1 V before the alter at 2 ns, 2 mA x 1 kOhm = 2 V after
+    # (RC = 1 fs; the trapezoidal rule rings after the step and is below 1e-5 V within 1 ns).
+    assert np.all(np.abs(v[(t > 0.1e-9) & (t < 1.9e-9)] - 1.0) < 1e-6)
+    assert np.all(np.abs(v[t > 3e-9] - 2.0) < 1e-5)
+    stops = res.checker.stops
+    assert stops[0] == pytest.approx(2e-9, rel=0.02)
+    assert stops[1] == pytest.approx(7e-9, rel=0.02)  # Resume.stop_at_s sets the next stop
+    assert stops[2] == pytest.approx(9e-9, rel=0.02)  # then chunk_s again
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("backend", ["shared", "batch"])
+def test_stop_check_commands_other_than_alter_are_refused(backend):
+    with pytest.raises(SimulationError, match="only single 'alter'"):
+        engine.run_transient(ALTER_RC, backend=backend, chunk_s=2e-9, timeout_s=60,
+                             stop_check=AlterOnce("shell rm -rf x"))
