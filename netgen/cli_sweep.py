@@ -36,6 +36,12 @@ Tolerance Monte Carlo (the nominal design is sized, then scaled per sample):
   --tolerance "C*=5%" --tolerance "L*=2%" --tolerance "tank_l=1%"
   --samples 200 --seed 1 --dist normal     (normal: 5% is 3 sigma; uniform: +/-5%)
 \b
+The network is built once: by default it is sized for the nominal design and
+kept fixed while the supply, frequency, load or device vary (what a bench
+measurement sees). Sweeping a sizing input (design.pout, design.ropt or a
+network.* key) re-sizes it at every point; --resize / --fixed-network force
+either behaviour.
+\b
 Specs (a failed or not-settled point fails them):
   --spec "drain_efficiency>=0.70" --spec "h2_dbc<=-30" --spec "peak_vd_over_vdd<=3.6"
 
@@ -73,12 +79,14 @@ def _load_evaluator(text: str | None):
 @click.option("--workers", type=int, default=None, help="Local worker processes (default: the number of CPUs).")
 @click.option("--cluster", metavar="tcp://HOST:PORT", default=None, help="Run the points on a Dask distributed scheduler instead.")
 @click.option("--keep-waveforms", is_flag=True, help="Also write each point's settled waveforms to OUT/waveforms/point_<idx>.csv.")
+@click.option("--resize/--fixed-network", "resize", default=None,
+              help="Re-size the network at every point, or keep the nominal network (default: fixed, unless a sizing input is swept).")
 @click.option("--no-plots", is_flag=True, help="Skip the PNG plots.")
 @click.option("--list", "list_only", is_flag=True, help="Print the points and exit without simulating.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 @click.option("--evaluator", hidden=True, default=None, help="module:function evaluating a Design (tests, custom flows).")
 def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs, out, workers, cluster,
-                  keep_waveforms, no_plots, list_only, quiet, evaluator):
+                  keep_waveforms, resize, no_plots, list_only, quiet, evaluator):
     from .design import load_design
     from .store import STORE_NAME, SweepStore, export_csv
     from .sweep import make_plan, parse_spec, summarize
@@ -91,7 +99,7 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
     if not vary and not vswr and not tolerance:
         raise DesignError("nothing to sweep; give --vary, --vswr or --tolerance (see netgen sweep --help).")
     plan = make_plan(design.raw, source=design.source, vary=vary, vswr=vswr, tolerance=tolerance,
-                     samples=samples, seed=seed, dist=dist)
+                     samples=samples, seed=seed, dist=dist, resize=resize)
     if list_only:
         for idx in range(plan.n_points):
             click.echo(f"{idx}\t{json.dumps(plan.point(idx), sort_keys=True)}")

@@ -267,6 +267,8 @@ def _shunt(b: _Builder, base: str, b_s: float, how: str, role: str = "match") ->
 def _load_x(b: _Builder) -> None:
     """Series L (X > 0) or C (X < 0) of reactance design.load_x at f0, just before RLOAD."""
     x = b.design.load_x_ohm
+    if abs(x) <= 1e-9 * b.design.load_ohm:  # rounding noise of a computed load (e.g. on a VSWR circle)
+        return
     if x > 0:
         b.inductor_x("loadx_l", x, f"design.load_x = {x:.6g} ohm", "load")
     elif x < 0:

@@ -50,6 +50,7 @@ import numpy as np
 from .design import SCHEMA, design_from_dict, set_dotted
 from .errors import DesignError
 from .quantities import parse_quantity
+from .records import COMPONENT_UNITS
 
 __all__ = [
     "Variation",
@@ -61,6 +62,7 @@ __all__ = [
     "parse_tolerance",
     "parse_spec",
     "make_plan",
+    "pin_network",
     "load_circle",
     "metric_value",
     "point_passes",
@@ -75,6 +77,8 @@ KNOWN_METRICS = (
     "peak_vd_over_vdd", "peak_id_a", "cycles",
 )
 _HN = re.compile(r"^h([1-9][0-9]?)_dbc$")
+#: swept keys that are inputs of the sizing: sweeping them re-sizes the network at every point
+SIZING_INPUTS = ("design.pout", "design.ropt")
 
 Evaluator = Callable[[Any], dict]
 ProgressFn = Callable[[int, int, dict], None]
@@ -249,7 +253,8 @@ def load_circle(vswr: float, n: int, rl_ohm: float) -> list[tuple[float, float, 
         phi = 2.0 * math.pi * k / n
         g = mag * complex(math.cos(phi), math.sin(phi))
         z = rl_ohm * (1 + g) / (1 - g)
-        out.append((math.degrees(phi), z.real, z.imag))
+        x = z.imag if abs(z.imag) > 1e-12 * rl_ohm else 0.0  # exactly real at 0 and 180 degrees
+        out.append((math.degrees(phi), z.real, x))
     return out
 
 
@@ -482,6 +487,7 @@ def make_plan(
     seed: int = 1,
     dist: str = "normal",
     sizer: Callable | None = None,
+    resize: bool | None = None,
 ) -> SweepPlan:
     """Build and check a plan from the command-line texts.
 
@@ -489,9 +495,22 @@ def make_plan(
     DesignError naming the key) before anything runs. With tolerances the
     nominal design is sized once (``sizer``, default :func:`netgen.sizing.size`)
     to find the components the patterns match.
+
+    ``resize``: whether every point re-sizes its network. A built network does not
+    change when the supply, the frequency, the load or the device change, so by
+    default (``None``) the nominal network is sized once and its values are pinned
+    into every point (``[network.values]``) -- unless a swept key is itself a sizing
+    input (``design.pout``, ``design.ropt``, any ``network.*`` key), which asks for
+    a design exploration where each point is sized anew.
     """
     variations = [parse_vary(v) for v in vary]
     base = design_from_dict(base_doc, source=source, where=str(source or "design"))
+    swept = {p for v in variations for s in v.sets for p in s}
+    if resize is None:
+        resize = any(p in SIZING_INPUTS or (p.startswith("network.") and not p.startswith("network.values."))
+                     for p in swept)
+    if not resize:
+        base_doc = pin_network(base_doc, base, sizer)
     if vswr:
         touched = {p for v in variations for s in v.sets for p in s}
         if touched & {"design.load", "design.load_x"}:
@@ -548,6 +567,26 @@ def make_plan(
         plan.factors = factors
         plan.sizer = sizer
     return plan
+
+
+def pin_network(base_doc: dict, base, sizer: Callable | None = None) -> dict:
+    """``base_doc`` with every sized component value written into ``[network.values]``.
+
+    Values the user already set stay as written; the load reactance (role ``load``)
+    is left to follow ``design.load_x``. The result sizes to the same network whatever
+    the supply, frequency, load or device of a point.
+    """
+    size_fn = sizer
+    if size_fn is None:
+        from .sizing import size as size_fn
+    sized = size_fn(base)
+    user = dict(base.network.values)
+    doc = base_doc
+    for comp in sized.components.values():
+        if comp.name in user or comp.role == "load":
+            continue
+        doc = set_dotted(doc, f"network.values.{comp.name}", f"{comp.value:.12g} {COMPONENT_UNITS[comp.kind]}")
+    return doc
 
 
 # ---------------------------------------------------------------- summary
