@@ -559,3 +559,25 @@ def test_cli_reports_failures_and_exits_zero(tmp_path):
     assert "4 points: 2 ok, 0 not settled, 2 failed (0 already stored, 4 run now)." in stdout
     assert ("  point 1 failed: SimulationError: ngspice: timestep too small Hint: lower points_per_cycle "
             "(and 1 more; see the error column of sweep.csv)") in stdout
+
+
+# ---------------------------------------------------------------- a built network stays built
+
+def test_operating_point_sweeps_keep_the_nominal_network():
+    # A bench measurement of a built amplifier changes the supply or the drive frequency, not the
+    # parts (common practice): a frequency sweep must not re-tune the network to each frequency.
+    from netgen.sizing import size
+    from netgen.sweep_exec import _point_design
+
+    nominal = size(design_from_dict(BASE))
+    plan = make_plan(BASE, vary=["design.f0=0.9GHz,1.1GHz"])
+    for idx in range(plan.n_points):
+        design, _ = _point_design(plan.base_doc, None, plan.point(idx))
+        sized = size(design)
+        for name, comp in nominal.components.items():
+            assert sized.components[name].value == pytest.approx(comp.value, rel=1e-9), name
+    # asked for, or when a sizing input is swept, every point is sized anew
+    for plan in (make_plan(BASE, vary=["design.f0=0.9GHz,1.1GHz"], resize=True),
+                 make_plan(BASE, vary=["design.ropt=80ohm,120ohm"])):
+        design, _ = _point_design(plan.base_doc, None, plan.point(0))
+        assert size(design).components["tank_l"].value != pytest.approx(nominal.components["tank_l"].value, rel=1e-3)
