@@ -12,14 +12,13 @@ attribute names end in their unit (``f0_hz``).
 
 from __future__ import annotations
 
-import dataclasses
 import difflib
 import math
 import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import DesignError
 from .quantities import parse_quantity

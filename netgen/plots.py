@@ -12,7 +12,6 @@ grey), units in every axis label.
 from __future__ import annotations
 
 import io
-import math
 from pathlib import Path
 
 import matplotlib

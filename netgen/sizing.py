@@ -463,7 +463,7 @@ def size_class_e(b: _Builder, r_ohm: float) -> None:
           f"{c_total - c_sokal:.6g} - {d.device.cout_f:.6g} F (Sokal & Sokal 1975; choke compensation at f0)", "shunt")
     q = d.network.loaded_q
     l0 = q * r_ohm / b.w0
-    b.add("series_c", "C", 1.0 / (b.w0**2 * l0), f"series resonator C0 = 1/(omega0^2 L0) (also the DC block)", "block")
+    b.add("series_c", "C", 1.0 / (b.w0**2 * l0), "series resonator C0 = 1/(omega0^2 L0) (also the DC block)", "block")
     b.add("series_l", "L", l0, f"series resonator L0 = Q R/omega0, loaded Q={q:g}, R = {r_ohm:.6g} ohm", "resonator")
     b.add("excess_l", "L", E_EXCESS_K * r_ohm / b.w0, "class-E excess reactance X = 1.1525 R at f0 (Sokal & Sokal 1975; Raab 1977)", "series")
     l_section(b, r_ohm, 0.0, d.load_ohm, f"R = {r_ohm:.6g} ohm")
