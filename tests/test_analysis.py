@@ -13,10 +13,12 @@ from netgen.analysis import (
     analyse,
     device_loss_split,
     fourier,
+    fourier_pwl,
     harmonic_impedance,
     parse_loss_elements,
     parse_spice_number,
     periods_in,
+    pwl_mean_square,
     waveform_efficiency,
 )
 from netgen.design import Design, DeviceSpec, SimSpec
@@ -95,6 +97,109 @@ def test_fourier_agrees_with_scipy_periodogram_convention():
     X = rfft(x)
     c = fourier(x, 3, 7)
     assert_allclose(np.abs(c[1:]), 2 * np.abs(X[3:22:3]) / x.size, rtol=1e-12)
+
+
+# ------------------------------------------- exact Fourier of the simulator's points
+
+T0 = 1 / F0
+
+
+def pulse_coefficients(amp, duty, n_max):
+    """Fourier series of a pulse train, amp for 0 <= t < duty*T, 0 after (direct integration, any
+    signals-and-systems textbook): c_0 = amp*duty, c_n = (amp/(j pi n)) (1 - exp(-j 2 pi n duty))."""
+    n = np.arange(1, n_max + 1)
+    return np.concatenate(([amp * duty], amp / (1j * math.pi * n) * (1 - np.exp(-2j * math.pi * n * duty))))
+
+
+def test_pwl_square_wave_with_the_jump_between_grid_samples_is_exact():
+    # 0..2Vdd square wave whose falling edge sits at 0.5003 T, between the 1000-per-period grid
+    # points; the simulator's points hold the jump as two points at the same time (and the rising
+    # edge at the period boundary). Fourier series of a square wave: V1 = (4/pi) Vdd, V3 = V1/3
+    # (REFERENCES.md) for 50 % duty; the pulse-train series above for any duty.
+    rng = np.random.default_rng(3)
+    for duty in (0.5, 0.5003):
+        t_in = np.sort(rng.uniform(0, 2 * T0, 3000))
+        t_in = t_in[np.abs(np.mod(t_in / T0, 1.0) - duty) > 1e-6]
+        edges = np.array([0.0, duty * T0, duty * T0, T0, T0, (1 + duty) * T0, (1 + duty) * T0, 2 * T0])
+        vals = np.array([2 * VDD, 2 * VDD, 0.0, 0.0, 2 * VDD, 2 * VDD, 0.0, 0.0])
+        t_in_x = np.where(np.mod(t_in / T0, 1.0) < duty, 2 * VDD, 0.0)
+        order = np.argsort(np.concatenate((t_in, edges)), kind="stable")
+        t = np.concatenate((t_in, edges))[order]
+        x = np.concatenate((t_in_x, vals))[order]
+        c = fourier_pwl(t, x, 0.0, T0, 7, periods=2)
+        assert_allclose(c, pulse_coefficients(2 * VDD, duty, 7), rtol=1e-10, atol=1e-10 * VDD)
+    assert_allclose(abs(fourier_pwl(t, x, 0.0, T0, 1, 2)[1]), 4 / math.pi * VDD, rtol=1e-5)
+    # the same edge on a uniform 1000-point grid (FFT of the samples) is off by up to a grid step
+    tg = np.arange(2000) * (T0 / 1000)
+    xg = np.where(np.mod(tg / T0, 1.0) < 0.5003, 2 * VDD, 0.0)
+    c_grid = fourier(xg, 2, 7)
+    c_true = pulse_coefficients(2 * VDD, 0.5003, 7)
+    assert abs(c_grid[4] - c_true[4]) > 0.01 * abs(c_true[4])
+
+
+def test_pwl_nearly_vertical_edge_is_stable():
+    # a jump spread over 1e-18 s (a tiny segment; z = n w h/2 ~ 1e-8): the series branch of the
+    # kernel keeps it exact; the result equals the vertical jump (pulse series above) to the ramp's
+    # own area, 2 V x 1e-18 s / 2 over T = 1e-9 V (2e-9 on c_n)
+    t = np.array([0.0, 0.25 * T0, 0.5 * T0, 0.5 * T0 + 1e-18, 0.8 * T0, T0])
+    x = np.array([2.0, 2.0, 2.0, 0.0, 0.0, 0.0])
+    c = fourier_pwl(t, x, 0.0, T0, 9)
+    assert np.all(np.isfinite(c))
+    assert_allclose(c, pulse_coefficients(2.0, 0.5, 9), rtol=0, atol=3e-9)
+
+
+def test_pwl_sampled_sine_follows_the_linear_interpolation_transfer_sinc_squared():
+    # N uniform samples of A cos(n w t + phi) joined by straight lines: linear interpolation is
+    # convolution with a triangle whose transform is sinc^2, so the PWL signal's harmonic n is
+    # A sinc^2(pi n / N) e^{j phi} exactly (sampling theory, any DSP textbook); N = 16.
+    N = 16
+    t = np.arange(3 * N + 1) * (T0 / N)
+    for n, phi in ((1, 0.3), (3, -1.2)):
+        x = 2.5 * np.cos(n * 2 * math.pi * F0 * t + phi)
+        c = fourier_pwl(t, x, 0.0, T0, 5, periods=3)
+        expected = 2.5 * np.sinc(n / N) ** 2 * np.exp(1j * phi)
+        assert_allclose(c[n], expected, rtol=1e-12)
+        others = np.delete(np.abs(c), n)
+        assert np.all(others < 1e-12)
+
+
+def test_pwl_triangle_wave_sampled_at_its_vertices():
+    # a triangle wave is piecewise linear, so its vertices give it exactly; Fourier series of a
+    # triangle wave swinging -1..1 (peak at t = 0): c_n = 8/(pi^2 n^2) for odd n, 0 for even
+    # (any signals-and-systems textbook); its mean square is 1/3 (RMS of a triangle = A/sqrt 3).
+    t = np.array([0.0, 0.5, 1.0, 1.5, 2.0]) * T0
+    x = np.array([1.0, -1.0, 1.0, -1.0, 1.0])
+    c = fourier_pwl(t, x, 0.0, T0, 7, periods=2)
+    n = np.arange(8)
+    expected = np.where(n % 2 == 1, 8 / (math.pi**2 * np.maximum(n, 1) ** 2), 0.0)
+    assert_allclose(c, expected, atol=1e-12)
+    assert_allclose(pwl_mean_square(t, x, 0.0, 2 * T0), 1 / 3, rtol=1e-12)
+
+
+def test_pwl_agrees_with_numpy_fft_on_a_dense_smooth_signal():
+    # x = exp(cos wt + 0.3 sin 2wt): smooth and not band-limited. On 4096 uniform points a
+    # period numpy.fft (analysis.fourier) and the PWL integral agree to the interpolation
+    # error (sinc^2(pi n/N) - 1 ~ 2e-6 at n = 5).
+    N = 4096
+    t = np.arange(2 * N + 1) * (T0 / N)
+    th = 2 * math.pi * F0 * t
+    x = np.exp(np.cos(th) + 0.3 * np.sin(2 * th))
+    c_pwl = fourier_pwl(t, x, 0.0, T0, 5, periods=2)
+    c_fft = fourier(x[:-1], 2, 5)
+    assert_allclose(c_pwl, c_fft, rtol=1e-5, atol=1e-8)
+
+
+def test_pwl_window_is_clipped_and_phase_referenced_to_its_start():
+    # the window [t0, t0 + T] starts between points; phase reference t0: A cos(w t + phi) has
+    # c_1 = A exp(j (w t0 + phi)) (time shift property of the Fourier series)
+    t = np.sort(np.random.default_rng(5).uniform(0, 3 * T0, 40000))
+    t = np.concatenate(([0.0], t, [3 * T0]))
+    x = 1.5 * np.cos(2 * math.pi * F0 * t + 0.4)
+    t0 = 1.2345 * T0
+    c = fourier_pwl(t, x, t0, T0, 2)
+    assert_allclose(c[1], 1.5 * np.exp(1j * (2 * math.pi * 1.2345 + 0.4)), rtol=1e-6)
+    with pytest.raises(ValueError, match="not the window"):
+        fourier_pwl(t, x, 2.5 * T0, T0, 2)
 
 
 def test_periods_in_rejects_fractional_grid():
@@ -306,8 +411,9 @@ def test_simulated_class_f_line_matches_network_analysis():
         if h["z_re_ohm"] is None or h["id_a"] < 0.01 * m["harmonics"][0]["id_a"]:
             continue
         z_tr = complex(h["z_re_ohm"], h["z_im_ohm"])
-        # 4 % of |Z|: the time step (T/1000, i.e. T/5000 per 5th-harmonic period) limits the accuracy
-        # near the high-impedance odd harmonics (NGSPICE_NOTES.md: step error ~0.2 % of power at T/1000)
-        assert abs(z_tr - z_net[h["n"] - 1]) < 0.04 * abs(z_net[h["n"] - 1]), (h["n"], z_tr, z_net[h["n"] - 1])
+        # 2 % of |Z| (the issue's requirement): V_n and I_n are exact integrals of ngspice's own
+        # time points (fourier_pwl), so a switching jump keeps its timing; resampling on the
+        # uniform grid was 16-47 % off at the 4f0 short
+        assert abs(z_tr - z_net[h["n"] - 1]) < 0.02 * abs(z_net[h["n"] - 1]), (h["n"], z_tr, z_net[h["n"] - 1])
     # the bound is the ideal one and the simulated circuit (lossy tank) stays below it
     assert m["drain_efficiency"] < m["bound"]["efficiency"]
