@@ -63,6 +63,8 @@ Z_CURRENT_FLOOR = 0.01
 #: largest change of a judged harmonic impedance between the last two windows, relative to
 #: max(|Z_n|, Z_SCALE_FRACTION*|Z_1|)
 Z_CHANGE_TOL = 0.004
+#: ... at the default settle_tol of 1e-3; it scales with sim.settle_tol (Z_CHANGE_TOL * settle_tol / 1e-3)
+Z_TOL_PER_SETTLE_TOL = Z_CHANGE_TOL / 1e-3
 #: impedances below this fraction of |Z_1| (harmonic shorts: the voltage they leave is under 5 %
 #: of V_1 x I_n/I_1) are judged against it: the integrator's own cycle-to-cycle scatter of a
 #: near-zero V_n is ~1e-3 |Z_1| |I_n| (measured on sims/class_f_feed.toml: |Z_2|, |Z_4| ~ 0.3 ohm,
@@ -192,9 +194,10 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
                     continue
                 za, zb = a[k] / ia[k], b[k] / ib[k]
                 zchange = abs(zb - za) / max(abs(zb), Z_SCALE_FRACTION * z1)
-                if zchange >= Z_CHANGE_TOL:
+                ztol = Z_TOL_PER_SETTLE_TOL * tol
+                if zchange >= ztol:
                     return False, (f"drain impedance at {k} f0 still changing ({zchange:.2g} relative "
-                                   f"between windows of {w} cycles), tolerance {Z_CHANGE_TOL:g}")
+                                   f"between windows of {w} cycles), tolerance {ztol:g}")
     return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
 
 

@@ -400,7 +400,9 @@ def test_simulated_class_f_line_matches_network_analysis():
     from netgen.steady import simulate
 
     design = load_design(Path(__file__).parents[1] / "sims" / "class_f_line.toml")
-    design = replace(design, sim=replace(design.sim, points_per_cycle=1000, max_cycles=400))
+    # settle_tol 2.5e-4 (the harmonic-impedance judge scales with it): the 4f0 short of this
+    # lossy line drifts slowly for a few hundred cycles after the powers have settled
+    design = replace(design, sim=replace(design.sim, points_per_cycle=1000, max_cycles=1500, settle_tol=2.5e-4))
     sz = size(design)
     wf = simulate(sz)
     m = analyse(wf, sz, render(sz, mode="tran"))
