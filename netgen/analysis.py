@@ -536,4 +536,20 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     }
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
+    metrics["warnings"] = design_warnings(sized, metrics)
     return metrics
+
+
+def design_warnings(sized, metrics: dict) -> list[str]:
+    """Plain sentences about results a user should not take at face value."""
+    d = sized.design
+    out = []
+    has_line = any(c.kind == "Z0" for c in sized.components.values())
+    if d.device.model == "switch" and d.device.cout_f == 0.0 and d.device.transition == 0.0 and has_line:
+        out.append("an abrupt switch with no output capacitance interrupts current into a transmission line: "
+                   "the drain peak includes edge spikes the time step does not resolve; set device.cout "
+                   "(or device.transition) for a trustworthy peak voltage")
+    balance = metrics.get("loss_balance_error")
+    if balance is not None and abs(balance) > 0.01:
+        out.append(f"the loss budget misses {balance:+.1%} of Pdc: raise sim.points_per_cycle for a closer balance")
+    return out

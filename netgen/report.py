@@ -13,6 +13,7 @@ import html
 import io
 import json
 import math
+import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -40,6 +41,7 @@ h1{font-size:24px;margin:8px 0 2px;color:#14394f}
 h2{font-size:17px;margin:28px 0 8px;padding-bottom:3px;border-bottom:2px solid #1d5f8a;color:#14394f}
 .sub{color:#5c636a;margin:0 0 14px}
 .banner{background:#b3261e;color:#fff;font-weight:bold;font-size:20px;padding:14px 18px;margin:10px 0;border-radius:4px}
+.warn{background:#fff4e0;border-left:4px solid #c77700;padding:8px 12px}
 .banner small{display:block;font-weight:normal;font-size:14px;margin-top:4px}
 .ok{background:#e6f2e4;color:#24571f;padding:6px 12px;border-radius:4px;display:inline-block}
 .cards{display:flex;flex-wrap:wrap;gap:10px}
@@ -131,6 +133,8 @@ def format_table(metrics: dict) -> str:
              f"Vdd {_si(d.get('vdd_v'), 'V')}  cycles {metrics.get('cycles', '?')}"]
     if not metrics.get("settled", False):
         lines.append("*** NOT SETTLED: values below are not periodic steady state ***")
+    for text in metrics.get("warnings") or ():
+        lines.extend(textwrap.wrap(f"Note: {text}.", 78, subsequent_indent="  "))
     bound = metrics.get("bound") or {}
     pairs = [
         ("Pout (W)", _num(metrics.get("pout_w")), "Pdc (W)", _num(metrics.get("pdc_w"))),
@@ -267,6 +271,8 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                      f"describes a transient, not the amplifier. {_e(metrics.get('settle_note') or '')}</small></div>")
     else:
         parts.append(f"<p class=ok>Settled after {_e(metrics.get('cycles'))} cycles. {_e(metrics.get('settle_note') or '')}</p>")
+    for text in metrics.get("warnings") or ():
+        parts.append(f"<p class=warn>Note: {_e(text)}.</p>")
 
     cards = [
         ("output power (fundamental)", _si(metrics.get("pout_w"), "W")),

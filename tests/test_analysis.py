@@ -419,3 +419,20 @@ def test_simulated_class_f_line_matches_network_analysis():
         assert abs(z_tr - z_net[h["n"] - 1]) < 0.02 * abs(z_net[h["n"] - 1]), (h["n"], z_tr, z_net[h["n"] - 1])
     # the bound is the ideal one and the simulated circuit (lossy tank) stays below it
     assert m["drain_efficiency"] < m["bound"]["efficiency"]
+
+
+def test_warnings_name_what_to_change():
+    # an abrupt switch with no output capacitance into a line leaves unresolved edge spikes
+    # (docs/simulation.md, "Hard switching with Cout"); a loss budget off by more than 1 % is said
+    from netgen.analysis import design_warnings
+    from netgen.design import design_from_dict
+    from netgen.sizing import size
+
+    doc = {"design": {"name": "w", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V", "ropt": "100 ohm"},
+           "device": {"model": "switch"}}
+    bare = design_warnings(size(design_from_dict(doc)), {"loss_balance_error": 0.002})
+    assert len(bare) == 1 and "set device.cout" in bare[0]
+    doc["device"]["cout"] = "0.1 pF"
+    assert design_warnings(size(design_from_dict(doc)), {"loss_balance_error": 0.002}) == []
+    off = design_warnings(size(design_from_dict(doc)), {"loss_balance_error": -0.025})
+    assert off == ["the loss budget misses -2.5% of Pdc: raise sim.points_per_cycle for a closer balance"]
