@@ -616,6 +616,26 @@ def drain_hf_capacitance(sized: SizedDesign) -> float:
     return 1.0 / sum(1.0 / sized.value(n) for n in names)
 
 
+def cout_switching_loss(sized: SizedDesign) -> float:
+    """Expected loss of the device output capacitance in a class-F switch design, W.
+
+    The square drain voltage is about 2 Vdd when the switch closes: 1/2 Cout (2 Vdd)^2 f0 is
+    dumped into the switch (energy of a charged capacitor). With transmission lines Cout carries
+    a series resistance (:func:`netgen.render.cout_series_ohm`) that also takes the charging
+    energy at turn-off, so twice that. Class E and inverse class F switch at (near) zero voltage:
+    0. Our estimate; it only seeds the warm start.
+    """
+    from .topologies import resolve_topology
+
+    d = sized.design
+    if d.device.model != "switch" or d.device.cout_f <= 0.0:
+        return 0.0
+    if resolve_topology(d).name not in ("class_f_line", "class_f_feed", "class_f_lumped"):
+        return 0.0
+    has_line = any(c.kind == "Z0" for c in sized.components.values())
+    return (2.0 if has_line else 1.0) * 0.5 * d.device.cout_f * (2.0 * d.vdd_v) ** 2 * d.f0_hz
+
+
 def switch_dc_estimate(sized: SizedDesign, pout_w: float, veff_v: float) -> dict:
     """Expected DC supply current of a switch (or user SPICE) device, A.
 
@@ -667,6 +687,7 @@ def switch_dc_estimate(sized: SizedDesign, pout_w: float, veff_v: float) -> dict
     pfund = pout_w * ratio
     bound = bound_for(sized).get("efficiency") or 1.0
     pcap = 0.5 * drain_hf_capacitance(sized) * (2.0 * design.vdd_v) ** 2 * f0
+    pcap += cout_switching_loss(sized)
     idc = (pfund / bound + pcap) / veff_v
     how = (f"Idc = (P1/eta_b + P_cap)/Vdd_eff, P1 = P x{how_g} {ratio:.4g}, eta_b = {bound:.4g} "
            f"(theory.bound_for, Raab 2001), P_cap = {pcap:.4g} W hard switching (our estimate)")
