@@ -35,7 +35,14 @@ if [ ! -x .venv/bin/python ]; then
   "$PY" -m venv .venv
 fi
 .venv/bin/python -m pip install -q --upgrade pip >/dev/null 2>&1 || true
-.venv/bin/python -m pip install -q -e ".[test]"
+log="$(mktemp)"
+echo "Installing netgen and its Python dependencies into .venv ..."
+if ! .venv/bin/python -m pip install -q -e ".[test]" >"$log" 2>&1; then
+  cat "$log" >&2
+  echo "pip could not install netgen (output above)." >&2
+  exit 1
+fi
+rm -f "$log"
 
 if [ "$what" = demo ]; then
   exec .venv/bin/netgen demo -o netgen-demo
