@@ -270,7 +270,9 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                      f"{_e(metrics.get('cycles'))} cycles before reaching periodic steady state; every number below "
                      f"describes a transient, not the amplifier. {_e(metrics.get('settle_note') or '')}</small></div>")
     else:
-        parts.append(f"<p class=ok>Settled after {_e(metrics.get('cycles'))} cycles. {_e(metrics.get('settle_note') or '')}</p>")
+        note = metrics.get("settle_note") or ""
+        lead = "" if note.lower().startswith("settled") else f"Settled after {_e(metrics.get('cycles'))} cycles. "
+        parts.append(f"<p class=ok>{lead}{_e(note[:1].upper() + note[1:])}</p>")
     for text in metrics.get("warnings") or ():
         parts.append(f"<p class=warn>Note: {_e(text)}.</p>")
 
