@@ -571,7 +571,7 @@ def size(design: Design) -> SizedDesign:
         derived["idc_est_a"] = (idc, "A", est["how"])
         derived["pfund_drain_est_w"] = (est["pfund_w"], "W", "P1 = a Vdd_eff^2 Re(Y1)/Re(Y1 lossless): the class formula with the sized network's f0 admittance")
         if est["pcap_w"] > 0:
-            derived["hard_switching_est_w"] = (est["pcap_w"], "W", "1/2 C_hf (2 Vdd)^2 f0: the capacitance the drain sees at high harmonics, discharged by the switch each turn-on (estimate)")
+            derived["hard_switching_est_w"] = (est["pcap_w"], "W", "1/2 C_hf (2 Vdd)^2 f0 (the network capacitance the drain sees at high harmonics) + the device Cout loss (cout_switching_loss): discharged by the switch each turn-on (estimate)")
         pout_est = pout
     if "line_td" in comps or "feedline_td" in comps:
         base = "line" if "line_td" in comps else "feedline"
