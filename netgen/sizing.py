@@ -357,6 +357,16 @@ def _resonator_z(design: Design, ropt: float) -> tuple[float, str]:
 
 # ---------------------------------------------------------------- topologies
 
+def _feed_block_transformer(b: _Builder, ropt: float) -> None:
+    """Choke at the drain, DC block, and a quarter-wave line Z0 = sqrt(Ropt RL) that presents
+    Ropt at f0 for the load RL (Pozar, the quarter-wave transformer)."""
+    b.feed(ropt)
+    b.block(ropt)
+    rl = b.design.load_ohm
+    b.quarter_wave("line", math.sqrt(ropt * rl),
+                   f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {rl:.6g}) (Pozar, quarter-wave transformer)")
+
+
 def size_class_f_line(b: _Builder, ropt: float) -> None:
     """Class F with a quarter-wave series line and a parallel f0 tank at the load.
 
@@ -365,10 +375,7 @@ def size_class_f_line(b: _Builder, ropt: float) -> None:
     drain (Pozar, the quarter-wave transformer; Raab 1997).
     """
     d = b.design
-    b.feed(ropt)
-    b.block(ropt)
-    z0 = math.sqrt(ropt * d.load_ohm)
-    b.quarter_wave("line", z0, f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {d.load_ohm:.6g}) (Pozar, quarter-wave transformer)")
+    _feed_block_transformer(b, ropt)
     b.parallel_tank("tank", d.load_ohm, d.network.loaded_q, "RL")
     _load_x(b)
 
@@ -428,10 +435,7 @@ def size_inverse_f_line(b: _Builder, ropt: float) -> None:
     short at odd and open at even harmonics at the drain (Pozar, quarter-wave transformer).
     """
     d = b.design
-    b.feed(ropt)
-    b.block(ropt)
-    z0 = math.sqrt(ropt * d.load_ohm)
-    b.quarter_wave("line", z0, f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {d.load_ohm:.6g}) (Pozar, quarter-wave transformer)")
+    _feed_block_transformer(b, ropt)
     b.series_resonator("res", d.load_ohm, d.network.loaded_q, "RL")
     _load_x(b)
 
