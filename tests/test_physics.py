@@ -187,3 +187,26 @@ def test_a_design_that_cannot_settle_is_flagged():
     })
     assert r.metrics["settled"] is False
     assert r.waveforms.settled is False
+
+
+# ---------------------------------------------------------------- the two simulator paths agree
+
+@pytest.mark.parametrize("name", ["class_e", "demo"])
+def test_shared_library_and_batch_executable_give_the_same_metrics(name):
+    # the same netlist through libngspice (PySpice) and through the ngspice executable: the
+    # numbers a user reads must not depend on the path (within 0.1 %)
+    import dataclasses
+    from pathlib import Path
+
+    from netgen.design import load_design
+
+    base = load_design(Path(__file__).parents[1] / "sims" / f"{name}.toml")
+    got = {}
+    for backend in ("shared", "batch"):
+        d = dataclasses.replace(base, sim=dataclasses.replace(base.sim, backend=backend))
+        got[backend] = run_design(d).metrics
+    a, b = got["shared"], got["batch"]
+    assert a["settled"] and b["settled"]
+    for key in ("pdc_w", "pout_w", "drain_efficiency", "pload_total_w"):
+        assert b[key] == pytest.approx(a[key], rel=1e-3), key
+    assert h(b, 1)["vd_v"] == pytest.approx(h(a, 1)["vd_v"], rel=1e-3)
