@@ -746,23 +746,25 @@ def sized_toml_text(sized: SizedDesign) -> str:
                 continue
             t.add(key, value)
         if section == "network":
-            vals = tomlkit.table()
-            for comp in sized.components.values():
-                item = tomlkit.item(f"{comp.value!r} {comp.unit}")
-                item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
-                vals.add(comp.name, item)
-            t.add("values", vals)
+            t.add("values", _values_table(sized))
         doc.add(section, t)
     if "network" not in raw:
         t = tomlkit.table()
-        vals = tomlkit.table()
-        for comp in sized.components.values():
-            item = tomlkit.item(f"{comp.value!r} {comp.unit}")
-            item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
-            vals.add(comp.name, item)
-        t.add("values", vals)
+        t.add("values", _values_table(sized))
         doc.add("network", t)
     return tomlkit.dumps(doc)
+
+
+def _values_table(sized: SizedDesign):
+    """``[network.values]``: every component, with how it was obtained as the comment."""
+    import tomlkit
+
+    vals = tomlkit.table()
+    for comp in sized.components.values():
+        item = tomlkit.item(f"{comp.value!r} {comp.unit}")
+        item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
+        vals.add(comp.name, item)
+    return vals
 
 
 def write_sized_toml(sized: SizedDesign, path: str | Path) -> Path:
