@@ -71,21 +71,16 @@ def _spy():
     calls = []
     orig_tran, orig_op = engine.run_transient, engine.run_op
 
-    def tran(netlist, *a, **k):
-        t0 = time.monotonic()
-        try:
-            return orig_tran(netlist, *a, **k)
-        finally:
-            calls.append(("tran", netlist, time.monotonic() - t0))
+    def timed(kind, run):
+        def wrapper(netlist, *a, **k):
+            t0 = time.monotonic()
+            try:
+                return run(netlist, *a, **k)
+            finally:
+                calls.append((kind, netlist, time.monotonic() - t0))
+        return wrapper
 
-    def op(netlist, *a, **k):
-        t0 = time.monotonic()
-        try:
-            return orig_op(netlist, *a, **k)
-        finally:
-            calls.append(("op", netlist, time.monotonic() - t0))
-
-    engine.run_transient, engine.run_op = tran, op
+    engine.run_transient, engine.run_op = timed("tran", orig_tran), timed("op", orig_op)
     try:
         yield calls
     finally:
