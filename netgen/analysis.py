@@ -121,11 +121,13 @@ def _kernel_g(z: np.ndarray) -> np.ndarray:
 
 
 def _clip_window(t: np.ndarray, x: np.ndarray, t0: float, t1: float) -> tuple[np.ndarray, np.ndarray]:
-    """The points of (t, x) strictly inside (t0, t1) with interpolated values added at both ends."""
+    """The points of (t, x) strictly inside (t0, t1) with interpolated values added at both ends
+    (``x`` 1-D, or 2-D with one signal per row on the common time base ``t``)."""
     inside = (t > t0) & (t < t1)
-    ends = np.interp([t0, t1], t, x)
-    return (np.concatenate(([t0], t[inside], [t1])),
-            np.concatenate(([ends[0]], x[inside], [ends[1]])))
+    rows = np.atleast_2d(x)
+    ends = np.array([np.interp([t0, t1], t, r) for r in rows])
+    xw = np.concatenate((ends[:, :1], rows[:, inside], ends[:, 1:]), axis=1)
+    return np.concatenate(([t0], t[inside], [t1])), (xw if np.ndim(x) == 2 else xw[0])
 
 
 def fourier_pwl(t_s: np.ndarray, x: np.ndarray, t0_s: float, period_s: float, n_max: int,
@@ -141,7 +143,8 @@ def fourier_pwl(t_s: np.ndarray, x: np.ndarray, t0_s: float, period_s: float, n_
     t_s : ndarray
         Time points, s, non-decreasing (repeated times allowed: a zero-width segment adds nothing).
     x : ndarray
-        Values at ``t_s`` (any unit).
+        Values at ``t_s`` (any unit); 2-D for several signals on the same time points (one per
+        row: the segment kernels are computed once for all of them).
     t0_s : float
         Start of the window, s; the phase reference (t = t0 is phase 0).
     period_s : float
@@ -155,7 +158,7 @@ def fourier_pwl(t_s: np.ndarray, x: np.ndarray, t0_s: float, period_s: float, n_
 
     Returns
     -------
-    ndarray of complex, length n_max + 1
+    ndarray of complex, length n_max + 1 (rows x (n_max + 1) for a 2-D ``x``)
         ``c[0]`` the mean (real); for n >= 1, x(t) = c0 + sum |c_n| cos(n w0 (t - t0) + angle c_n),
         the convention of :func:`fourier`.
 
@@ -173,7 +176,7 @@ def fourier_pwl(t_s: np.ndarray, x: np.ndarray, t0_s: float, period_s: float, n_
     """
     t = np.asarray(t_s, dtype=float)
     xv = np.asarray(x, dtype=float)
-    if t.shape != xv.shape or t.ndim != 1 or t.size < 2:
+    if t.ndim != 1 or t.size < 2 or xv.ndim not in (1, 2) or xv.shape[-1] != t.size:
         raise ValueError("fourier_pwl needs two 1-D arrays of equal length (at least two points)")
     span = periods * period_s
     t1 = t0_s + span
@@ -182,18 +185,21 @@ def fourier_pwl(t_s: np.ndarray, x: np.ndarray, t0_s: float, period_s: float, n_
         raise ValueError(f"the time points cover [{t[0]:.6g}, {t[-1]:.6g}] s, not the window "
                          f"[{t0_s:.6g}, {t1:.6g}] s")
     tw, xw = _clip_window(t, xv, t0_s, t1)
+    xw = np.atleast_2d(xw)
     h = np.diff(tw)
     mid = 0.5 * (tw[1:] + tw[:-1]) - t0_s
-    xm = 0.5 * (xw[1:] + xw[:-1])
-    dx = np.diff(xw)
+    xm = 0.5 * (xw[:, 1:] + xw[:, :-1])
+    dx = np.diff(xw, axis=1)
     w0 = 2.0 * math.pi / period_s
     n = np.arange(n_max + 1, dtype=float)[:, None]
     z = 0.5 * n * w0 * h[None, :]
-    seg = h[None, :] * (xm[None, :] * np.sinc(z / math.pi) - 1j * dx[None, :] * 0.5 * z * _kernel_g(z))
-    c = (seg * np.exp(-1j * n * w0 * mid[None, :])).sum(axis=1) / span
-    c[1:] *= 2.0
-    c[0] = c[0].real
-    return c
+    rot = np.exp(-1j * n * w0 * mid[None, :]) * h[None, :] / span   # (n, segments)
+    a = rot * np.sinc(z / math.pi)
+    b = rot * (-0.5j * z * _kernel_g(z))
+    c = xm @ a.T + dx @ b.T                                          # (rows, n)
+    c[:, 1:] *= 2.0
+    c[:, 0] = c[:, 0].real
+    return c if xv.ndim == 2 else c[0]
 
 
 def pwl_mean_square(t_s: np.ndarray, x: np.ndarray, t0_s: float, t1_s: float) -> float:
