@@ -120,11 +120,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "sim": {
         "points_per_cycle": Key("points_per_cycle", "int", 1000, "Maximum time step as a fraction of the period (TMAX = T/points_per_cycle).", lo=50, hi=20000),
         "settle_tol": Key("settle_tol", "", 1e-3, "Relative tolerance on DC power, load power and drain waveform for periodic steady state.", lo=1e-6, hi=0.1),
-        "min_cycles": Key("min_cycles", "int", 10, "Cycles simulated before convergence is judged.", lo=2, hi=1_000_000),
+        "min_cycles": Key("min_cycles", "int", 6, "Cycles simulated before convergence is judged.", lo=2, hi=1_000_000),
         "max_cycles": Key("max_cycles", "int", 3000, "Give up (and report 'not settled') after this many cycles.", lo=4, hi=1_000_000),
         "timeout": Key("timeout_s", "s", "600 s", "Wall-clock limit of one simulation.", lo=0.1, hi=1e6),
         "harmonics": Key("harmonics", "int", 5, "Harmonics analysed and reported (n = 1..N).", lo=1, hi=50),
-        "warm_start": Key("warm_start", "bool", True, "Start from the estimated DC state of feed and block (true) or cold (false)."),
+        "average_periods": Key("average_periods", "int", 6, "Settled periods averaged for the harmonic table (V_n, I_n, Z_n, power per harmonic); raise it where harmonics scatter from cycle to cycle (lossless lines with a hard switch).", lo=2, hi=100_000),
+        "warm_start": Key("warm_start", "bool", True, "Start warm (true; see periodic_start) or from zero (false)."),
+        "periodic_start": Key("periodic_start", "bool", True, "Warm start on the periodic steady state computed directly from the netlist (true; where the netlist has parts that computation does not model, and with false, the DC state of feed and block with bias-mode nulling)."),
         "backend": Key("backend", "str", "shared", "Simulator path: shared (libngspice through PySpice) or batch (the ngspice executable).", choices=("shared", "batch")),
     },
 }
@@ -180,11 +182,13 @@ class SimSpec:
 
     points_per_cycle: int = 1000
     settle_tol: float = 1e-3
-    min_cycles: int = 10
+    min_cycles: int = 6
     max_cycles: int = 3000
     timeout_s: float = 600.0
     harmonics: int = 5
+    average_periods: int = 6
     warm_start: bool = True
+    periodic_start: bool = True
     backend: str = "shared"
 
 
@@ -330,6 +334,8 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
     sim = values["sim"]
     if sim["min_cycles"] > sim["max_cycles"]:
         raise DesignError("sim.min_cycles: larger than sim.max_cycles; lower min_cycles or raise max_cycles.")
+    if sim["average_periods"] > sim["max_cycles"]:
+        raise DesignError("sim.average_periods: larger than sim.max_cycles; lower average_periods or raise max_cycles.")
     return Design(
         name=d["name"],
         topology=d["topology"],

@@ -38,7 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from . import __version__, initial_state, pss
 from .errors import OutputError, SimulationError
 
 __all__ = [
@@ -199,6 +199,17 @@ def _warm_ic(sized, backend: str) -> dict:
     return dc_initial_conditions(op, tran, backend=backend, timeout_s=sized.design.sim.timeout_s)
 
 
+def _periodic_state(sized):
+    """The periodic steady state netgen starts its own run on (:mod:`netgen.pss`), or None
+    where the netlist is outside what it models (the pack then starts from the DC state)."""
+    from .render import render
+
+    try:
+        return pss.estimate(render(sized, mode="tran"), sized.design.f0_hz, sized.design.sim.points_per_cycle)
+    except pss.Unsupported:
+        return None
+
+
 def _tran_settings(netlist: str) -> dict:
     for line in netlist.splitlines():
         words = line.split()
@@ -310,7 +321,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     from .errors import RenderError
     from .pipeline import run_design
     from .portable import check_portable, format_problems
-    from .render import render
+    from .render import portable_cards, render
 
     outdir = Path(outdir)
     _check_target(outdir)  # before any simulation
@@ -322,12 +333,15 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     period = 1.0 / f0
     n_max = int(design.sim.harmonics)
 
-    ic = _warm_ic(sized, backend) if design.sim.warm_start else {}
-    cycles = max(int(wf.cycles), int(design.sim.min_cycles)) + 2
+    state = _periodic_state(sized) if design.sim.warm_start and design.sim.periodic_start else None
+    ic = _warm_ic(sized, backend) if design.sim.warm_start and state is None else {}
+    cycles = max(int(wf.cycles), int(design.sim.min_cycles), int(design.sim.average_periods)) + 2
     verify_note = ""
     while True:
         tstop = cycles * period
         portable = render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic)
+        if state is not None:
+            portable = portable_cards(initial_state.with_initial_state(portable, state, portable=True))
         problems = check_portable(portable)
         if problems:
             raise RenderError("The portable netlist is not portable (a template problem):\n" + format_problems(problems))
@@ -346,6 +360,8 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
                 hint="raise sim.max_cycles, or export with --no-verify and say so to the receiver.")
         cycles = min(2 * cycles, int(design.sim.max_cycles))
     ngspice_net = render(sized, mode="tran", dialect="ngspice", tstop_s=tstop, ic=ic)
+    if state is not None:
+        ngspice_net = initial_state.with_initial_state(ngspice_net, state, portable=True)
 
     f_hz = pack_grid_hz(f0, n_max)
     z_ac = drain_impedance_ac(sized, f_hz, backend=backend)
@@ -451,6 +467,14 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         f"- Initial conditions: {'`uic` with the element IC= values below' if tran['uic'] else 'none (DC operating point)'}:",
     ]
     lines += [f"  - `{s}`" for s in ics] or ["  - (none)"]
+    if any(ln.startswith(("Vhist_", "Ihist_")) for ln in portable.splitlines()):
+        lines += [
+            "- Line history: the sources `Vhist_*` (in series with each transmission-line port) and `Ihist_*` "
+            "(into each port) give every line the waves it carries in the periodic steady state during its first "
+            "delay, and are zero from then on, so that the circuit is the plain one after that. With them and "
+            "the IC= values the run starts on the periodic state netgen computed and needs only a few periods. "
+            "To start from zero instead, delete them, the IC= values and `uic`, and run several hundred periods.",
+        ]
     lines += [
         "",
         "## Which window to read",

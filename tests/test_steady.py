@@ -91,8 +91,9 @@ def test_slow_drift_with_agreeing_cycles_is_not_settled():
     # 100 uH choke warm-started from a 12 % low Idc (0.07 A; the circuit draws ~0.0805 A):
     # the choke current creeps with a time constant of thousands of cycles, so consecutive
     # cycles agree to better than 0.1 % while Pdc is still ~13 % below its final value
-    # (the trap NGSPICE_NOTES describes). It must not be declared settled.
-    sim = SimSpec(max_cycles=80, points_per_cycle=500)
+    # (the trap NGSPICE_NOTES describes). It must not be declared settled. (The DC warm start:
+    # the periodic start would begin on the right choke current, see the tests below.)
+    sim = SimSpec(max_cycles=80, points_per_cycle=500, periodic_start=False)
     w = steady.simulate_netlist(
         lambda ic, ts: class_f_line(ic, ts, choke="100u", block="1n"), f0_hz=F0, vdd_v=VDD, sim=sim,
         make_op=lambda idc: class_f_line(None, 0, choke="100u", block="1n", mode="op", idc_a=idc),
@@ -238,17 +239,18 @@ def _reference_powers(make, cycles, ppc):
     return pdc, pload
 
 
-@pytest.mark.ngspice
-@pytest.mark.slow
 def lossy_line(ic, tstop_s, **kw):
     """The quarter-wave circuit with 0.03 dB of line loss (``class_f_line(line_r=0.5)``)."""
     return class_f_line(ic, tstop_s, line_r=0.5, **kw)
 
 
+@pytest.mark.ngspice
+@pytest.mark.slow
 @pytest.mark.parametrize("make, idc, ref_cycles, warm_bound", [
     # Idc estimates: lumped 0.457 A (measured mean supply current of a cold run), line 0.08 A
     # (NGSPICE_NOTES sanity circuit: Pdc 0.8054 W / 10 V). Bounds: measured cycle counts with the
-    # bias-mode nulling (lumped 28, line 128) with margin; cold needs 455 and 255.
+    # bias-mode nulling (lumped 28, line 184 since the judge also waits for the switching-edge
+    # peaks) with margin; cold needs 455 and 255 or more.
     # The line carries 0.03 dB of loss (measured): a perfectly lossless quarter-wave line keeps a
     # mode near 3 f0 that decays over hundreds of cycles and moves the small 3f0 current; since
     # the judge also requires the harmonic impedances to stop moving, that mode, not the bias
@@ -256,11 +258,11 @@ def lossy_line(ic, tstop_s, **kw):
     # show). 0.5 ohm of series resistance mid-line (a short low-loss board line) damps it:
     # warm 128, cold 255.
     (lumped_tuned, 0.457, 900, 40),
-    (lossy_line, 0.08, 800, 170),
+    (lossy_line, 0.08, 800, 230),
 ], ids=["lumped", "line"])
 def test_warm_start_with_bias_nulling_settles_sooner_than_cold_and_matches_long_reference(
         make, idc, ref_cycles, warm_bound):
-    sim_warm = SimSpec(max_cycles=700, points_per_cycle=500)
+    sim_warm = SimSpec(max_cycles=700, points_per_cycle=500, periodic_start=False)
     sim_cold = SimSpec(max_cycles=700, points_per_cycle=500, warm_start=False)
     warm = steady.simulate_netlist(make, f0_hz=F0, vdd_v=VDD, sim=sim_warm,
                                    make_op=lambda i: make(None, 0, mode="op", idc_a=i), idc_est_a=idc,
@@ -269,7 +271,7 @@ def test_warm_start_with_bias_nulling_settles_sooner_than_cold_and_matches_long_
     assert warm.settled and cold.settled, (warm.note, cold.note)
     assert "bias mode nulled" in warm.note
     assert warm.cycles <= warm_bound  # measured counts above, with margin
-    assert 1.5 * warm.cycles < cold.cycles
+    assert warm.cycles < cold.cycles
     # long plain cold run as the reference (800-900 cycles, about twice the cold settling count;
     # the slow bias mode has decayed by many time constants); the settle tolerance is 0.1 %, the check allows 0.2 %.
     pdc_ref, pload_ref = _reference_powers(make, ref_cycles, 256)
@@ -277,6 +279,66 @@ def test_warm_start_with_bias_nulling_settles_sooner_than_cold_and_matches_long_
     pload = np.mean(warm.v["load"] ** 2) / 50
     assert pdc == pytest.approx(pdc_ref, rel=2e-3)
     assert pload == pytest.approx(pload_ref, rel=2e-3)
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("make, ref_cycles, bound", [
+    # measured: lumped 6 cycles, line 12 (the periodic start), against 455 / 255 cold
+    (lumped_tuned, 900, 12),
+    (lossy_line, 800, 30),
+], ids=["lumped", "line"])
+def test_periodic_start_settles_in_a_few_cycles_and_matches_long_reference(make, ref_cycles, bound):
+    # Started on the periodic state computed from the netlist (netgen.pss): settled within a few
+    # cycles, on the same answer as a long plain cold run (the check allows 0.2 % against the
+    # 0.1 % settle tolerance, as above).
+    sim = SimSpec(max_cycles=700, points_per_cycle=500)
+    w = steady.simulate_netlist(make, f0_hz=F0, vdd_v=VDD, sim=sim,
+                                make_op=lambda i: make(None, 0, mode="op", idc_a=i), idc_est_a=0.1,
+                                feeds=("L_feed",), blocks=("C_block",))
+    assert w.settled, w.note
+    assert "started on the periodic estimate" in w.note
+    assert w.cycles <= bound
+    pdc_ref, pload_ref = _reference_powers(make, ref_cycles, 256)
+    assert VDD * np.mean(w.i["supply"]) == pytest.approx(pdc_ref, rel=2e-3)
+    assert np.mean(w.v["load"] ** 2) / 50 == pytest.approx(pload_ref, rel=2e-3)
+
+
+@pytest.mark.ngspice
+def test_periodic_start_needs_no_long_run_with_a_huge_choke():
+    # 100 uH choke and 1 nF block: the bias network's mode is so slow that a cold start needs
+    # ~8000 cycles and the DC warm start hundreds (NGSPICE_NOTES.md, measured). The periodic
+    # state contains the choke's and the block's states, so the run starts settled. The choke
+    # reactance (628 kohm) loads the drain even less than the 1 uH choke of the notes' sanity
+    # circuit, whose values (Pdc 0.8054 W, P1 0.8002 W, measured) hold here within 1 %.
+    sim = SimSpec(max_cycles=200, points_per_cycle=1000)
+    w = steady.simulate_netlist(lambda ic, ts: class_f_line(ic, ts, choke="100u", block="1n"),
+                                f0_hz=F0, vdd_v=VDD, sim=sim)
+    assert w.settled, w.note
+    assert w.cycles <= 20
+    pdc = VDD * np.mean(w.i["supply"])
+    p1 = _harmonic(w.v["load"], 1) ** 2 / 2 / 50
+    assert pdc == pytest.approx(0.8054, rel=0.01)
+    assert p1 == pytest.approx(0.8002, rel=0.01)
+
+
+@pytest.mark.ngspice
+def test_a_netlist_outside_the_estimate_falls_back_to_the_dc_warm_start():
+    # a device given as a resistor-and-switch subcircuit is outside what netgen.pss solves: the
+    # run starts from the DC state instead, and the note says why
+    def make(ic, tstop_s, mode="tran", idc_a=0.0):
+        net = lumped_tuned(ic, tstop_s, mode=mode, idc_a=idc_a)
+        if mode != "tran":
+            return net
+        sub = (".subckt swx d g\nS1 d 0 g 0 SWMOD\n.ends\n"
+               ".model SWMOD SW(RON=0.2 ROFF=1e6 VT=0.5 VH=0)\n")
+        net = net.replace(".model SWMOD SW(RON=0.2 ROFF=1e6 VT=0.5 VH=0)\n", "")
+        return net.replace("S1 dsw 0 g 0 SWMOD\n", "XSW dsw g swx\n" + sub)
+    sim = SimSpec(max_cycles=200, points_per_cycle=500)
+    w = steady.simulate_netlist(make, f0_hz=F0, vdd_v=VDD, sim=sim,
+                                make_op=lambda i: make(None, 0, mode="op", idc_a=i), idc_est_a=0.457,
+                                feeds=("L_feed",), blocks=("C_block",))
+    assert w.settled, w.note
+    assert "bias mode nulled" in w.note and "no periodic estimate" in w.note and "XSW" in w.note
 
 
 @pytest.mark.ngspice
@@ -335,14 +397,14 @@ def test_peaks_see_a_spike_narrower_than_the_grid_step():
         vd[on] = 15.0
     vd[-1] = 10.0
     vecs = {"time": t, "drain": vd, "vidrain#branch": vd / 100.0}
-    t_s, v, i, cycles, peaks = steady._final_waveforms(vecs, F0, 50, ["drain"], {})
+    t_s, v, i, cycles, peaks = steady._final_waveforms(vecs, F0, 50, ["drain"], {}, 8)
     assert v["drain"].max() == pytest.approx(10.0)  # the grid steps over the spike
     assert peaks["vd_max_v"] == 15.0 and peaks["vd_min_v"] == 10.0
     assert peaks["id_max_a"] == pytest.approx(0.15) and peaks["id_min_a"] == pytest.approx(0.10)
     # the window is the grid's (the two periods before the last whole period boundary, here
     # T..3T): a value outside it counts for neither
     early = dict(vecs, drain=np.where(t < 0.5 * T, 99.0, vd))
-    _, v, _, _, peaks = steady._final_waveforms(early, F0, 50, ["drain"], {})
+    _, v, _, _, peaks = steady._final_waveforms(early, F0, 50, ["drain"], {}, 8)
     assert v["drain"].max() == pytest.approx(10.0) and peaks["vd_max_v"] == 15.0
 
 
