@@ -2,8 +2,11 @@
 
 Per design (sims/<name>.toml):
 
-* **netgen**: ``netgen.steady.simulate(sized)`` as a user gets it (warm start, automatic stop),
-  wall time (median of ``repeats``), its cycles, and its Pdc / P1 / efficiency.
+* **netgen**: ``netgen.steady.simulate(sized)`` as a user gets it (start on the periodic state
+  computed from the netlist, automatic stop), wall time (median of ``repeats``), its cycles,
+  its Pdc / P1 / efficiency, and the seconds of its calls (estimate, ngspice).
+* **netgen, DC start**: the same with ``sim.periodic_start = false`` (the DC state of feed and
+  block with bias-mode nulling, netgen's previous start), one run, side by side.
 * **naive**: the same transient netlist (``netgen.render.render(sized, "tran")``, same step)
   without initial conditions and without ``uic`` -- a plain ``.tran`` that starts from ngspice's
   DC operating point -- run long once. Per-cycle Pdc and P1 give the converged reference (mean of
@@ -11,12 +14,13 @@ Per design (sims/<name>.toml):
   0.1 % is read from the same long run's wall-clock stamps at that cycle (the run is chunked into
   ``chunk`` cycles only to take those stamps).
 * **warm oracle**: the transient netlist netgen itself ran (captured from its call of
-  ``netgen.engine.run_transient``, warm-start initial conditions included) run long, to count the
-  cycles the warm start really needs, independent of netgen's stopping rule.
+  ``netgen.engine.run_transient``, its initial state and line-history sources included) run
+  long, to count the cycles the warm start really needs, independent of netgen's stopping rule.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import statistics
 import subprocess
@@ -64,12 +68,13 @@ def warm_up(backend: str = "shared") -> float:
 
 @contextmanager
 def _spy():
-    """Record every ``engine.run_transient`` / ``engine.run_op`` call made inside the block:
-    [(kind, netlist, seconds)]."""
-    from netgen import engine
+    """Record every ``engine.run_transient`` / ``engine.run_op`` call and every periodic estimate
+    (``netgen.pss.estimate``) made inside the block: [(kind, netlist, seconds)]."""
+    from netgen import engine, pss
 
     calls = []
-    orig_tran, orig_op = engine.run_transient, engine.run_op
+    originals = {(engine, "run_transient"): "tran", (engine, "run_op"): "op", (pss, "estimate"): "estimate"}
+    saved = {key: getattr(*key) for key in originals}
 
     def timed(kind, run):
         def wrapper(netlist, *a, **k):
@@ -80,25 +85,31 @@ def _spy():
                 calls.append((kind, netlist, time.monotonic() - t0))
         return wrapper
 
-    engine.run_transient, engine.run_op = timed("tran", orig_tran), timed("op", orig_op)
+    for (mod, attr), kind in originals.items():
+        setattr(mod, attr, timed(kind, saved[(mod, attr)]))
     try:
         yield calls
     finally:
-        engine.run_transient, engine.run_op = orig_tran, orig_op
+        for (mod, attr), fn in saved.items():
+            setattr(mod, attr, fn)
 
 
 def netgen_runs(sized, repeats: int = 3) -> dict:
-    """``netgen.steady.simulate(sized)`` ``repeats`` times; wall time, cycles and powers of the last run."""
+    """``netgen.steady.simulate(sized)`` ``repeats`` times; wall time, cycles and powers of the last run.
+
+    ``engine_calls`` lists the last run's calls and their seconds: ``estimate`` (the periodic
+    state, :mod:`netgen.pss`), ``op`` and ``tran`` (ngspice)."""
     from netgen import steady
 
     d = sized.design
     times, calls = [], []
     wf = None
     for _ in range(repeats):
-        with _spy() as calls:
+        with _spy() as spied:
             t0 = time.monotonic()
             wf = steady.simulate(sized)
             times.append(time.monotonic() - t0)
+        calls = spied
     pdc, p1, pload = waveform_powers(wf, vdd_v=d.vdd_v, rload_ohm=d.load_ohm)
     trans = [c for c in calls if c[0] == "tran"]
     return {
@@ -108,7 +119,7 @@ def netgen_runs(sized, repeats: int = 3) -> dict:
         "settled": bool(wf.settled),
         "note": wf.note,
         "pdc_w": pdc, "p1_w": p1, "pload_w": pload, "efficiency": p1 / pdc,
-        "engine_calls": [(k, round(s, 3)) for k, _, s in calls],
+        "engine_calls": [(k, round(s, 4)) for k, _, s in calls],
         "warm_netlist": trans[-1][1] if trans else None,
     }
 
@@ -194,6 +205,11 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
     out["netgen"] = {k: v for k, v in ng.items() if k != "warm_netlist"}
     out["netgen"]["worker_peak_rss_mb"] = proc_peak_rss_mb(engine.worker_pid())
     progress(f"  {name}: netgen {ng['seconds']:.2f} s, {ng['cycles']} cycles, settled={ng['settled']}")
+    # the previous start, side by side: the DC state of feed and block with bias-mode nulling
+    dc = netgen_runs(dataclasses.replace(sized, design=dataclasses.replace(
+        d, sim=dataclasses.replace(d.sim, periodic_start=False))), 1)
+    out["netgen_dc_start"] = {k: v for k, v in dc.items() if k not in ("warm_netlist", "seconds_all")}
+    progress(f"  {name}: DC warm start {dc['seconds']:.2f} s, {dc['cycles']} cycles")
 
     cold_net = plain_tran(render(sized, mode="tran", tstop_s=cold_cycles * T))
     cold = long_run(cold_net, sized, cold_cycles, chunk=chunk, budget_s=budget_s)
@@ -226,11 +242,13 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
     out["naive"] = naive
     progress(f"  {name}: naive {naive['cycles_run']} cycles in {naive['wall_s']:.1f} s, 0.1 % after {n_cold} cycles")
 
-    out["netgen"]["pdc_err"] = _rel(ng["pdc_w"], ref["pdc_w"])
-    out["netgen"]["p1_err"] = _rel(ng["p1_w"], ref["p1_w"])
-    out["netgen"]["efficiency_diff_points"] = 100 * (ng["efficiency"] - naive["ref_efficiency"])
-    out["netgen"]["within_tol"] = bool(abs(out["netgen"]["pdc_err"]) <= TOL and abs(out["netgen"]["p1_err"]) <= TOL)
+    for key, run in (("netgen", ng), ("netgen_dc_start", dc)):
+        out[key]["pdc_err"] = _rel(run["pdc_w"], ref["pdc_w"])
+        out[key]["p1_err"] = _rel(run["p1_w"], ref["p1_w"])
+        out[key]["efficiency_diff_points"] = 100 * (run["efficiency"] - naive["ref_efficiency"])
+        out[key]["within_tol"] = bool(abs(out[key]["pdc_err"]) <= TOL and abs(out[key]["p1_err"]) <= TOL)
     out["ratio"] = (naive["seconds_to_tol"] / ng["seconds"]) if naive["seconds_to_tol"] else None
+    out["ratio_dc_start"] = (naive["seconds_to_tol"] / dc["seconds"]) if naive["seconds_to_tol"] else None
 
     if ng["warm_netlist"] is not None and warm_cycles > 0:
         warm = long_run(ng["warm_netlist"], sized, warm_cycles, chunk=chunk, budget_s=budget_s)

@@ -43,16 +43,18 @@ def _fmt(x, spec=".3g", none="-"):
 
 def _table(rows: list[dict]) -> str:
     head = (f"{'design':<15} {'netgen s':>8} {'cyc':>4} {'ok':>3} {'naive s':>8} {'cold cyc':>8} {'warm cyc':>8} "
-            f"{'ratio':>6} {'dEff pt':>8} {'dP1 %':>7} {'400cyc dP1 %':>12}")
+            f"{'ratio':>6} {'dEff pt':>8} {'dP1 %':>7} {'DC-start s (cyc)':>16} {'400cyc dP1 %':>12}")
     lines = [head, "-" * len(head)]
     for r in rows:
         ng, nv, w = r["netgen"], r["naive"], r.get("warm", {})
+        dc = r.get("netgen_dc_start", {})
         at = nv.get("at_400", {})
+        dc_txt = f"{dc['seconds']:.2f} ({dc['cycles']})" if dc else "-"
         lines.append(
             f"{r['design']:<15} {ng['seconds']:>8.2f} {ng['cycles']:>4d} {('yes' if ng['within_tol'] else 'NO'):>3} "
             f"{_fmt(nv['seconds_to_tol'], '.2f'):>8} {_fmt(nv['cycles_to_tol'], 'd'):>8} "
             f"{_fmt(w.get('cycles_to_tol'), 'd'):>8} {_fmt(r['ratio'], '.2f'):>6} "
-            f"{ng['efficiency_diff_points']:>8.3f} {100 * ng['p1_err']:>7.3f} "
+            f"{ng['efficiency_diff_points']:>8.3f} {100 * ng['p1_err']:>7.3f} {dc_txt:>16} "
             f"{_fmt(100 * at['p1_err'] if at else None, '.3f'):>12}")
     return "\n".join(lines)
 
@@ -191,10 +193,11 @@ def main(argv=None) -> int:
 
     print()
     print(_table(rows))
-    print("netgen s: median wall time of netgen.steady.simulate; cyc: its cycles; ok: its Pdc and P1 within "
-          f"{TOL:.1%} of the long cold reference; naive s / cold cyc: plain .tran until Pdc and P1 stay within "
-          f"{TOL:.1%}; warm cyc: the same for netgen's warm-started netlist; dEff pt: netgen efficiency - reference "
-          "(points); 400cyc: error of a fixed 400-cycle naive run")
+    print("netgen s: median wall time of netgen.steady.simulate (periodic start); cyc: its cycles; ok: its Pdc "
+          f"and P1 within {TOL:.1%} of the long cold reference; naive s / cold cyc: plain .tran until Pdc and P1 "
+          f"stay within {TOL:.1%}; warm cyc: the same for the netlist netgen started (run long); dEff pt: netgen "
+          "efficiency - reference (points); DC-start: netgen with sim.periodic_start = false (the DC warm start "
+          "with bias nulling), one run; 400cyc: error of a fixed 400-cycle naive run")
     for key, b in bias.items():
         print(f"bias network {key}: feed {b['feed_l_h']:.3g} H, block {b['block_c_f']:.3g} F: cold {b['cold_cycles']} "
               f"cycles, warm {b['warm_cycles']} cycles, netgen stopped at {b['netgen_cycles']} ({b['netgen_s']:.1f} s)")

@@ -56,6 +56,8 @@ __all__ = ["Unsupported", "PeriodicState", "estimate", "grid_points"]
 #: largest grid of the estimate (grid_points), for a switch and for a nonlinear device
 GRID_MAX = 2048
 GRID_MAX_NONLINEAR = 1024
+#: on-interval samples above which the switch's system is solved as Toeplitz (_solve_on_interval)
+TOEPLITZ_FROM = 800
 #: harmonics of the port impedance kept in PeriodicState.z_port
 PORT_HARMONICS = 50
 #: Newton iterations allowed for a nonlinear device before the estimate is given up
@@ -581,13 +583,15 @@ def _solve_on_interval(kernel: np.ndarray, act: np.ndarray, r: np.ndarray, rhs: 
     """Solve (C + diag(r)) x = rhs, C[a, b] = kernel[(act_a - act_b) mod M].
 
     For one contiguous on-interval with the same r everywhere but the last sample (a switch),
-    C + r0 I is Toeplitz: Levinson recursion (scipy.linalg.solve_toeplitz, O(n^2)) with the last
-    sample's difference added by the Sherman-Morrison formula; the residual is checked and a
-    dense LU solve used when it is not small (or the samples are not contiguous).
+    C + r0 I is Toeplitz: above ``TOEPLITZ_FROM`` samples, Levinson recursion
+    (scipy.linalg.solve_toeplitz, O(n^2)) with the last sample's difference added by the
+    Sherman-Morrison formula; the residual is checked and a dense LU solve used when it is not
+    small (or the samples are not contiguous, or fewer: LU is then as fast).
     """
     M = len(kernel)
     n = act.size
-    contiguous = n > 2 and act[-1] - act[0] == n - 1 and np.allclose(r[:-1], r[0], rtol=1e-12, atol=0.0)
+    contiguous = (n > TOEPLITZ_FROM and act[-1] - act[0] == n - 1
+                  and np.allclose(r[:-1], r[0], rtol=1e-12, atol=0.0))
     if contiguous:
         from scipy.linalg import solve_toeplitz
 
