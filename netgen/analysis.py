@@ -411,6 +411,18 @@ def _exact_coefficients(wf, n_h: int) -> dict:
     return {k: np.asarray(c)[: n_h + 1] for k, c in coeffs.items() if len(c) >= n_h + 1}
 
 
+def _start(start: dict, pdc_w: float, pout_w: float) -> dict:
+    """The ``start`` entry of the metrics: how the run started and, for a start on the periodic
+    estimate, the estimate's Pdc and Pout with their relative deviation from ngspice's."""
+    out = {"method": start.get("method", "unknown"), "reason": start.get("reason") or None,
+           "estimate_pdc_w": None, "estimate_pout_w": None, "estimate_deviation": None}
+    if start.get("method") == "periodic":
+        epdc, epout = float(start["pdc_w"]), float(start["pout_w"])
+        dev = max(abs(epdc / pdc_w - 1.0) if pdc_w else math.inf, abs(epout / pout_w - 1.0) if pout_w else math.inf)
+        out.update(estimate_pdc_w=epdc, estimate_pout_w=epout, estimate_deviation=_f(dev))
+    return out
+
+
 def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> dict:
     """Metrics of one settled simulation (the metrics.json contract).
 
@@ -522,6 +534,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "settled": bool(wf.settled),
         "cycles": int(wf.cycles),
         "settle_note": wf.note,
+        "start": _start(getattr(wf, "start", None) or {}, pdc, pout),
         "pdc_w": _f(pdc),
         "idc_a": _f(idc),
         "pout_w": _f(pout),

@@ -281,18 +281,38 @@ def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
         return _save(fig, path)
 
 
-def plot_convergence(path, history: dict, *, settled: bool = True, metrics: dict | None = None) -> Path:
-    """DC power and load power (W) per simulated cycle, for judging settling."""
+def plot_convergence(path, history: dict, *, settled: bool = True, metrics: dict | None = None,
+                     tol: float | None = None, start: dict | None = None, window: int = 6) -> Path:
+    """DC power and load power per simulated cycle, for judging settling.
+
+    Top: the powers (W). Bottom: each cycle's deviation (%) from the mean of the last ``window``
+    cycles (what the report averages), with the settling tolerance ``tol`` shaded and, for a run
+    started on the periodic state computed from the netlist (``start``), that computation's own
+    values as dashed lines.
+    """
+    series = [(key, label, color) for key, label, color in
+              (("pdc_w", "DC power", COLORS["voltage"]), ("pload_w", "load power", COLORS["load"]))
+              if np.asarray(history.get(key, [])).size]
     with plt.rc_context(_RC):
-        fig, ax = plt.subplots(figsize=(8, 3.8))
-        for key, label, color in (("pdc_w", "DC power", COLORS["voltage"]), ("pload_w", "load power", COLORS["load"])):
-            y = np.asarray(history.get(key, []), dtype=float)
-            if y.size:
-                ax.plot(np.arange(1, y.size + 1), y, color=color, label=label, lw=1.2)
-        ax.set_xlabel("cycle")
+        fig, (ax, ax2) = plt.subplots(2, 1, figsize=(8, 5.2), sharex=True, height_ratios=(1, 1.3))
+        for key, label, color in series:
+            y = np.asarray(history[key], dtype=float)
+            x = np.arange(1, y.size + 1)
+            ax.plot(x, y, color=color, label=label, lw=1.2)
+            ref = float(np.mean(y[-window:]))
+            ax2.plot(x, 100.0 * (y / ref - 1.0), color=color, lw=1.2, marker="o" if y.size <= 40 else None, ms=3)
+            if start and start.get("method") == "periodic" and start.get(key) is not None:
+                ax2.axhline(100.0 * (float(start[key]) / ref - 1.0), color=color, ls="--", lw=1.0,
+                            label=f"{label}: computed periodic state")
+        if tol:
+            ax2.axhspan(-100 * tol, 100 * tol, color=COLORS["grid"], alpha=0.7, lw=0, label=f"+/-{100 * tol:g} %")
         ax.set_ylabel("power per cycle (W)")
+        ax2.set_ylabel("deviation from the\nreported value (%)")
+        ax2.set_xlabel("cycle")
         ax.set_title(_title(metrics, "Settling") if metrics else "Settling" + ("" if settled else "  [NOT SETTLED]"))
         ax.legend(loc="lower right", fontsize=9)
+        if ax2.get_legend_handles_labels()[0]:
+            ax2.legend(loc="best", fontsize=8)
         fig.tight_layout()
         return _save(fig, path)
 
@@ -315,5 +335,6 @@ def plot_all(outdir, sized, wf, metrics: dict, z_f_hz=None, z_ohm=None) -> dict[
         out["impedance"] = plot_network_impedance(outdir / "impedance.png", z_f_hz, z_ohm, d.f0_hz, metrics)
     if wf.history and any(len(v) for v in wf.history.values()):
         out["convergence"] = plot_convergence(outdir / "convergence.png", wf.history,
-                                              settled=wf.settled, metrics=metrics)
+                                              settled=wf.settled, metrics=metrics, tol=d.sim.settle_tol,
+                                              start=getattr(wf, "start", None), window=d.sim.average_periods)
     return out

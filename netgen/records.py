@@ -142,6 +142,11 @@ class Waveforms:
         ``supply_i`` and others where available. Convention x(t) = c_0 +
         sum |c_n| cos(n w0 t + angle c_n) (c_n, n >= 1, are peak amplitudes).
         Empty when not available (the analysis then uses the uniform grid).
+    start : dict
+        How the run started: ``method`` (``"periodic"``: on the periodic state computed from the
+        netlist, netgen.pss; ``"dc"``: the DC state of feed and block; ``"cold"``: from zero),
+        ``reason`` (why not periodic, where it was not) and, for ``"periodic"``, the estimate's
+        own ``pdc_w``, ``pout_w`` and ``pload_w`` (W), an independent check of ngspice's values.
     """
 
     f0_hz: float
@@ -154,3 +159,4 @@ class Waveforms:
     note: str = ""
     peaks: dict = field(default_factory=dict)
     fourier: dict = field(default_factory=dict)
+    start: dict = field(default_factory=dict)

@@ -126,6 +126,22 @@ def _si(value, unit: str) -> str:
 
 # ------------------------------------------------------------------ table
 
+def start_text(start: dict) -> str:
+    """One sentence on how the run started (metrics ``start``), or '' when not recorded."""
+    method = start.get("method")
+    if method == "periodic":
+        dev = start.get("estimate_deviation")
+        agree = f"; ngspice's Pdc and Pout agree with it within {100 * dev:.2g} %" if dev is not None else ""
+        return (f"Started on the periodic steady state computed from the netlist (Pdc "
+                f"{_num(start.get('estimate_pdc_w'))} W, Pout {_num(start.get('estimate_pout_w'))} W{agree}).")
+    if method == "dc":
+        why = f" ({start['reason']})" if start.get("reason") else ""
+        return f"Started from the DC state of feed and block{why}."
+    if method == "cold":
+        return "Started from zero (sim.warm_start = false)."
+    return ""
+
+
 def format_table(metrics: dict) -> str:
     """Compact plain-text summary for the terminal (fits 80 columns, units in the labels)."""
     d = metrics.get("design", {})
@@ -133,6 +149,9 @@ def format_table(metrics: dict) -> str:
              f"Vdd {_si(d.get('vdd_v'), 'V')}  cycles {metrics.get('cycles', '?')}"]
     if not metrics.get("settled", False):
         lines.append("*** NOT SETTLED: values below are not periodic steady state ***")
+    start = start_text(metrics.get("start") or {})
+    if start:
+        lines.extend(textwrap.wrap(start, 78, subsequent_indent="  "))
     for text in metrics.get("warnings") or ():
         lines.extend(textwrap.wrap(f"Note: {text}.", 78, subsequent_indent="  "))
     bound = metrics.get("bound") or {}
@@ -273,6 +292,8 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
         note = metrics.get("settle_note") or ""
         lead = "" if note.lower().startswith("settled") else f"Settled after {_e(metrics.get('cycles'))} cycles. "
         parts.append(f"<p class=ok>{lead}{_e(note[:1].upper() + note[1:])}</p>")
+    if start_text(metrics.get("start") or {}):
+        parts.append(f"<p class=sub>{_e(start_text(metrics.get('start') or {}))}</p>")
     for text in metrics.get("warnings") or ():
         parts.append(f"<p class=warn>Note: {_e(text)}.</p>")
 

@@ -254,6 +254,14 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     coeffs = window_fourier(t_all, vecs, (end_cycles - k_f) * T, T, k_f, int(sim.harmonics))
     settled = bool(check.settled)
     if state is not None:
+        vl = state.series["load"]
+        start = {"method": "periodic", "reason": "",
+                 "pdc_w": -vdd_v * state.mean("vdd#branch"),
+                 "pout_w": float((2.0 * abs(np.fft.rfft(vl)[1]) / len(vl)) ** 2 / (2.0 * rload)),
+                 "pload_w": state.mean_square("load") / rload}
+    else:
+        start = {"method": "dc" if warm else "cold", "reason": why_not}
+    if state is not None:
         how = " (started on the periodic estimate)"
     elif sources:
         how = " (warm start, bias mode nulled" + (f"; no periodic estimate: {why_not})" if why_not else ")")
@@ -268,7 +276,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
                 "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
     return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
                      history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
-                     note=note, peaks=peaks, fourier=coeffs)
+                     note=note, peaks=peaks, fourier=coeffs, start=start)
 
 
 def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = None,
