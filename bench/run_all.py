@@ -113,7 +113,7 @@ def main(argv=None) -> int:
     plan = QUICK_PLAN if quick else FULL_PLAN
     if args.only:
         plan = [p for p in plan if p[0] in args.only]
-    repeats = 1 if quick else 3
+    repeats = 1 if quick else 5
     t_start = time.monotonic()
 
     def log(msg):
