@@ -146,7 +146,7 @@ def main(argv=None) -> int:
     if not args.only or big_name in args.only:
         log(f"{big_name} with a large choke and block (x{scale:g}): cold and warm {n_big} cycles")
         big = bs.measure_design(big_name, load_sized(big_name, feed_scale=scale, block_scale=scale),
-                                cold_cycles=n_big, warm_cycles=n_big, repeats=1, chunk=10 if quick else 50,
+                                cold_cycles=n_big, warm_cycles=n_big, repeats=1 if quick else 3, chunk=10 if quick else 50,
                                 budget_s=30.0 if quick else 330.0, progress=log)
         bias["large_choke"] = {"design": big_name, "scale": scale, "feed_l_h": big["feed_l_h"],
                                "block_c_f": big["block_c_f"], "cold_cycles": big["naive"]["cycles_to_tol"],

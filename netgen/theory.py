@@ -25,7 +25,6 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy.optimize import linprog
 
 __all__ = [
     "max_v1_over_vdc",
@@ -53,8 +52,11 @@ def _lp_max_fundamental(harmonics: tuple[int, ...]) -> float:
     Solved as a linear programme over (a1, a_k) with the non-negativity
     imposed on a dense grid of t in [0, pi] (cosine series are even, so
     [0, pi] covers the period). The optimum waveform touches zero with zero
-    slope, so the grid error is O(h^2) ~ 1e-8.
+    slope, so the grid error is O(h^2) ~ 1e-8. (scipy is imported here, not with the module:
+    the simulator worker imports this module's importers and never needs it.)
     """
+    from scipy.optimize import linprog
+
     t = np.linspace(0.0, math.pi, _GRID)
     ks = (1,) + harmonics
     # constraint: -(a1 cos t + sum a_k cos kt) <= 1
