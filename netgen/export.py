@@ -341,7 +341,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         tstop = cycles * period
         portable = render(sized, mode="tran", dialect="portable", tstop_s=tstop, ic=ic)
         if state is not None:
-            portable = portable_cards(initial_state.with_initial_state(portable, state, portable=True))
+            portable = portable_cards(initial_state.with_initial_state(portable, state))
         problems = check_portable(portable)
         if problems:
             raise RenderError("The portable netlist is not portable (a template problem):\n" + format_problems(problems))
@@ -361,7 +361,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         cycles = min(2 * cycles, int(design.sim.max_cycles))
     ngspice_net = render(sized, mode="tran", dialect="ngspice", tstop_s=tstop, ic=ic)
     if state is not None:
-        ngspice_net = initial_state.with_initial_state(ngspice_net, state, portable=True)
+        ngspice_net = initial_state.with_initial_state(ngspice_net, state)
 
     f_hz = pack_grid_hz(f0, n_max)
     z_ac = drain_impedance_ac(sized, f_hz, backend=backend)

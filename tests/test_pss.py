@@ -201,7 +201,7 @@ def test_a_line_started_on_the_estimate_carries_its_periodic_waves_from_the_firs
     net = _line_circuit(f0)
     state = pss.estimate(net, f0, 1000)
     started = initial_state.with_initial_state(net, state)
-    assert "pwl(time" in started and "IC=" in started
+    assert "Vhist_t1_1 a hist_t1_1 PWL(" in started and "IC=" in started
     lumped_only = dataclasses.replace(state, elements={k: v for k, v in state.elements.items() if v[0] != "T"})
     empty_line = initial_state.with_initial_state(net, lumped_only)
     assert "hist_" not in empty_line
