@@ -411,15 +411,22 @@ def _exact_coefficients(wf, n_h: int) -> dict:
     return {k: np.asarray(c)[: n_h + 1] for k, c in coeffs.items() if len(c) >= n_h + 1}
 
 
+def _range(peaks: dict, lo: str, hi: str):
+    """[lowest, highest] of the per-period maxima over the averaged periods, or None."""
+    return [_f(peaks[lo]), _f(peaks[hi])] if lo in peaks and hi in peaks else None
+
+
 def _start(start: dict, pdc_w: float, pout_w: float) -> dict:
     """The ``start`` entry of the metrics: how the run started and, for a start on the periodic
     estimate, the estimate's Pdc and Pout with their relative deviation from ngspice's."""
     out = {"method": start.get("method", "unknown"), "reason": start.get("reason") or None,
-           "estimate_pdc_w": None, "estimate_pout_w": None, "estimate_deviation": None}
+           "estimate_pdc_w": None, "estimate_pout_w": None, "estimate_deviation": None,
+           "estimate_peak_vd_v": None, "estimate_peak_id_a": None}
     if start.get("method") == "periodic":
         epdc, epout = float(start["pdc_w"]), float(start["pout_w"])
         dev = max(abs(epdc / pdc_w - 1.0) if pdc_w else math.inf, abs(epout / pout_w - 1.0) if pout_w else math.inf)
-        out.update(estimate_pdc_w=epdc, estimate_pout_w=epout, estimate_deviation=_f(dev))
+        out.update(estimate_pdc_w=epdc, estimate_pout_w=epout, estimate_deviation=_f(dev),
+                   estimate_peak_vd_v=_f(start.get("vd_max_v")), estimate_peak_id_a=_f(start.get("id_max_a")))
     return out
 
 
@@ -548,6 +555,8 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "min_vd_v": _f(vd_min),
         "peak_id_a": _f(id_max),
         "min_id_a": _f(id_min),
+        "peak_vd_range_v": _range(peaks, "vd_max_lo_v", "vd_max_hi_v"),
+        "peak_id_range_a": _range(peaks, "id_max_lo_a", "id_max_hi_a"),
         "harmonics": table,
         "losses": {k: _f(v) for k, v in losses.items()},
         "loss_balance_error": _f(balance),
@@ -557,6 +566,10 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
     metrics["warnings"] = design_warnings(sized, metrics)
     return metrics
+
+
+#: per-period drain peaks spreading by more than this fraction over the averaged periods are said
+PEAK_SPREAD_WARN = 0.05
 
 
 def design_warnings(sized, metrics: dict) -> list[str]:
@@ -571,4 +584,12 @@ def design_warnings(sized, metrics: dict) -> list[str]:
     balance = metrics.get("loss_balance_error")
     if balance is not None and abs(balance) > 0.01:
         out.append(f"the loss budget misses {balance:+.1%} of Pdc: raise sim.points_per_cycle for a closer balance")
+    span = metrics.get("peak_vd_range_v")
+    if span and span[0] and span[1] / span[0] > 1.0 + PEAK_SPREAD_WARN:
+        smooth = (metrics.get("start") or {}).get("estimate_peak_vd_v")
+        also = f"; the computed periodic state peaks at {smooth / d.vdd_v:.2f} Vdd" if smooth else ""
+        out.append(f"the drain peak changes from period to period, {span[0] / d.vdd_v:.2f} to {span[1] / d.vdd_v:.2f} "
+                   f"Vdd over the averaged periods (the reported {metrics['peak_vd_over_vdd']:.2f} Vdd is their median): "
+                   f"narrow switching spikes the simulation puts on the line{also}; rate the device for the "
+                   "largest (on lossy lines they can die out after ~100 cycles: raise sim.min_cycles to see)")
     return out

@@ -19,7 +19,7 @@ from .analysis import fourier_pwl, pwl_mean_square
 
 __all__ = ["judge", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
            "Z_CHANGE_TOL", "Z_SCALE_FRACTION", "Z_CURRENT_FLOOR", "NOISE_FRACTION", "NOISE_SIGMAS",
-           "PEAK_TOL", "PEAK_ANCHOR_TOL", "ANCHOR_Z_TOL"]
+           "PEAK_TOL", "ANCHOR_Z_TOL"]
 
 #: window-to-window noise floor as a fraction of tol: smaller changes count as settled whatever their trend
 NOISE_FRACTION = 0.05
@@ -42,11 +42,8 @@ Z_SCALE_FRACTION = 0.05
 #: simulator's scatter (runs started on the periodic estimate only, see judge)
 NOISE_SIGMAS = 3.0
 #: largest change of the window-median per-cycle drain peak (voltage and current) between windows
+#: of a run that is not on the estimated orbit (see judge)
 PEAK_TOL = 0.03
-#: ... or largest deviation from the periodic estimate's peak on the estimated orbit (ngspice's
-#: per-cycle peaks carry narrow switching spikes above the smooth waveform: medians 0.3-3 % above
-#: it on sims/demo.toml and class_f_feed.toml once settled, measured)
-PEAK_ANCHOR_TOL = 0.05
 #: a run's window-mean harmonic impedance within this fraction of max(|Z_n|, Z_SCALE_FRACTION |Z_1|)
 #: of the periodic estimate's counts as "on the estimated orbit" (measured agreement: 0.01-8 %,
 #: the larger values at harmonic shorts of lossless-line designs, docs/simulation.md)
@@ -63,14 +60,12 @@ class Anchor:
 
     ``pdc_w``, ``pload_w``: one cycle's DC and load power, W; ``z``: V_n/I_n of the drain
     voltage and the current into the device, n = 0..HARMONICS_JUDGED (complex, ohm; NaN where
-    the current is zero); ``peaks``: the largest drain voltage (V) and current (A) of the period.
+    the current is zero).
     """
 
     pdc_w: float
     pload_w: float
     z: np.ndarray
-    #: the estimate's drain-voltage and drain-current maxima (``vd_max_v``, ``id_max_a``)
-    peaks: dict = field(default_factory=dict)
 
 
 def _scatter(x: np.ndarray) -> float:
@@ -113,12 +108,15 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         length (measured on sims/*.toml, docs/simulation.md); without an anchor such scatter
         keeps the run going until two windows happen to agree.
     peaks : dict of name -> ndarray, optional
-        Each cycle's largest drain voltage (``vd_max_v``) and current (``id_max_a``). The median
-        of the last window must lie within ``PEAK_TOL`` of the window before, or, on the
-        estimated orbit, within ``PEAK_ANCHOR_TOL`` of the estimate's peak. A start excites
-        narrow switching spikes in lossless lines that hardly move powers or harmonics but set
-        the reported stress (sims/class_f_feed.toml: per-cycle peaks of 2.1-3.1 Vdd for about 30
-        cycles, then 1.98 Vdd; the estimate 1.98 Vdd).
+        Each cycle's largest drain voltage (``vd_max_v``) and current (``id_max_a``). Off the
+        estimated orbit (a DC or cold start, whose transients move the whole waveform) the
+        median of the last window must lie within ``PEAK_TOL`` of the window before. On the
+        orbit the smooth part of the peaks is right from the first cycle, and what changes from
+        cycle to cycle are narrow switching spikes on lines, whose period-to-period statistics
+        settle in no affordable run (sims/class_f_line.toml: 2.09-4.4 Vdd per period over 1000
+        cycles, median 2.66, the smooth waveform 2.09) or only after ~100 cycles
+        (class_f_feed.toml: 2.0-2.9 Vdd, then 1.98); the outputs give their range and a warning
+        instead (netgen.analysis.design_warnings).
 
     Returns
     -------
@@ -199,16 +197,13 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
                 if zchange >= ztol:
                     return False, (f"drain impedance at {k} f0 still changing ({zchange:.2g} relative "
                                    f"between windows of {w} cycles), tolerance {ztol:.2g}")
-    for name, values in (peaks or {}).items():
+    for name, values in (peaks or {}).items() if not on_orbit else ():
         x = np.asarray(values, dtype=float)
         if len(x) < 2 * w:
             continue
         pa, pb = float(np.median(x[-2 * w:-w])), float(np.median(x[-w:]))
         scale = max(abs(pb), 1e-30)
         if abs(pb - pa) <= PEAK_TOL * scale:
-            continue
-        ref = anchor.peaks.get(name) if on_orbit else None
-        if ref is not None and abs(pb - ref) <= PEAK_ANCHOR_TOL * abs(ref):
             continue
         what = "drain voltage" if name.startswith("vd") else "drain current"
         return False, (f"peak {what} still changing ({(pb - pa) / scale:+.2g} relative between windows of "

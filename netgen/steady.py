@@ -55,7 +55,7 @@ from .errors import SimulationError
 from .netlist_cards import netlist_elements
 from .records import SizedDesign, Waveforms
 from .settle import (ANCHOR_Z_TOL, HARMONICS_JUDGED, LATE_CHUNK_CYCLES, NOISE_FRACTION, NOISE_SIGMAS,  # noqa: F401
-                     PEAK_ANCHOR_TOL, PEAK_TOL, Z_CHANGE_TOL, Z_CURRENT_FLOOR, Z_SCALE_FRACTION, Anchor,
+                     PEAK_TOL, Z_CHANGE_TOL, Z_CURRENT_FLOOR, Z_SCALE_FRACTION, Anchor,
                      SettleCheck, judge, window_peaks)
 
 # the convergence judge (netgen.settle) and the DC warm start (netgen.bias_nulling) are
@@ -119,6 +119,12 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
     k_avail = int(math.floor((end - max(t[0], end - periods * T)) / T * (1 + 1e-9)))
     per = [window_peaks(t, vecs, end - (j + 1) * T, end - j * T) for j in range(max(k_avail, 1))]
     peaks = {key: float(np.median([p[key] for p in per])) for key in per[0]}
+    # the range of the per-period maxima: narrow switching spikes scatter from period to period
+    for key in ("vd_max_v", "id_max_a"):
+        if key in per[0]:
+            values = [p[key] for p in per]
+            peaks[key.replace("_max_", "_max_lo_")] = float(min(values))
+            peaks[key.replace("_max_", "_max_hi_")] = float(max(values))
     return grid - start, v, i, int(round(end / T)), peaks
 
 
@@ -215,7 +221,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
         netlist = initial_state.with_initial_state(probe, state)
         least = max(sim.min_cycles, sim.average_periods)
         anchor = Anchor(pdc_w=-vdd_v * state.mean("vdd#branch"), pload_w=state.mean_square("load") / rload,
-                        z=state.impedances(HARMONICS_JUDGED), peaks=dict(state.peaks))
+                        z=state.impedances(HARMONICS_JUDGED))
         check = SettleCheck(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
                             min_cycles=least, step_cycles=LATE_CHUNK_CYCLES, anchor=anchor)
         chunk = (max(least, 6) + 1e-6) * T
@@ -258,7 +264,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
         start = {"method": "periodic", "reason": "",
                  "pdc_w": -vdd_v * state.mean("vdd#branch"),
                  "pout_w": float((2.0 * abs(np.fft.rfft(vl)[1]) / len(vl)) ** 2 / (2.0 * rload)),
-                 "pload_w": state.mean_square("load") / rload}
+                 "pload_w": state.mean_square("load") / rload, **state.peaks}
     else:
         start = {"method": "dc" if warm else "cold", "reason": why_not}
     if state is not None:

@@ -442,3 +442,22 @@ def test_warnings_name_what_to_change():
     assert design_warnings(size(design_from_dict(doc)), {"loss_balance_error": 0.002}) == []
     off = design_warnings(size(design_from_dict(doc)), {"loss_balance_error": -0.025})
     assert off == ["the loss budget misses -2.5% of Pdc: raise sim.points_per_cycle for a closer balance"]
+
+
+def test_a_wide_spread_of_per_period_peaks_is_said_with_the_smooth_peak():
+    # per-period drain maxima from 20 to 28 V on a 10 V supply (2.0-2.8 Vdd): more than 5 % apart,
+    # so the warning gives the range, the reported median and the computed smooth peak
+    from netgen.analysis import design_warnings
+    from netgen.design import design_from_dict
+    from netgen.sizing import size
+
+    sized = size(design_from_dict({"design": {"name": "w", "topology": "class_f_line", "f0": "1 GHz",
+                                              "vdd": "10 V", "ropt": "100 ohm"},
+                                   "device": {"model": "switch", "cout": "0.1 pF"}}))
+    base = {"loss_balance_error": 0.0, "peak_vd_over_vdd": 2.4,
+            "start": {"method": "periodic", "estimate_peak_vd_v": 19.8}}
+    text = design_warnings(sized, {**base, "peak_vd_range_v": [20.0, 28.0]})
+    assert len(text) == 1
+    assert "2.00 to 2.80 Vdd" in text[0] and "reported 2.40 Vdd" in text[0] and "peaks at 1.98 Vdd" in text[0]
+    # a 4 % spread is not worth a sentence
+    assert design_warnings(sized, {**base, "peak_vd_range_v": [20.0, 20.8]}) == []
