@@ -56,8 +56,9 @@ __all__ = ["Unsupported", "PeriodicState", "estimate", "grid_points"]
 #: largest grid of the estimate (grid_points), for a switch and for a nonlinear device
 GRID_MAX = 2048
 GRID_MAX_NONLINEAR = 1024
-#: on-interval samples above which the switch's system is solved as Toeplitz (_solve_on_interval)
-TOEPLITZ_FROM = 800
+#: on-interval samples above which the switch's system is solved as Toeplitz (_solve_on_interval; LU
+#: below, where it is as fast)
+TOEPLITZ_FROM = 128
 #: harmonics of the port impedance kept in PeriodicState.z_port
 PORT_HARMONICS = 50
 #: Newton iterations allowed for a nonlinear device before the estimate is given up
@@ -586,7 +587,7 @@ def _solve_on_interval(kernel: np.ndarray, act: np.ndarray, r: np.ndarray, rhs: 
     C + r0 I is Toeplitz: above ``TOEPLITZ_FROM`` samples, Levinson recursion
     (scipy.linalg.solve_toeplitz, O(n^2)) with the last sample's difference added by the
     Sherman-Morrison formula; the residual is checked and a dense LU solve used when it is not
-    small (or the samples are not contiguous, or fewer: LU is then as fast).
+    small (or the samples are not contiguous, or fewer).
     """
     M = len(kernel)
     n = act.size
