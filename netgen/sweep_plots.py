@@ -44,6 +44,31 @@ LINE_METRICS = {
     "h3_dbc": ("3rd harmonic in load (dBc)", 1.0),
 }
 
+#: metric -> the smallest span of the value axis drawn, in display units. A metric that does
+#: not move over the sweep (efficiency of a linear network against supply voltage, which
+#: scales every voltage and current alike) is drawn as the flat line it is, not with an axis
+#: magnified to show the simulator's last digits.
+MIN_SPAN = {
+    "drain_efficiency": 1.0,  # percentage points
+    "peak_vd_over_vdd": 0.02,
+    "h2_dbc": 1.0,  # dB
+    "h3_dbc": 1.0,
+}
+MIN_SPAN_REL = 0.02  # other metrics: 2 % of their magnitude
+
+
+def _value_limits(values: np.ndarray, metric: str) -> tuple[float, float] | None:
+    """(low, high) for a value axis that would span less than the metric's smallest span, else None."""
+    v = values[np.isfinite(values)]
+    if v.size == 0:
+        return None
+    lo, hi = float(v.min()), float(v.max())
+    span = MIN_SPAN.get(metric, MIN_SPAN_REL * max(abs(lo), abs(hi)))
+    if span <= 0 or hi - lo >= span:
+        return None
+    mid = 0.5 * (lo + hi)
+    return mid - span / 2, mid + span / 2
+
 
 def _value(row: dict, metric: str) -> float:
     """The metric of a stored row, NaN unless the point ran and settled."""
@@ -137,6 +162,10 @@ def plot_line(rows: Sequence[dict], axis: str, path: Path, unit: str = "",
         x, y = line_data(rows, axis, metric)
         label, scale = LINE_METRICS.get(metric, (metric, 1.0))
         ax.plot(x, y * scale, "o-", color="#1f4e79", ms=4, lw=1.2)
+        lim = _value_limits(y * scale, metric)
+        if lim is not None:
+            ax.set_ylim(*lim)
+        ax.ticklabel_format(axis="y", useOffset=False)
         ax.set_ylabel(label, fontsize=8)
         ax.grid(True, color="#dddddd", lw=0.6)
     axes[-1, 0].set_xlabel(_axis_label(axis, unit))
@@ -151,8 +180,10 @@ def plot_grid(rows: Sequence[dict], x_axis: str, y_axis: str, metric: str, path:
     xs, ys, z = grid_data(rows, x_axis, y_axis, metric)
     label, scale = LINE_METRICS.get(metric, (metric, 1.0))
     fig, ax = plt.subplots(figsize=(6.4, 4.8))
-    mesh = ax.pcolormesh(xs, ys, z * scale, shading="nearest", cmap="viridis")
-    if len(xs) > 1 and len(ys) > 1 and np.isfinite(z).sum() >= 4:
+    lim = _value_limits(z * scale, metric)
+    vmin, vmax = lim if lim is not None else (None, None)
+    mesh = ax.pcolormesh(xs, ys, z * scale, shading="nearest", cmap="viridis", vmin=vmin, vmax=vmax)
+    if lim is None and len(xs) > 1 and len(ys) > 1 and np.isfinite(z).sum() >= 4:
         cs = ax.contour(xs, ys, z * scale, colors="white", linewidths=0.7)
         ax.clabel(cs, fontsize=7)
     fig.colorbar(mesh, ax=ax, label=label)

@@ -342,6 +342,30 @@ def test_line_and_circle_plot_data_equal_the_database(tmp_path):
     assert set(made) == {"load_circle", "line_load_phase_deg"}
 
 
+def test_flat_metric_is_drawn_flat(tmp_path, monkeypatch):
+    # Efficiency of a switch into a linear network does not move with Vdd (superposition, common
+    # practice): the value axis must then show a flat line over a sensible span, not the last
+    # digits of the simulator magnified by an offset.
+    import matplotlib.pyplot as plt
+
+    import netgen.sweep_plots as sp
+
+    rows = [{"status": "ok", "inputs": {"axes": {"design.vdd": v}},
+             "metrics": {"drain_efficiency": 0.8020354 + 1e-12 * k, "pout_w": 0.01 * v * v,
+                         "peak_vd_over_vdd": 2.17, "h2_dbc": -29.9, "h3_dbc": -31.0}}
+            for k, v in enumerate((20.0, 22.0, 24.0))]
+    drawn = {}
+    monkeypatch.setattr(sp, "_save", lambda fig, path: drawn.setdefault("fig", fig) and path)
+    sp.plot_line(rows, "design.vdd", tmp_path / "line.png", "V")
+    axes = drawn["fig"].axes
+    lo, hi = axes[0].get_ylim()
+    assert hi - lo >= sp.MIN_SPAN["drain_efficiency"] and lo < 80.2 < hi
+    assert axes[0].yaxis.get_major_formatter().get_offset() == ""
+    lo, hi = axes[1].get_ylim()  # Pout moves 4.0 -> 5.76 W: drawn over its own range
+    assert hi - lo < 2.5
+    plt.close(drawn["fig"])
+
+
 def test_resume_runs_only_missing_points(tmp_path):
     plan = make_plan(BASE, vary=["design.vdd=10V:13V:4"])
     with SweepStore(tmp_path / STORE_NAME) as st:
