@@ -75,7 +75,8 @@ def ac_grid(freqs_hz) -> tuple[int, float, float]:
     """One ``.ac lin N f1 f2`` grid that contains every requested frequency exactly.
 
     The step is the largest common divisor of the frequency differences (found with
-    rational approximation to 1e-9 relative); N = (f2 - f1)/step + 1.
+    rational approximation to 1e-9 relative); N = (f2 - f1)/step + 1, and 3 instead of 2
+    (ngspice 39 gives only f1 for ``lin 2``).
 
     Raises
     ------
@@ -94,6 +95,8 @@ def ac_grid(freqs_hz) -> tuple[int, float, float]:
         step = frac if step is None else Fraction(math.gcd(step.numerator * frac.denominator, frac.numerator * step.denominator),
                                                    step.denominator * frac.denominator)
     n = int(round((f[-1] - f[0]) / (float(step) * scale))) + 1
+    if n == 2:  # ngspice 39 returns only the start point of ".ac lin 2 f1 f2" (measured): add the midpoint
+        n = 3
     if n > _MAX_AC_POINTS:
         raise RenderError(f"ac_freqs_hz: no common grid of at most {_MAX_AC_POINTS} points holds all {len(f)} frequencies; request fewer or rounder frequencies.")
     return n, f[0], f[-1]

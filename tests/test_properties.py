@@ -146,10 +146,16 @@ def test_rendered_ac_netlist_matches_numpy_network(doc):
         return
     f0 = sized.design.f0_hz
     f = f0 * np.arange(1, 6)
-    freq, vec = run_ac(render(sized, mode="ac", ac_freqs_hz=f), timeout_s=120)
-    idx = [int(np.argmin(np.abs(freq - x))) for x in f]
-    np.testing.assert_allclose(freq[idx], f, rtol=1e-9)
-    z_spice = vec["drain"][idx]
+    # One analysis per harmonic: in a sweep ngspice keeps the pivot order it chose at the first
+    # frequency, and where a line is an exact half wave (its admittance matrix singular) that
+    # costs digits: measured 1.3e-3 relative at 2 f0 on a 1 MHz class_f_feed with Z0 = 8.1 kohm
+    # and a 1 ohm load when the sweep starts at f0, exact to 1e-12 when the analysis starts there.
+    z_spice = []
+    for fk in f:
+        freq, vec = run_ac(render(sized, mode="ac", ac_freqs_hz=[fk]), timeout_s=120)
+        np.testing.assert_allclose(freq, [fk], rtol=1e-9)
+        z_spice.append(vec["drain"][0])
+    z_spice = np.array(z_spice)
     z_numpy = np.asarray(z_drain(sized, f))
     # ngspice solves the same linear equations, but from values printed with 10 significant
     # digits and with gmin (1e-12 S) on every node; next to a resonance that shifts |Z| by

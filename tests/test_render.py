@@ -231,6 +231,18 @@ def test_ac_grid_contains_harmonics_exactly():
 
 
 @pytest.mark.ngspice
+def test_ac_grid_of_two_frequencies_returns_both():
+    # Measured with ngspice 39: ".ac lin 2 f1 f2" gives only f1; the grid then takes 3 points.
+    from netgen.engine import run_ac
+
+    assert ac_grid([1e9, 2e9]) == (3, 1e9, 2e9)
+    s = size(make())
+    freq, vec = run_ac(render(s, "ac", ac_freqs_hz=[s.design.f0_hz, 2 * s.design.f0_hz]))
+    assert_allclose(freq[[0, -1]], [s.design.f0_hz, 2 * s.design.f0_hz], rtol=1e-12)
+    assert len(vec["drain"]) == 3
+
+
+@pytest.mark.ngspice
 @pytest.mark.parametrize("device", [
     {"model": "switch", "transition": 0.02},
     {"model": "gm", "vknee": "1 V", "conduction_angle": "220 deg"},
