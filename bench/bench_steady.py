@@ -11,9 +11,9 @@ Per design (sims/<name>.toml):
 * **naive**: the same transient netlist (``netgen.render.render(sized, "tran")``, same step)
   without initial conditions and without ``uic`` -- a plain ``.tran`` that starts from ngspice's
   DC operating point -- run long once. Per-cycle Pdc and P1 give the converged reference (mean of
-  the last 10 cycles) and the cycles really needed to stay within 0.1 % of it. The naive time to
-  0.1 % is read from the same long run's wall-clock stamps at that cycle (the run is chunked into
-  ``chunk`` cycles only to take those stamps).
+  the last 100 cycles, ``common.reference_tail``) and the cycles really needed to stay within
+  0.1 % of it. The naive time to 0.1 % is read from the same long run's wall-clock stamps at
+  that cycle (the run is chunked into ``chunk`` cycles only to take those stamps).
 * **warm oracle**: the transient netlist netgen itself ran (captured from its call of
   ``netgen.engine.run_transient``, its initial state and line-history sources included) run
   long, to count the cycles the warm start really needs, independent of netgen's stopping rule.
@@ -33,10 +33,10 @@ import numpy as np
 
 try:  # run as a script from bench/ or imported as bench.bench_steady
     from common import (TOL, CycleStats, cycles_to_tol, jitter, load_sized, plain_tran, proc_peak_rss_mb,
-                        set_tstop, tail_change, waveform_powers)
+                        reference_tail, set_tstop, tail_change, waveform_powers)
 except ImportError:  # pragma: no cover
     from bench.common import (TOL, CycleStats, cycles_to_tol, jitter, load_sized, plain_tran, proc_peak_rss_mb,
-                              set_tstop, tail_change, waveform_powers)
+                              reference_tail, set_tstop, tail_change, waveform_powers)
 
 __all__ = ["warm_up", "netgen_runs", "long_run", "measure_design", "settle_cycles", "settle_summary", "overhead", "memory_batch",
            "chunk_overhead", "line_segments"]
@@ -165,7 +165,7 @@ JITTER_LIMIT = 0.2
 
 def settle_cycles(run: dict, final: dict | None = None, smooth: int = 1) -> int | None:
     """Cycles until Pdc and P1 (or their ``smooth``-cycle trailing means) stay within TOL of ``final``
-    (default: the run's own last 10 cycles)."""
+    (default: the mean of the run's own last 100 cycles)."""
     return cycles_to_tol({"pdc_w": run["pdc_w"], "p1_w": run["p1_w"]}, TOL, final=final, smooth=smooth)
 
 
@@ -180,7 +180,9 @@ def settle_summary(run: dict, final: dict) -> dict:
             "cycles": smoothed if use_smooth else raw}
 
 
-def _final(run: dict, tail: int = 10) -> dict:
+def _final(run: dict) -> dict:
+    """The converged Pdc, P1, Pload of a long run: the mean of its last reference_tail cycles."""
+    tail = reference_tail(len(run["pdc_w"]))
     return {k: float(np.mean(run[k][-tail:])) for k in ("pdc_w", "p1_w", "pload_w")}
 
 
