@@ -17,7 +17,7 @@ import numpy as np
 from .netlist_cards import GROUND, read_cards
 from .pss import PeriodicState
 
-__all__ = ["with_initial_state", "initial_conditions", "history_sources", "simplify_polyline",
+__all__ = ["with_initial_state", "initial_conditions", "history_sources", "history_release", "simplify_polyline",
            "smooth_nyquist", "HISTORY_PREFIX"]
 
 #: node and element names given to the line-history sources (:func:`with_initial_state`)
@@ -159,6 +159,36 @@ def history_sources(state: PeriodicState, name: str) -> tuple[tuple, list[str]]:
         extra += _pwl_source(f"V{HISTORY_PREFIX}{low}_{port}", a, node, times[keep], vh[keep])
         extra += _pwl_source(f"I{HISTORY_PREFIX}{low}_{port}", ref, node, times[keep], vh[keep] / z0)
     return (new_nodes[1], new_nodes[2], [_fmt(x) for x in ic]), extra
+
+
+def history_release(state: PeriodicState) -> tuple[float, tuple[str, ...]] | None:
+    """When and how to retire the line-history sources of :func:`with_initial_state` in a paused run.
+
+    From the longest line delay on, every history source is zero, but ngspice keeps evaluating
+    its PWL waveform at every time point: measured on sims/demo.toml, 30 cycles cost 13.8 us per
+    time point with the sources against 11.3 us with the same sources as ``DC 0`` (ngspice 39).
+    Set to a constant zero (``alter @name[pwl] = [ 0 0 1 0 ]``) once the delays are over, the
+    run is the rendered circuit again at its own cost, with the same answer (per-cycle Pdc and P1
+    of 12 cycles unchanged to 1e-6 when the stop is at a switching instant).
+
+    Returns
+    -------
+    (t_s, commands) or None
+        The first multiple of half a period after the longest delay (the switch of a 50 % duty
+        drive turns there, so the stop adds no time point), s, and the ``alter`` commands for the
+        engine's :class:`netgen.engine.Resume`; None when the network has no lines.
+    """
+    if not state.lines:
+        return None
+    td_max = max(td for _, td, _ in state.lines.values())
+    half = 0.5 * state.period_s
+    t_s = math.ceil(td_max / half * (1 + 1e-9) + 1e-9) * half
+    names = []
+    for name in state.lines:
+        low = name.lower()
+        for port in (1, 2):
+            names += [f"v{HISTORY_PREFIX}{low}_{port}", f"i{HISTORY_PREFIX}{low}_{port}"]
+    return t_s, tuple(f"alter @{n}[pwl] = [ 0 0 1 0 ]" for n in names)
 
 
 def with_initial_state(netlist: str, state: PeriodicState) -> str:

@@ -216,6 +216,62 @@ def test_a_line_started_on_the_estimate_carries_its_periodic_waves_from_the_firs
             assert err > 25 * 2e-4
 
 
+class _Release:
+    """A stop_check (picklable: module level) that sends ``commands`` at its first stop only."""
+
+    def __init__(self, commands, before_s):
+        self.commands, self.before_s = commands, before_s
+
+    def __call__(self, t_end, part):
+        from netgen import engine
+
+        return False, None, (engine.Resume(self.commands, None) if t_end < self.before_s else None)
+
+
+def test_history_sources_are_retired_after_the_longest_delay_at_a_half_period():
+    f0 = 1e9
+    T = 1 / f0
+    state = pss.estimate(_line_circuit(f0), f0, 1000)
+    t_s, commands = initial_state.history_release(state)
+    assert t_s == pytest.approx(T / 2)  # TD = T/7: the first half period after it
+    assert len(commands) == 4  # V and I source at each of the two ports
+    assert all(c.startswith("alter @") and c.endswith("[pwl] = [ 0 0 1 0 ]") for c in commands)
+    import dataclasses
+
+    long_line = dataclasses.replace(state, lines={k: (z0, 1.2 * T, n) for k, (z0, _, n) in state.lines.items()})
+    assert initial_state.history_release(long_line)[0] == pytest.approx(1.5 * T)
+    assert initial_state.history_release(dataclasses.replace(state, lines={})) is None
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("backend", ["shared", "batch"])
+def test_retiring_the_history_sources_changes_no_result(backend):
+    # After the line delay the sources are zero; setting their PWL to a constant zero at a pause
+    # (ngspice alter, both simulator paths) must leave every later time point where it was:
+    # the same circuit, the same equations (exact up to rounding).
+    from netgen import engine
+
+    f0 = 1e9
+    T = 1 / f0
+    net = _line_circuit(f0)
+    state = pss.estimate(net, f0, 1000)
+    started = initial_state.with_initial_state(net, state)
+    t_s, commands = initial_state.history_release(state)
+    plain = engine.run_transient(started, save=["b"], backend=backend)
+    paused = engine.run_transient(started, save=["b"], backend=backend, stop_check=_Release(commands, T),
+                                  chunk_s=t_s)
+    a = fourier_pwl(plain["time"], plain["b"], 5 * T, T, 5)
+    b = fourier_pwl(paused["time"], paused["b"], 5 * T, T, 5)
+    np.testing.assert_allclose(b, a, rtol=0, atol=1e-6 * abs(a[1]))
+    # the control: the same commands half-way through the delay cut the history short, and the
+    # first cycle moves (so the alter above did act, on this path too)
+    early = engine.run_transient(started, save=["b"], backend=backend, stop_check=_Release(commands, T),
+                                 chunk_s=T / 14)
+    first = fourier_pwl(plain["time"], plain["b"], 0.0, T, 5)
+    cut = fourier_pwl(early["time"], early["b"], 0.0, T, 5)
+    assert float(np.max(np.abs(cut[1:] - first[1:]))) > 1e-3 * abs(first[1])
+
+
 @pytest.mark.ngspice
 @pytest.mark.slow
 @pytest.mark.parametrize("name", ["class_f_lumped", "class_b_tuned"])
