@@ -102,6 +102,12 @@ def _pwl_source(name: str, a: str, b: str, times, values) -> list[str]:
     return out
 
 
+def _history_source_names(line: str, port: int) -> tuple[str, str]:
+    """The voltage and current source that give port ``port`` of line ``line`` its history."""
+    low = line.lower()
+    return f"V{HISTORY_PREFIX}{low}_{port}", f"I{HISTORY_PREFIX}{low}_{port}"
+
+
 def history_sources(state: PeriodicState, name: str) -> tuple[tuple, list[str]]:
     """The rewired card of line ``name`` and the sources that give it its periodic history.
 
@@ -156,8 +162,9 @@ def history_sources(state: PeriodicState, name: str) -> tuple[tuple, list[str]]:
         keep = simplify_polyline(times, vh, HISTORY_TOL * max(span, 1e-12))
         node = f"{HISTORY_PREFIX}{low}_{port}"
         new_nodes[port] = node
-        extra += _pwl_source(f"V{HISTORY_PREFIX}{low}_{port}", a, node, times[keep], vh[keep])
-        extra += _pwl_source(f"I{HISTORY_PREFIX}{low}_{port}", ref, node, times[keep], vh[keep] / z0)
+        v_name, i_name = _history_source_names(name, port)
+        extra += _pwl_source(v_name, a, node, times[keep], vh[keep])
+        extra += _pwl_source(i_name, ref, node, times[keep], vh[keep] / z0)
     return (new_nodes[1], new_nodes[2], [_fmt(x) for x in ic]), extra
 
 
@@ -183,12 +190,8 @@ def history_release(state: PeriodicState) -> tuple[float, tuple[str, ...]] | Non
     td_max = max(td for _, td, _ in state.lines.values())
     half = 0.5 * state.period_s
     t_s = math.ceil(td_max / half * (1 + 1e-9) + 1e-9) * half
-    names = []
-    for name in state.lines:
-        low = name.lower()
-        for port in (1, 2):
-            names += [f"v{HISTORY_PREFIX}{low}_{port}", f"i{HISTORY_PREFIX}{low}_{port}"]
-    return t_s, tuple(f"alter @{n}[pwl] = [ 0 0 1 0 ]" for n in names)
+    names = [n for name in state.lines for port in (1, 2) for n in _history_source_names(name, port)]
+    return t_s, tuple(f"alter @{n.lower()}[pwl] = [ 0 0 1 0 ]" for n in names)
 
 
 def with_initial_state(netlist: str, state: PeriodicState) -> str:
