@@ -246,10 +246,9 @@ class SettleCheck:
     anchor: Anchor | None = None
     #: each cycle's largest drain voltage and current (``vd_max_v``, ``id_max_a``)
     peaks: dict = field(default_factory=dict)
-    #: sent at the first stop (engine Resume): retires the line-history sources and sets the
-    #: next stop (netgen.initial_state.history_release)
+    #: sent at the first stop, then cleared (engine Resume): retires the line-history sources
+    #: and sets the next stop (netgen.initial_state.history_release)
     release: object = None
-    _released: bool = False
     _buf: dict | None = None
 
     def _append(self, vecs) -> None:
@@ -312,10 +311,10 @@ class SettleCheck:
         pdc = self.pdc_w[-1] if self.pdc_w else float("nan")
         pl = self.pload_w[-1] if self.pload_w else float("nan")
         message = f"cycle {n}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
-        if self.release is not None and not self._released:
-            self._released = True
+        if self.release is not None:
+            action, self.release = self.release, None
             if not ok:
-                return ok, message, self.release
+                return ok, message, action
         if self.step_cycles and not ok:
             return ok, message, engine.Resume((), (n + self.step_cycles + 1e-6) * self.period_s)
         return ok, message
