@@ -2,20 +2,20 @@
 
 Per design (sims/<name>.toml):
 
-* **netgen**: ``netgen.steady.simulate(sized)`` as a user gets it (start on the periodic state
+* **netgen**: ``netgen.periodic.steady.simulate(sized)`` as a user gets it (start on the periodic state
   computed from the netlist, automatic stop), wall time (median of ``repeats`` runs before and
   ``repeats`` after the naive run, the first run of a fresh worker apart), its cycles, its Pdc /
   P1 / efficiency, and the seconds of its calls (estimate, ngspice).
 * **netgen, DC start**: the same with ``sim.periodic_start = false`` (the DC state of feed and
   block with bias-mode nulling, netgen's previous start), one run, side by side.
-* **naive**: the same transient netlist (``netgen.render.render(sized, "tran")``, same step)
+* **naive**: the same transient netlist (``netgen.netlist.renderer.render(sized, "tran")``, same step)
   without initial conditions and without ``uic`` -- a plain ``.tran`` that starts from ngspice's
   DC operating point -- run long once. Per-cycle Pdc and P1 give the converged reference (mean of
   the last 100 cycles, ``common.reference_tail``) and the cycles really needed to stay within
   0.1 % of it. The naive time to 0.1 % is read from the same long run's wall-clock stamps at
   that cycle (the run is chunked into ``chunk`` cycles only to take those stamps).
 * **warm oracle**: the transient netlist netgen itself ran (captured from its call of
-  ``netgen.engine.run_transient``, its initial state and line-history sources included) run
+  ``netgen.simulator.engine.run_transient``, its initial state and line-history sources included) run
   long, to count the cycles the warm start really needs, independent of netgen's stopping rule.
 """
 
@@ -60,7 +60,7 @@ C1 out 0 1p
 
 def warm_up(backend: str = "shared") -> float:
     """Start the simulator worker (if needed) with a trivial operating point; seconds taken."""
-    from netgen import engine
+    from netgen.simulator import engine
 
     t0 = time.monotonic()
     engine.run_op(_DIVIDER, backend=backend)
@@ -70,11 +70,12 @@ def warm_up(backend: str = "shared") -> float:
 @contextmanager
 def _spy():
     """Record every ``engine.run_transient`` / ``engine.run_op`` call and every periodic estimate
-    (``netgen.pss.estimate``) made inside the block: [(kind, netlist, seconds)]."""
-    from netgen import engine, pss
+    (``netgen.periodic.estimator.estimate``) made inside the block: [(kind, netlist, seconds)]."""
+    from netgen import simulator  # the periodic stage calls the simulator through its package face
+    from netgen.periodic import estimator
 
     calls = []
-    originals = {(engine, "run_transient"): "tran", (engine, "run_op"): "op", (pss, "estimate"): "estimate"}
+    originals = {(simulator, "run_transient"): "tran", (simulator, "run_op"): "op", (estimator, "estimate"): "estimate"}
     saved = {key: getattr(*key) for key in originals}
 
     def timed(kind, run):
@@ -96,11 +97,11 @@ def _spy():
 
 
 def netgen_runs(sized, repeats: int = 3) -> dict:
-    """``netgen.steady.simulate(sized)`` ``repeats`` times; wall time, cycles and powers of the last run.
+    """``netgen.periodic.steady.simulate(sized)`` ``repeats`` times; wall time, cycles and powers of the last run.
 
     ``engine_calls`` lists the last run's calls and their seconds: ``estimate`` (the periodic
-    state, :mod:`netgen.pss`), ``op`` and ``tran`` (ngspice)."""
-    from netgen import steady
+    state, :mod:`netgen.periodic.estimator`), ``op`` and ``tran`` (ngspice)."""
+    from netgen.periodic import steady
 
     d = sized.design
     times, calls = [], []
@@ -135,7 +136,7 @@ def long_run(netlist: str, sized, cycles: int, *, chunk: int = 50, budget_s: flo
         the call)], ``points_per_cycle`` (simulator time points per cycle), ``truncated`` (the
         wall-time budget ended it early).
     """
-    from netgen import engine
+    from netgen.simulator import engine
 
     d = sized.design
     T = 1.0 / d.f0_hz
@@ -193,8 +194,8 @@ def _rel(a: float, b: float) -> float:
 def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repeats: int = 3,
                    chunk: int = 50, budget_s: float = float("inf"), progress=print) -> dict:
     """All steady-state numbers of one design (see the module docstring)."""
-    from netgen import engine
-    from netgen.render import render
+    from netgen.simulator import engine
+    from netgen.netlist.renderer import render
 
     d = sized.design
     T = 1.0 / d.f0_hz
@@ -285,7 +286,7 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
 
 def overhead(runs: int = 20) -> dict:
     """Per-run wall time of a tiny transient (200 points) through the shared library and the batch executable."""
-    from netgen import engine
+    from netgen.simulator import engine
 
     out = {"circuit": "RC driven by a pulse, .tran 0.1n 20n", "runs": runs}
     engine.shutdown()
@@ -311,8 +312,8 @@ def overhead(runs: int = 20) -> dict:
 
 def chunk_overhead(name: str, cycles: int, chunks=(5, 50)) -> dict:
     """Cost of stop/resume chunking: the cold netlist run straight vs in chunks of 5 and 50 cycles."""
-    from netgen import engine
-    from netgen.render import render
+    from netgen.simulator import engine
+    from netgen.netlist.renderer import render
 
     sized = load_sized(name)
     d = sized.design
@@ -333,8 +334,8 @@ def line_segments(cycles: int) -> dict:
     single line: simulator time points per cycle and seconds per cycle of a cold run."""
     import dataclasses
 
-    from netgen.render import render
-    from netgen.sizing import size
+    from netgen.netlist.renderer import render
+    from netgen.synthesis.sizing import size
 
     base = load_sized("demo")
     out = {"cycles": cycles}
@@ -354,7 +355,7 @@ _MEM_CHILD = """
 import json, resource, sys, time
 sys.path.insert(0, {bench!r})
 from common import load_sized
-from netgen import steady
+from netgen.periodic import steady
 sized = load_sized({name!r})
 t0 = time.monotonic()
 wf = steady.simulate(sized, backend="batch")

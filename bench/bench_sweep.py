@@ -23,11 +23,11 @@ from pathlib import Path
 
 
 def main() -> None:
-    from netgen.design import load_design
+    from netgen.design.schema import load_design
     from netgen.fileio import atomic_write_text
-    from netgen.store import STORE_NAME, SweepStore
-    from netgen.sweep import make_plan
-    from netgen.sweep_exec import run_sweep
+    from netgen.studies.store import STORE_NAME, SweepStore
+    from netgen.studies.plan import make_plan
+    from netgen.studies.execute import run_sweep
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--points", type=int, default=192)

@@ -1,8 +1,8 @@
 """Helpers shared by the benchmarks: designs, netlist edits, per-cycle powers, settle counts.
 
-Everything here uses netgen's public API only (``netgen.design.load_design``,
-``netgen.sizing.size``, ``netgen.render.render``, ``netgen.engine.run_transient``,
-``netgen.steady.simulate``). Times are wall-clock seconds from ``time.monotonic()``
+Everything here uses netgen's public API only (``netgen.design.schema.load_design``,
+``netgen.synthesis.sizing.size``, ``netgen.netlist.renderer.render``, ``netgen.simulator.engine.run_transient``,
+``netgen.periodic.steady.simulate``). Times are wall-clock seconds from ``time.monotonic()``
 (system-wide on Linux, so the simulator worker's time stamps compare with ours).
 """
 
@@ -38,8 +38,8 @@ def load_sized(name: str, *, feed_scale: float = 1.0, block_scale: float = 1.0):
     -------
     SizedDesign
     """
-    from netgen.design import load_design
-    from netgen.sizing import size
+    from netgen.design.schema import load_design
+    from netgen.synthesis.sizing import size
 
     design = load_design(SIMS / f"{name}.toml")
     sized = size(design)
@@ -94,7 +94,7 @@ def cycle_powers(t_s, v_load, i_vdd_branch, *, t0_s: float, period_s: float, vdd
 
 
 def waveform_powers(wf, *, vdd_v: float, rload_ohm: float) -> tuple[float, float, float]:
-    """Pdc, P1, Pload (W) of netgen's settled :class:`~netgen.records.Waveforms` (whole periods on a uniform grid)."""
+    """Pdc, P1, Pload (W) of netgen's settled :class:`~netgen.design.records.Waveforms` (whole periods on a uniform grid)."""
     t = np.asarray(wf.t_s, dtype=float)
     n = len(t)
     period = 1.0 / wf.f0_hz
@@ -108,7 +108,7 @@ def waveform_powers(wf, *, vdd_v: float, rload_ohm: float) -> tuple[float, float
 
 @dataclasses.dataclass
 class CycleStats:
-    """A ``stop_check`` for ``netgen.engine.run_transient`` that records per-cycle powers and never
+    """A ``stop_check`` for ``netgen.simulator.engine.run_transient`` that records per-cycle powers and never
     stops the run early unless ``budget_s`` of wall time has passed.
 
     It runs inside the simulator worker process, so it is a plain picklable object; the engine
@@ -254,7 +254,8 @@ def _cpu_model() -> str:
 
 def machine_info() -> dict:
     """Machine, software versions and the source tree state the numbers belong to."""
-    from netgen import __version__, engine
+    from netgen import __version__
+    from netgen.simulator import engine
 
     try:
         mem_kb = int(re.search(r"MemTotal:\s+(\d+)", Path("/proc/meminfo").read_text()).group(1))

@@ -98,7 +98,7 @@ def main(argv=None) -> int:
     ap.add_argument("--no-sweep", action="store_true", help="skip bench/bench_sweep.py")
     args = ap.parse_args(argv)
 
-    from netgen import engine
+    from netgen.simulator import engine
     from netgen.fileio import atomic_write_text
 
     quick = args.quick
@@ -165,7 +165,7 @@ def main(argv=None) -> int:
 
     log("peak memory")
     mem_name = "class_b_tuned" if quick else "demo"
-    mem = {"what": "VmHWM (peak RSS) of the shared-library worker process after netgen.steady.simulate runs "
+    mem = {"what": "VmHWM (peak RSS) of the shared-library worker process after netgen.periodic.steady.simulate runs "
                    "(fresh worker per design), from /proc/<pid>/status; batch: ru_maxrss of the ngspice "
                    "executable (RUSAGE_CHILDREN in a fresh Python process); bench process: RUSAGE_SELF."}
     mem["shared_worker_per_design_mb"] = {r["design"]: r["netgen"]["worker_peak_rss_mb"] for r in rows}
@@ -193,7 +193,7 @@ def main(argv=None) -> int:
 
     print()
     print(_table(rows))
-    print("netgen s: median wall time of netgen.steady.simulate (periodic start); cyc: its cycles; ok: its Pdc "
+    print("netgen s: median wall time of netgen.periodic.steady.simulate (periodic start); cyc: its cycles; ok: its Pdc "
           f"and P1 within {TOL:.1%} of the long cold reference; naive s / cold cyc: plain .tran until Pdc and P1 "
           f"stay within {TOL:.1%}; warm cyc: the same for the netlist netgen started (run long); dEff pt: netgen "
           "efficiency - reference (points); DC-start: netgen with sim.periodic_start = false (the DC warm start "

@@ -1,6 +1,6 @@
 """Errors a user can cause, each with the exit code the CLI uses.
 
-Library code raises these and never prints or exits; ``netgen.cli`` turns them
+Library code raises these and never prints or exits; ``netgen.cli.root`` turns them
 into one ``Error: ...`` line on stderr and the exit code below.
 """
 

@@ -16,9 +16,9 @@ from typing import Callable
 
 import numpy as np
 
-from .design import Design
+from netgen.design import Design, SizedDesign, Waveforms
+
 from .errors import OutputError
-from .records import SizedDesign, Waveforms
 
 __all__ = ["RunResult", "evaluate", "run_design", "network_sweep", "write_outputs", "atomic_folder"]
 
@@ -41,9 +41,9 @@ class RunResult:
 def network_sweep(sized: SizedDesign, n_max: int, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
     """The passive network's drain impedance from 0.1 f0 to (n_max + 0.5) f0, n f0 points included.
 
-    Computed in the frequency domain by :func:`netgen.network.z_drain` (no simulator).
+    Computed in the frequency domain by :func:`netgen.synthesis.network.z_drain` (no simulator).
     """
-    from .network import z_drain
+    from netgen.synthesis import z_drain
 
     f0 = sized.design.f0_hz
     f = np.linspace(0.1 * f0, (n_max + 0.5) * f0, points)
@@ -71,10 +71,10 @@ def run_design(
     plots : bool
         Write the PNG plots and the HTML report (only with ``outdir``).
     """
-    from .analysis import analyse
-    from .render import render
-    from .sizing import size
-    from .steady import simulate
+    from netgen.netlist import render
+    from netgen.periodic import simulate
+    from netgen.results import analyse
+    from netgen.synthesis import size
 
     sized = size(design)
     netlist = render(sized, mode="tran")
@@ -138,8 +138,8 @@ class atomic_folder:
 
 def write_outputs(result: RunResult, outdir: Path, *, plots: bool = True) -> dict:
     """Write every output of a run into ``outdir`` atomically; return {kind: path}."""
-    from .report import write_metrics_json, write_waveforms_csv
-    from .sizing import write_sized_toml
+    from netgen.results import write_metrics_json, write_waveforms_csv
+    from netgen.synthesis import write_sized_toml
 
     names: dict[str, str] = {}
     with atomic_folder(outdir) as tmp:
@@ -152,10 +152,9 @@ def write_outputs(result: RunResult, outdir: Path, *, plots: bool = True) -> dic
         write_waveforms_csv(tmp / "waveforms.csv", result.waveforms)
         names["waveforms"] = "waveforms.csv"
         if plots:
-            from . import plots as P
-            from .report import write_report
+            from netgen.results import plot_all, write_report
 
-            made = P.plot_all(tmp, result.sized, result.waveforms, result.metrics, result.z_f_hz, result.z_ohm)
+            made = plot_all(tmp, result.sized, result.waveforms, result.metrics, result.z_f_hz, result.z_ohm)
             for kind, path in made.items():
                 names[f"plot_{kind}"] = Path(path).name
             write_report(tmp, result.sized, result.metrics, {k: Path(v).name for k, v in made.items()}, result.netlist)

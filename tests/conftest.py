@@ -38,11 +38,11 @@ def write_toml(path: Path, doc: dict) -> Path:
 
 @pytest.fixture
 def netgen_cli(capsys):
-    """Run ``netgen ARGS...`` in this process through ``netgen.cli.main``.
+    """Run ``netgen ARGS...`` in this process through ``netgen.cli.root.main``.
 
     Returns a function ``run(*args) -> (exit_code, stdout, stderr)``.
     """
-    from netgen.cli import main
+    from netgen.cli.root import main
 
     def run(*args):
         capsys.readouterr()

@@ -9,21 +9,11 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.analysis import (
-    analyse,
-    device_loss_split,
-    fourier,
-    fourier_pwl,
-    harmonic_impedance,
-    parse_loss_elements,
-    parse_spice_number,
-    periods_in,
-    pwl_mean_square,
-    waveform_efficiency,
-)
-from netgen.design import Design, DeviceSpec, SimSpec
+from netgen.results.analysis import analyse, device_loss_split, fourier, harmonic_impedance, parse_loss_elements, parse_spice_number, periods_in, waveform_efficiency
+from netgen.periodic.fourier import fourier_pwl, pwl_mean_square
+from netgen.design.schema import Design, DeviceSpec, SimSpec
 from netgen.errors import SimulationError
-from netgen.records import SizedDesign, Waveforms
+from netgen.design.records import SizedDesign, Waveforms
 
 F0 = 1e9
 VDD = 10.0
@@ -387,17 +377,17 @@ def test_spice_numbers_and_loss_lines():
 @pytest.mark.ngspice
 def test_simulated_class_f_line_matches_network_analysis():
     # A linear network answers each harmonic independently, so the transient's Z_n = V_n/(-I_n)
-    # must equal the impedance computed from ABCD matrices in numpy (netgen.network, Pozar's
+    # must equal the impedance computed from ABCD matrices in numpy (netgen.synthesis.network, Pozar's
     # transmission-line theory) wherever the current harmonic is meaningful; and energy is
     # conserved (Tellegen): the loss budget closes within 1 % of Pdc.
     from dataclasses import replace
     from pathlib import Path
 
-    from netgen.design import load_design
-    from netgen.network import z_drain
-    from netgen.render import render
-    from netgen.sizing import size
-    from netgen.steady import simulate
+    from netgen.design.schema import load_design
+    from netgen.synthesis.network import z_drain
+    from netgen.netlist.renderer import render
+    from netgen.synthesis.sizing import size
+    from netgen.periodic.steady import simulate
 
     design = load_design(Path(__file__).parents[1] / "sims" / "class_f_line.toml")
     # settle_tol 2.5e-4 (the harmonic-impedance judge scales with it). The abrupt switch into a
@@ -430,9 +420,9 @@ def test_simulated_class_f_line_matches_network_analysis():
 def test_warnings_name_what_to_change():
     # an abrupt switch with no output capacitance into a line leaves unresolved edge spikes
     # (docs/simulation.md, "Hard switching with Cout"); a loss budget off by more than 1 % is said
-    from netgen.analysis import design_warnings
-    from netgen.design import design_from_dict
-    from netgen.sizing import size
+    from netgen.results.analysis import design_warnings
+    from netgen.design.schema import design_from_dict
+    from netgen.synthesis.sizing import size
 
     doc = {"design": {"name": "w", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V", "ropt": "100 ohm"},
            "device": {"model": "switch"}}
@@ -447,9 +437,9 @@ def test_warnings_name_what_to_change():
 def test_a_wide_spread_of_per_period_peaks_is_said_with_the_smooth_peak():
     # per-period drain maxima from 20 to 28 V on a 10 V supply (2.0-2.8 Vdd): more than 5 % apart,
     # so the warning gives the range, the reported median and the computed smooth peak
-    from netgen.analysis import design_warnings
-    from netgen.design import design_from_dict
-    from netgen.sizing import size
+    from netgen.results.analysis import design_warnings
+    from netgen.design.schema import design_from_dict
+    from netgen.synthesis.sizing import size
 
     sized = size(design_from_dict({"design": {"name": "w", "topology": "class_f_line", "f0": "1 GHz",
                                               "vdd": "10 V", "ropt": "100 ohm"},

@@ -6,9 +6,9 @@ import math
 
 import pytest
 
-from netgen.design import SCHEMA, design_from_dict, load_design, reference_markdown, set_dotted
+from netgen.design.schema import SCHEMA, design_from_dict, load_design, reference_markdown, set_dotted
 from netgen.errors import DesignError
-from netgen.quantities import format_quantity, parse_quantity
+from netgen.design.quantities import format_quantity, parse_quantity
 
 
 def base_doc(**design):

@@ -1,4 +1,4 @@
-"""Tests of netgen.engine (both simulator paths) and netgen.rawfile."""
+"""Tests of netgen.simulator.engine (both simulator paths) and netgen.simulator.rawfile."""
 
 from __future__ import annotations
 
@@ -10,9 +10,10 @@ import struct
 import numpy as np
 import pytest
 
-from netgen import engine
+from netgen.simulator import engine
+from netgen.simulator.checks import short_run
 from netgen.errors import SimulationError
-from netgen.rawfile import parse_raw
+from netgen.simulator.rawfile import parse_raw
 
 F0 = 1e9
 T = 1 / F0
@@ -331,10 +332,10 @@ def test_include_cycle_ends_and_deep_nesting_is_refused(tmp_path):
 def test_short_run_without_message_is_still_an_error():
     # A run that ends early with no ngspice error line (the silent case) still names where it
     # stopped and points at the time step (NGSPICE_NOTES: silent collapse with transmission lines).
-    err = engine._short_run(4.2e-9, 1e-8, "stdout No. of Data Rows : 420\n")
+    err = short_run(4.2e-9, 1e-8, "stdout No. of Data Rows : 420\n")
     assert "stopped at t = 4.2e-09 s, before the requested 1e-08 s without an error message" in str(err)
     assert "minbreak" in err.hint
-    err = engine._short_run(None, 1e-8, LOG_MID_RUN)
+    err = short_run(None, 1e-8, LOG_MID_RUN)
     assert "before its first time point" in str(err) and "Timestep too small" in str(err)
 
 

@@ -1,4 +1,4 @@
-"""Hand-off pack (netgen.export) and `netgen export`.
+"""Hand-off pack (netgen.handoff.export) and `netgen export`.
 
 Outside references: the pack's portable netlist is re-run by the ngspice
 executable in its SPICE3 compatibility mode (ngspice user's manual,
@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from netgen.export import pack_grid_hz, reproduce_error, touchstone_text, waveforms_from_vectors
+from netgen.handoff.export import pack_grid_hz, reproduce_error, touchstone_text, waveforms_from_vectors
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
 DESIGN = SIMS / "class_f_line.toml"
@@ -54,7 +54,7 @@ def test_reproduce_error_is_relative():
 
 def _raw_vectors(raw_path: Path) -> dict:
     """ngspice raw-file names -> the engine's names (v(x) -> x, i(x) -> x#branch)."""
-    from netgen.rawfile import read_raw
+    from netgen.simulator.rawfile import read_raw
 
     plot = read_raw(raw_path)[-1]
     out = {}
@@ -71,8 +71,8 @@ def _raw_vectors(raw_path: Path) -> dict:
 
 @pytest.fixture(scope="module")
 def pack(tmp_path_factory):
-    from netgen.design import load_design
-    from netgen.export import export_pack
+    from netgen.design.schema import load_design
+    from netgen.handoff.export import export_pack
 
     out = tmp_path_factory.mktemp("packs") / "pack"
     design = load_design(DESIGN)
@@ -83,7 +83,7 @@ def pack(tmp_path_factory):
 @pytest.mark.ngspice
 @pytest.mark.slow
 def test_pack_contents(pack):
-    from netgen.portable import check_portable, format_problems
+    from netgen.netlist.portable import check_portable, format_problems
     from test_portable import pyspice_read_check
 
     design, result = pack
@@ -108,8 +108,8 @@ def test_pack_contents(pack):
 @pytest.mark.ngspice
 @pytest.mark.slow
 def test_portable_netlist_reproduces_in_spice3_mode(pack, tmp_path):
-    from netgen.analysis import analyse
-    from netgen.sizing import size
+    from netgen.results.analysis import analyse
+    from netgen.synthesis.sizing import size
 
     design, result = pack
     exe = shutil.which("ngspice")
@@ -139,9 +139,9 @@ def test_portable_netlist_reproduces_in_spice3_mode(pack, tmp_path):
 def test_touchstone_matches_network_impedance(pack):
     import skrf
 
-    from netgen.export import drain_impedance_ac
-    from netgen.network import z_drain
-    from netgen.sizing import size
+    from netgen.handoff.export import drain_impedance_ac
+    from netgen.synthesis.network import z_drain
+    from netgen.synthesis.sizing import size
 
     design, result = pack
     sized = size(design)
@@ -159,7 +159,7 @@ def test_touchstone_matches_network_impedance(pack):
 def test_export_command_refuses_a_foreign_folder(tmp_path):
     from click.testing import CliRunner
 
-    from netgen.cli_check import export_command
+    from netgen.cli.handoff import export_command
 
     target = tmp_path / "mine"
     target.mkdir()

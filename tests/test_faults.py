@@ -2,7 +2,7 @@
 and the next simulation works.
 
 Protections covered (each test fails if its protection is removed):
-* error detection in netgen.engine (ngspice's failure lines -> SimulationError, never a
+* error detection in netgen.simulator.engine (ngspice's failure lines -> SimulationError, never a
   silently truncated result),
 * ``diagnose`` (the simulator's message kept in the error, a hint matching the failure),
 * the wall-clock limit ``timeout_s`` (the run is killed, not waited for),
@@ -21,7 +21,7 @@ import threading
 import numpy as np
 import pytest
 
-from netgen import engine
+from netgen.simulator import engine
 from netgen.errors import SimulationError
 
 pytestmark = pytest.mark.ngspice

@@ -21,11 +21,11 @@ from pathlib import Path
 import pytest
 
 from conftest import MINIMAL_DOC, write_toml
-from netgen import engine
-from netgen.design import load_design
+from netgen.simulator import engine
+from netgen.design.schema import load_design
 from netgen.errors import DesignError, NetgenError, RenderError, SimulationError, SizingError
-from netgen.render import DIALECTS, MODES, render
-from netgen.sizing import size
+from netgen.netlist.renderer import DIALECTS, MODES, render
+from netgen.synthesis.sizing import size
 
 PAYLOADS = [
     "x\n.control\nshell touch /tmp/netgen_injected\n.endc",

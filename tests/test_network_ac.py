@@ -1,8 +1,8 @@
-"""Drain impedance: ngspice AC of the rendered netlist vs netgen.network.z_drain vs scikit-rf.
+"""Drain impedance: ngspice AC of the rendered netlist vs netgen.synthesis.network.z_drain vs scikit-rf.
 
-ngspice runs through netgen.engine.run_ac (batch path: the ngspice executable).
+ngspice runs through netgen.simulator.engine.run_ac (batch path: the ngspice executable).
 The scikit-rf networks are built here from the sized values with skrf's own element,
-line and shunt primitives (independent of netgen.network's ABCD code).
+line and shunt primitives (independent of netgen.synthesis.network's ABCD code).
 """
 
 from __future__ import annotations
@@ -16,12 +16,12 @@ import skrf
 from numpy.testing import assert_allclose
 from skrf.media import DefinedGammaZ0
 
-from netgen.design import design_from_dict, load_design
-from netgen.engine import run_ac
-from netgen.network import abcd_drain_to_load, abcd_tline, line_plan, z_drain, z_in
-from netgen.render import render
-from netgen.sizing import size
-from netgen.topologies import TOPOLOGY_REGISTRY
+from netgen.design.schema import design_from_dict, load_design
+from netgen.simulator.engine import run_ac
+from netgen.synthesis.network import abcd_drain_to_load, abcd_tline, line_plan, z_drain, z_in
+from netgen.netlist.renderer import render
+from netgen.synthesis.sizing import size
+from netgen.synthesis.topologies import TOPOLOGY_REGISTRY
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
 C0 = 299_792_458.0
@@ -195,7 +195,7 @@ def test_class_f_line_harmonics(topology):
 
 
 def test_class_f_lumped_harmonics():
-    # Lumped class F with the default resonator impedance (netgen.sizing.lumped_resonator_z):
+    # Lumped class F with the default resonator impedance (netgen.synthesis.sizing.lumped_resonator_z):
     # each parallel resonator is an open at its own harmonic and the resonators' small inductive
     # reactance (Zr S_m, Zr ~ 0.1 Ropt) plus the shunt tank's capacitor make the even harmonics
     # low. Asserted as for class F in general (Raab 2001: class F needs opens at odd and shorts
@@ -300,7 +300,7 @@ def test_lossy_line_attenuation():
 def test_port_matrix_reciprocal_and_consistent(topology):
     # A passive network of R, L, C and lines is reciprocal: Z12 = Z21 (Pozar, reciprocal
     # networks); terminating port 2 in RL gives Zin = Z11 - Z12 Z21/(Z22 + RL) = z_drain.
-    from netgen.network import z_port_matrix
+    from netgen.synthesis.network import z_port_matrix
 
     s = example(topology)
     f = HARM * s.design.f0_hz

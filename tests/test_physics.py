@@ -12,8 +12,8 @@ import math
 import numpy as np
 import pytest
 
-from netgen.design import design_from_dict
-from netgen.network import z_drain
+from netgen.design.schema import design_from_dict
+from netgen.synthesis.network import z_drain
 from netgen.pipeline import run_design
 
 pytestmark = pytest.mark.ngspice
@@ -76,7 +76,7 @@ def test_class_f_line_half_sine_current(class_f_line):
 
 def test_class_f_line_harmonic_impedances_match_the_network(class_f_line):
     # A linear network answers each harmonic on its own: Z_n = V_n/(-I_n) from the transient equals
-    # the impedance the network presents (ABCD, netgen.network; cross-checked against scikit-rf and
+    # the impedance the network presents (ABCD, netgen.synthesis.network; cross-checked against scikit-rf and
     # ngspice AC in test_network_ac.py) within 2 % wherever I_n >= 1 % of I_1.
     m, sized = class_f_line.metrics, class_f_line.sized
     z_net = z_drain(sized, sized.design.f0_hz * np.arange(1, 6))
@@ -200,7 +200,7 @@ def test_shared_library_and_batch_executable_give_the_same_metrics(name):
     import dataclasses
     from pathlib import Path
 
-    from netgen.design import load_design
+    from netgen.design.schema import load_design
 
     base = load_design(Path(__file__).parents[1] / "sims" / f"{name}.toml")
     got = {}

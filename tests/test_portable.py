@@ -1,4 +1,4 @@
-"""Portable-netlist checker (netgen.portable).
+"""Portable-netlist checker (netgen.netlist.portable).
 
 The subset is the Berkeley SPICE3 input format (element letters, dot-cards,
 source and B-source functions as listed in the SPICE3 user's guide, from
@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import pytest
 
-from netgen.portable import check_portable, format_problems
+from netgen.netlist.portable import check_portable, format_problems
 
 # A small SPICE3 deck: class-F-like switch stage with a quarter-wave line (T element,
 # SPICE3 syntax Z0= TD=), an S switch driven by PULSE, a B source, element ICs and uic.
@@ -160,9 +160,9 @@ def _sims_designs():
 def test_render_portable_dialect_itself_is_portable(path):
     # what `netgen export` puts in a pack is render(dialect="portable") as it comes, with the
     # warm-start ICs; it must pass the checker and PySpice's parser (rendering needs no simulator)
-    from netgen.design import load_design
-    from netgen.render import render
-    from netgen.sizing import size
+    from netgen.design.schema import load_design
+    from netgen.netlist.renderer import render
+    from netgen.synthesis.sizing import size
 
     sized = size(load_design(path))
     ic = {"L_feed": sized.idc_est_a, "C_block": sized.design.vdd_v}
@@ -186,7 +186,7 @@ def test_render_portable_dialect_itself_is_portable(path):
 
 def test_portable_cards_wraps_and_is_idempotent():
     # the three card rules of the portable dialect on a hand-made deck; the checker is the judge
-    from netgen.render import portable_cards
+    from netgen.netlist.renderer import portable_cards
 
     long_b = "BX a 0 I=" + "+".join(f"1e-09*v(n{k})" for k in range(12))
     deck = GOOD.replace("RSENSE sense 0 1k", "RSENSE sense 0 1k\n" + long_b + "\n* " + "c" * 300)

@@ -3,7 +3,7 @@
 Protections covered (a test here fails if its protection is removed):
 * every generated design sizes and renders, or stops with a NetgenError (never another
   exception): validation in design.py, SizingError in sizing.py, RenderError in render.py;
-* the rendered AC netlist and netgen.network.z_drain describe the same network (a few
+* the rendered AC netlist and netgen.synthesis.network.z_drain describe the same network (a few
   examples through ngspice);
 * the drain impedance is passive (Re Z >= 0);
 * quantity text round-trips (format_quantity -> parse_quantity);
@@ -21,9 +21,9 @@ import pytest
 from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 
-from netgen.design import SCHEMA, TOPOLOGIES, design_from_dict, set_dotted
+from netgen.design.schema import SCHEMA, TOPOLOGIES, design_from_dict, set_dotted
 from netgen.errors import DesignError, NetgenError
-from netgen.quantities import format_quantity, parse_quantity
+from netgen.design.quantities import format_quantity, parse_quantity
 
 PURE = settings(max_examples=150, deadline=None, database=None,
                 suppress_health_check=[HealthCheck.too_slow])
@@ -80,8 +80,8 @@ def design_docs(draw, topologies=TOPOLOGIES, lossy=True):
 @given(doc=design_docs())
 def test_every_valid_design_sizes_and_renders_or_says_why(doc):
     # Protection: only NetgenError may leave the pipeline's first stages.
-    from netgen.render import DIALECTS, MODES, render
-    from netgen.sizing import size
+    from netgen.netlist.renderer import DIALECTS, MODES, render
+    from netgen.synthesis.sizing import size
 
     try:
         sized = size(design_from_dict(doc))
@@ -111,8 +111,8 @@ LOSSLESS_LUMPED_AT_3F0 = {
 def test_drain_impedance_is_passive(doc):
     # A passive one-port has Re Z(jw) >= 0 at every frequency (positive-real impedance;
     # network theory, e.g. Pozar, "Microwave Engineering", one-port networks).
-    from netgen.network import z_drain
-    from netgen.sizing import size
+    from netgen.synthesis.network import z_drain
+    from netgen.synthesis.sizing import size
 
     try:
         sized = size(design_from_dict(doc))
@@ -133,11 +133,11 @@ def test_drain_impedance_is_passive(doc):
 @given(doc=design_docs())
 def test_rendered_ac_netlist_matches_numpy_network(doc):
     # Two independent descriptions of the network (Jinja template -> ngspice AC, and the
-    # ABCD/admittance model in netgen.network) must agree at f0..5f0.
-    from netgen.engine import run_ac
-    from netgen.network import z_drain
-    from netgen.render import render
-    from netgen.sizing import size
+    # ABCD/admittance model in netgen.synthesis.network) must agree at f0..5f0.
+    from netgen.simulator.engine import run_ac
+    from netgen.synthesis.network import z_drain
+    from netgen.netlist.renderer import render
+    from netgen.synthesis.sizing import size
 
     try:
         sized = size(design_from_dict(doc))

@@ -1,4 +1,4 @@
-"""Tests of netgen.pss: the periodic steady state computed directly from the netlist.
+"""Tests of netgen.periodic.estimator: the periodic steady state computed directly from the netlist.
 
 What is checked, and against what:
 
@@ -21,12 +21,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from netgen import initial_state, netlist_cards, pss
-from netgen.analysis import fourier_pwl
-from netgen.design import design_from_dict, load_design
-from netgen.render import render
-from netgen.sizing import size
-from netgen.topologies import TOPOLOGY_REGISTRY
+from netgen.periodic import initial_state
+from netgen.netlist import cards as netlist_cards
+from netgen.periodic import estimator as pss
+from netgen.periodic.fourier import fourier_pwl
+from netgen.design.schema import design_from_dict, load_design
+from netgen.netlist.renderer import render
+from netgen.synthesis.sizing import size
+from netgen.synthesis.topologies import TOPOLOGY_REGISTRY
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
 PI = math.pi
@@ -194,7 +196,7 @@ def test_a_line_started_on_the_estimate_carries_its_periodic_waves_from_the_firs
     # set) the first cycle is off by about 1 %.
     import dataclasses
 
-    from netgen import engine
+    from netgen.simulator import engine
 
     f0 = 1e9
     T = 1 / f0
@@ -223,7 +225,7 @@ class _Release:
         self.commands, self.before_s = commands, before_s
 
     def __call__(self, t_end, part):
-        from netgen import engine
+        from netgen.simulator import engine
 
         return False, None, (engine.Resume(self.commands, None) if t_end < self.before_s else None)
 
@@ -249,7 +251,7 @@ def test_retiring_the_history_sources_changes_no_result(backend):
     # After the line delay the sources are zero; setting their PWL to a constant zero at a pause
     # (ngspice alter, both simulator paths) must leave every later time point where it was:
     # the same circuit, the same equations (exact up to rounding).
-    from netgen import engine
+    from netgen.simulator import engine
 
     f0 = 1e9
     T = 1 / f0
@@ -279,7 +281,7 @@ def test_estimate_agrees_with_a_long_cold_ngspice_run(name):
     # ngspice from zero for 1000 cycles (naive cold runs of these examples settle within 0.1 %
     # after 143 and 704 cycles, docs/benchmarks.md): its last ten cycles' DC and load power
     # against the estimate, within 0.1 %.
-    from netgen import engine
+    from netgen.simulator import engine
 
     sized = size(load_design(SIMS / f"{name}.toml"))
     d = sized.design
@@ -347,7 +349,7 @@ def test_a_run_reports_its_start_and_the_two_solutions_agree(name):
     # trapezoidal grid) are two solvers of one circuit: their Pdc and Pout agree within the
     # 0.1 % settling tolerance (measured 0.004-0.07 %)
     from netgen.pipeline import run_design
-    from netgen.report import format_table
+    from netgen.results.report import format_table
 
     r = run_design(load_design(SIMS / f"{name}.toml"), None, plots=False)
     start = r.metrics["start"]
@@ -357,7 +359,7 @@ def test_a_run_reports_its_start_and_the_two_solutions_agree(name):
 
 
 def test_the_start_sentence_names_the_fallback_and_its_reason():
-    from netgen.report import start_text
+    from netgen.results.report import start_text
 
     assert start_text({"method": "dc", "reason": "XDEV: the device is a subcircuit"}) == (
         "Started from the DC state of feed and block (XDEV: the device is a subcircuit).")

@@ -1,4 +1,4 @@
-"""Golden-metric regression (netgen.regress), `netgen check` / `netgen diff`, and the pytest plugin.
+"""Golden-metric regression (netgen.handoff.regress), `netgen check` / `netgen diff`, and the pytest plugin.
 
 Synthetic metrics come from published closed forms (REFERENCES.md): ideal class F,
 square drain voltage with half-sine current (Raab 1997; Cripps): V1 = (4/pi) Vdd,
@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from netgen import regress
+from netgen.handoff import regress
 from netgen.errors import DesignError
 
 pytest_plugins = ["pytester"]
@@ -153,7 +153,7 @@ def test_table_lists_metric_golden_new_deviation_tolerance(tmp_path):
 
 
 def test_check_command_user_error_exit_2(tmp_path):
-    from netgen.cli_check import check_command
+    from netgen.cli.handoff import check_command
 
     (tmp_path / "b.toml").write_text("", encoding="utf-8")
     out = CliRunner().invoke(check_command, [str(tmp_path / "b.toml")])
@@ -168,8 +168,8 @@ def test_check_command_user_error_exit_2(tmp_path):
 
 def _design_folder(tmp_path: Path) -> tuple[Path, str]:
     """sims/class_f_line.toml and its golden copied, plus a copy with line_z0 raised 5 %."""
-    from netgen.design import load_design
-    from netgen.sizing import size
+    from netgen.design.schema import load_design
+    from netgen.synthesis.sizing import size
 
     folder = tmp_path / "designs"
     folder.mkdir()
@@ -186,7 +186,7 @@ def _design_folder(tmp_path: Path) -> tuple[Path, str]:
 @pytest.mark.ngspice
 @pytest.mark.slow
 def test_five_percent_component_change_fails_check_and_names_the_metric(tmp_path):
-    from netgen.cli_check import check_command
+    from netgen.cli.handoff import check_command
 
     folder, _ = _design_folder(tmp_path)
     out = CliRunner().invoke(check_command, [str(folder), "-j", "1"])

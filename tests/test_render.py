@@ -11,10 +11,10 @@ from pathlib import Path
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.design import design_from_dict, load_design
+from netgen.design.schema import design_from_dict, load_design
 from netgen.errors import RenderError
-from netgen.render import ac_grid, loss_elements, render
-from netgen.sizing import size
+from netgen.netlist.renderer import ac_grid, loss_elements, render
+from netgen.synthesis.sizing import size
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
 EXAMPLES = sorted(SIMS.glob("*.toml"))
@@ -233,7 +233,7 @@ def test_ac_grid_contains_harmonics_exactly():
 @pytest.mark.ngspice
 def test_ac_grid_of_two_frequencies_returns_both():
     # Measured with ngspice 39: ".ac lin 2 f1 f2" gives only f1; the grid then takes 3 points.
-    from netgen.engine import run_ac
+    from netgen.simulator.engine import run_ac
 
     assert ac_grid([1e9, 2e9]) == (3, 1e9, 2e9)
     s = size(make())
@@ -273,7 +273,7 @@ def test_spice_device_runs_in_ngspice(tmp_path):
 def test_op_mode_choke_carries_idc(path):
     # KCL: at DC every capacitor is open, so the port's DC current flows through the feed choke
     # and the supply alone (docs/netlist_conventions.md, op mode).
-    from netgen.engine import run_op
+    from netgen.simulator.engine import run_op
 
     s = size(load_design(path))
     op = run_op(render(s, "op", idc_a=0.3), backend="batch")

@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.analysis import analyse
-from netgen.design import Design, SimSpec
-from netgen.plots import plot_all, plot_smith
-from netgen.records import Component, SizedDesign, Waveforms
-from netgen.report import format_table, write_metrics_json, write_report, write_waveforms_csv
+from netgen.results.analysis import analyse
+from netgen.design.schema import Design, SimSpec
+from netgen.results.plots import plot_all, plot_smith
+from netgen.design.records import Component, SizedDesign, Waveforms
+from netgen.results.report import format_table, write_metrics_json, write_report, write_waveforms_csv
 
 F0, VDD, PPC = 1e9, 10.0, 400
 
@@ -135,7 +135,7 @@ def test_waveforms_csv_keeps_last_two_periods(run, tmp_path):
 def test_smith_reference_and_output(tmp_path):
     # reflection coefficient (Pozar): Gamma = (Z - Zref)/(Z + Zref); a 100-ohm fundamental on a
     # 100-ohm (Ropt) reference is the centre - check the helper and that a chosen reference works
-    from netgen.plots import _gamma
+    from netgen.results.plots import _gamma
 
     assert _gamma(1.0) == 0
     assert _gamma(0.0) == -1

@@ -8,11 +8,11 @@ from pathlib import Path
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.design import design_from_dict, load_design
+from netgen.design.schema import design_from_dict, load_design
 from netgen.errors import DesignError, SizingError
-from netgen.network import z_drain
-from netgen.sizing import size, write_sized_toml
-from netgen.topologies import TOPOLOGY_REGISTRY, get_topology
+from netgen.synthesis.network import z_drain
+from netgen.synthesis.sizing import size, write_sized_toml
+from netgen.synthesis.topologies import TOPOLOGY_REGISTRY, get_topology
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
 PI = math.pi
@@ -185,10 +185,10 @@ def _parallel_lc_x(zr, n, m):
 
 @pytest.mark.parametrize("n_res", [1, 2, 3])
 def test_lumped_default_resonator_z_balances_short_and_open(n_res):
-    # Our rule (netgen.sizing.lumped_resonator_z): Zr^2 S Q_r = Ropt^2, S the resonators' series
+    # Our rule (netgen.synthesis.sizing.lumped_resonator_z): Zr^2 S Q_r = Ropt^2, S the resonators' series
     # reactance per ohm of Zr at the worst even harmonic below (2N+1) f0, 1/Q_r = 1/(3 Q_u) +
     # ESR/Zr + 1/50. S is recomputed here from the element impedances of each parallel LC.
-    from netgen.sizing import RESONATOR_Q_TOL, even_reactance_factor, lumped_resonator_z
+    from netgen.synthesis.builder import RESONATOR_Q_TOL, even_reactance_factor, lumped_resonator_z
 
     d = make("class_f_lumped", network={"harmonics": n_res, "inductor_q": 40, "capacitor_esr": "0.1 ohm"})
     ropt = size(d).ropt_ohm
@@ -285,7 +285,7 @@ def test_override_bad_unit():
 # ------------------------------------------------------------ registry, examples, sized file
 
 def test_registry_complete():
-    from netgen.design import TOPOLOGIES
+    from netgen.design.schema import TOPOLOGIES
 
     assert tuple(TOPOLOGY_REGISTRY) == TOPOLOGIES
     for name in TOPOLOGIES:

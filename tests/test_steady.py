@@ -1,12 +1,12 @@
-"""Tests of netgen.steady: convergence judgement, warm start, not-settled reporting."""
+"""Tests of netgen.periodic.steady: convergence judgement, warm start, not-settled reporting."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from netgen import steady
-from netgen.design import SimSpec
+from netgen.periodic import steady
+from netgen.design.schema import SimSpec
 
 F0 = 1e9
 VDD = 10.0
@@ -229,7 +229,7 @@ def lumped_tuned(ic, tstop_s, *, mode="tran", idc_a=0.0):
 
 def _reference_powers(make, cycles, ppc):
     """Pdc and load power of the last of `cycles` cold-started cycles (a long plain run)."""
-    from netgen import engine
+    from netgen.simulator import engine
 
     T = 1 / F0
     v = engine.run_transient(make(None, cycles * T), save=["load", "vdd#branch"], timeout_s=600)
@@ -288,7 +288,7 @@ def test_warm_start_with_bias_nulling_settles_sooner_than_cold_and_matches_long_
     (lossy_line, 800, 30),
 ], ids=["lumped", "line"])
 def test_periodic_start_settles_in_a_few_cycles_and_matches_long_reference(make, ref_cycles, bound):
-    # Started on the periodic state computed from the netlist (netgen.pss): settled within a few
+    # Started on the periodic state computed from the netlist (netgen.periodic.estimator): settled within a few
     # cycles, on the same answer as a long plain cold run (the check allows 0.2 % against the
     # 0.1 % settle tolerance, as above).
     sim = SimSpec(max_cycles=700, points_per_cycle=500)
@@ -323,7 +323,7 @@ def test_periodic_start_needs_no_long_run_with_a_huge_choke():
 
 @pytest.mark.ngspice
 def test_a_netlist_outside_the_estimate_falls_back_to_the_dc_warm_start():
-    # a device given as a resistor-and-switch subcircuit is outside what netgen.pss solves: the
+    # a device given as a resistor-and-switch subcircuit is outside what netgen.periodic.estimator solves: the
     # run starts from the DC state instead, and the note says why
     def make(ic, tstop_s, mode="tran", idc_a=0.0):
         net = lumped_tuned(ic, tstop_s, mode=mode, idc_a=idc_a)
@@ -349,7 +349,7 @@ def test_constant_aux_sources_leave_the_periodic_state_unchanged():
     # balance) and the block's mean current is zero (i = C dv/dt, charge balance), so both sources
     # deliver no average power and every periodic waveform is that of the real circuit (Kirchhoff's
     # laws; common practice). Checked on long plain runs (900 cycles, twice the cold settling count).
-    from netgen import engine
+    from netgen.simulator import engine
 
     plain = lumped_tuned(None, 900e-9).replace(" uic", "")
     aux, sources = steady.with_aux_sources(plain, ["L_feed"], ["C_block"], {"drain": 10.0}, {"drain": 10.0},
@@ -421,9 +421,9 @@ def spike_circuit(ic, tstop_s):
 def test_simulated_spike_is_reported_in_peaks_and_metrics():
     # The PULSE source sets the drain to exactly 10 + 5 = 15 V for 2 ps; the device resistor
     # (100 ohm, Ohm's law) then carries 0.15 A. A 50-point grid (20 ps step) misses the spike.
-    from netgen.analysis import analyse
-    from netgen.design import Design
-    from netgen.records import SizedDesign
+    from netgen.results.analysis import analyse
+    from netgen.design.schema import Design
+    from netgen.design.records import SizedDesign
 
     sim = SimSpec(points_per_cycle=50, min_cycles=6, max_cycles=30, warm_start=False)
     w = steady.simulate_netlist(spike_circuit, f0_hz=F0, vdd_v=VDD, sim=sim)

@@ -1,4 +1,4 @@
-"""The SQLite sweep store (netgen.store): commit per point, no duplicates, resume identity, CSV export."""
+"""The SQLite sweep store (netgen.studies.store): commit per point, no duplicates, resume identity, CSV export."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import sqlite3
 import pytest
 
 from netgen.errors import OutputError
-from netgen.store import KEY_COLUMNS, STORE_NAME, SweepStore, export_csv
+from netgen.studies.store import KEY_COLUMNS, STORE_NAME, SweepStore, export_csv
 
 SPEC = {"variations": [{"name": "design.vdd", "axis": [10.0, 12.0]}], "tolerances": [], "samples": 0,
         "seed": None, "dist": None}

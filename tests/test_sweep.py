@@ -1,4 +1,4 @@
-"""Sweeps, load circle, tolerance Monte Carlo, yield and executors (netgen.sweep, netgen.cli_sweep).
+"""Sweeps, load circle, tolerance Monte Carlo, yield and executors (netgen.studies.plan, netgen.cli.studies).
 
 The machinery tests use closed-form evaluators (module-level so that worker
 processes can import them); the integration tests at the end run the real
@@ -21,15 +21,15 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.design import design_from_dict
+from netgen.design.schema import design_from_dict
 from netgen.errors import DesignError, SimulationError, SizingError
-from netgen.quantities import parse_quantity
-from netgen.store import STORE_NAME, SweepStore
-from netgen.sweep import (
+from netgen.design.quantities import parse_quantity
+from netgen.studies.store import STORE_NAME, SweepStore
+from netgen.studies.plan import (
     load_circle, make_plan, metric_value, parse_spec, parse_tolerance, parse_vary, parse_vswr,
     point_passes, summarize, yield_interval,
 )
-from netgen.sweep_exec import run_sweep
+from netgen.studies.execute import run_sweep
 
 TESTS = Path(__file__).resolve().parent
 
@@ -303,7 +303,7 @@ def test_monte_carlo_metrics_do_not_depend_on_worker_count(tmp_path):
     assert [(r["inputs"], r["metrics"]) for r in one] == [(r["inputs"], r["metrics"]) for r in two]
     assert [r["metrics"]["drain_efficiency"] for r in one] != [r["metrics"]["drain_efficiency"] for r in other]
     # the overrides written are the nominal sized value times the factor
-    from netgen.sizing import size
+    from netgen.synthesis.sizing import size
 
     nominal = size(design_from_dict(BASE)).value("tank_c")
     r0 = one[0]["inputs"]
@@ -311,7 +311,7 @@ def test_monte_carlo_metrics_do_not_depend_on_worker_count(tmp_path):
 
 
 def test_grid_plot_data_equal_the_database(tmp_path):
-    from netgen.sweep_plots import grid_data, plot_sweep
+    from netgen.studies.plots import grid_data, plot_sweep
 
     plan, _, rows = _run(tmp_path, tuned_b_eval, workers=1, vary=["design.vdd=10V:14V:3", "design.ropt=80ohm,100ohm"])
     xs, ys, z = grid_data(rows, "design.vdd", "design.ropt", "pout_w")
@@ -327,7 +327,7 @@ def test_grid_plot_data_equal_the_database(tmp_path):
 
 
 def test_line_and_circle_plot_data_equal_the_database(tmp_path):
-    from netgen.sweep_plots import circle_data, line_data, plot_sweep
+    from netgen.studies.plots import circle_data, line_data, plot_sweep
 
     plan, _, rows = _run(tmp_path, tuned_b_eval, workers=1, vswr="3.0:8")
     x, y = line_data(rows, "load_phase_deg", "drain_efficiency")
@@ -348,7 +348,7 @@ def test_flat_metric_is_drawn_flat(tmp_path, monkeypatch):
     # digits of the simulator magnified by an offset.
     import matplotlib.pyplot as plt
 
-    import netgen.sweep_plots as sp
+    import netgen.studies.plots as sp
 
     rows = [{"status": "ok", "inputs": {"axes": {"design.vdd": v}},
              "metrics": {"drain_efficiency": 0.8020354 + 1e-12 * k, "pout_w": 0.01 * v * v,
@@ -494,7 +494,7 @@ REAL = {
                "ropt": "100 ohm", "load": "50 ohm"},
     "device": {"model": "switch"},
     # a lossless line: its modes near the odd harmonics decay slowly, and the harmonic impedances
-    # must settle too (netgen.steady), so allow more cycles than a lossy design needs
+    # must settle too (netgen.periodic.steady), so allow more cycles than a lossy design needs
     "sim": {"points_per_cycle": 200, "min_cycles": 10, "max_cycles": 1500, "harmonics": 3},
 }
 
@@ -592,8 +592,8 @@ def test_cli_reports_failures_and_exits_zero(tmp_path):
 def test_operating_point_sweeps_keep_the_nominal_network():
     # A bench measurement of a built amplifier changes the supply or the drive frequency, not the
     # parts (common practice): a frequency sweep must not re-tune the network to each frequency.
-    from netgen.sizing import size
-    from netgen.sweep_exec import _point_design
+    from netgen.synthesis.sizing import size
+    from netgen.studies.execute import _point_design
 
     nominal = size(design_from_dict(BASE))
     plan = make_plan(BASE, vary=["design.f0=0.9GHz,1.1GHz"])

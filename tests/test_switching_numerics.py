@@ -21,13 +21,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from netgen.analysis import analyse
-from netgen.design import load_design
-from netgen.network import loss_ohm, z_drain, z_port_matrix
-from netgen.render import (COUT_TAU_PERIODS, COUT_TAU_STEPS, cout_series_ohm, loss_elements,
+from netgen.results.analysis import analyse
+from netgen.design.schema import load_design
+from netgen.synthesis.network import loss_ohm, z_drain, z_port_matrix
+from netgen.netlist.renderer import (COUT_TAU_PERIODS, COUT_TAU_STEPS, cout_series_ohm, loss_elements,
                            render)
-from netgen.sizing import size
-from netgen.steady import simulate
+from netgen.synthesis.sizing import size
+from netgen.periodic.steady import simulate
 
 SIMS = Path(__file__).resolve().parent.parent / "sims"
 
@@ -55,7 +55,7 @@ def switched_network_pss(sized, n_harm: int, *, t_on_s: float) -> dict:
 
     The switch is a conductance g(t) = 1/Ron for ``duty*T`` from ``t_on_s``, else 1/Roff;
     the rest is linear: Thevenin source Vdd at DC behind the drain impedance Z(f) of
-    :func:`netgen.network.z_drain` in parallel with Cout. With Fourier series
+    :func:`netgen.synthesis.network.z_drain` in parallel with Cout. With Fourier series
     v = sum V_k e^{jkwt} and g = sum g_k e^{jkwt}, the switch current is the convolution
     (g v)_k = sum_m g_{k-m} V_m, so V_k = E_k - Z_k (g v)_k, a linear system in the 2N+1
     coefficients (Fourier series of a product; any signals-and-systems textbook). The
@@ -104,7 +104,7 @@ def switched_network_pss(sized, n_harm: int, *, t_on_s: float) -> dict:
 
 
 def _t_on(sized) -> float:
-    """Switch-on instant in each period, s: the control PULSE (edge T/200, netgen.render)
+    """Switch-on instant in each period, s: the control PULSE (edge T/200, netgen.netlist.renderer)
     crosses the S switch's VT + VH = 0.75 at 75 % of its rising edge."""
     return 0.75 / sized.design.f0_hz / 200.0
 

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from netgen.design import Design, NetworkSpec
-from netgen.records import SizedDesign
-from netgen.theory import (
+from netgen.design.schema import Design, NetworkSpec
+from netgen.design.records import SizedDesign
+from netgen.synthesis.theory import (
     CLASS_B_EFFICIENCY,
     bound_for,
     class_e_ideal,

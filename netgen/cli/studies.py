@@ -1,0 +1,182 @@
+"""``netgen sweep``: grids, load circles and tolerance Monte Carlo into a resumable store.
+
+Parses the options, calls :mod:`netgen.studies.plan` / :mod:`netgen.studies.store` /
+:mod:`netgen.studies.plots`, prints a summary. No physics here.
+"""
+
+from __future__ import annotations
+
+import importlib
+import json
+import sys
+from pathlib import Path
+
+import click
+
+from netgen.errors import DesignError, NetgenError
+
+__all__ = ["sweep_command"]
+
+_HELP = """Run a design over a grid of values, a load circle or a tolerance Monte Carlo.
+
+\b
+Each point is the design with some keys changed, simulated to steady state;
+metrics go to OUT/sweep.sqlite as each point finishes. Running the same
+command again resumes: stored points are skipped.
+
+\b
+Variations (the grid is the product of all --vary and --vswr):
+  --vary design.vdd=20V:28V:5              linear, 5 points, ends included
+  --vary design.f0=850MHz:980MHz:14
+  --vary network.feed_l=10nH:1uH:5:log     logarithmic spacing
+  --vary design.vdd=20V,24V,28V            explicit list
+  --vswr 2.0:12                            12 loads around the VSWR-2 circle
+\b
+Tolerance Monte Carlo (the nominal design is sized, then scaled per sample):
+  --tolerance "C*=5%" --tolerance "L*=2%" --tolerance "tank_l=1%"
+  --samples 200 --seed 1 --dist normal     (normal: 5% is 3 sigma; uniform: +/-5%)
+\b
+The network is built once: by default it is sized for the nominal design and
+kept fixed while the supply, frequency, load or device vary (what a bench
+measurement sees). Sweeping a sizing input (design.pout, design.ropt or a
+network.* key) re-sizes it at every point; --resize / --fixed-network force
+either behaviour.
+\b
+Specs (a failed or not-settled point fails them):
+  --spec "drain_efficiency>=0.70" --spec "h2_dbc<=-30" --spec "peak_vd_over_vdd<=3.6"
+
+\b
+Example:
+  netgen sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep_vdd/
+  netgen sweep my_pa.toml --tolerance "C*=5%" --samples 200 \\
+      --spec "drain_efficiency>=0.70" -o mc/
+"""
+
+
+def _load_evaluator(text: str | None):
+    """``module:function`` for a custom evaluator (Design -> metrics dict)."""
+    if not text:
+        return None
+    mod, _, fn = text.partition(":")
+    try:
+        return getattr(importlib.import_module(mod), fn)
+    except (ImportError, AttributeError) as exc:
+        raise click.BadParameter(f"cannot import {text!r} ({exc}).", param_hint="--evaluator") from None
+
+
+@click.command("sweep", help=_HELP)
+@click.argument("design_file", type=click.Path(path_type=Path, dir_okay=False), metavar="DESIGN.toml")
+@click.option("--vary", multiple=True, metavar="PATH=SPEC", help="A key and its values (see above); repeatable.")
+@click.option("--vswr", metavar="S:N", help="N loads equally spaced in phase on the VSWR-S circle around design.load.")
+@click.option("--tolerance", multiple=True, metavar="PATTERN=PCT%", help="Component tolerance; repeatable; the last matching pattern wins.")
+@click.option("--samples", type=int, default=None, help="Monte Carlo samples (default 100 with --tolerance).")
+@click.option("--seed", type=int, default=1, show_default=True, help="Random seed of the Monte Carlo.")
+@click.option("--dist", type=click.Choice(["normal", "uniform"]), default="normal", show_default=True,
+              help="normal: the percentage is 3 sigma; uniform: +/- the percentage.")
+@click.option("--spec", "specs", multiple=True, metavar="METRIC>=LIMIT", help="Pass/fail limit on a metric (top-level metrics key or hN_dbc); repeatable.")
+@click.option("-o", "--out", type=click.Path(path_type=Path, file_okay=False), default=None,
+              help="Output folder (default sweep_<design name>/); holds sweep.sqlite, sweep.csv and plots.")
+@click.option("--workers", type=int, default=None, help="Local worker processes (default: the number of CPUs).")
+@click.option("--cluster", metavar="tcp://HOST:PORT", default=None, help="Run the points on a Dask distributed scheduler instead.")
+@click.option("--keep-waveforms", is_flag=True, help="Also write each point's settled waveforms to OUT/waveforms/point_<idx>.csv.")
+@click.option("--resize/--fixed-network", "resize", default=None,
+              help="Re-size the network at every point, or keep the nominal network (default: fixed, unless a sizing input is swept).")
+@click.option("--no-plots", is_flag=True, help="Skip the PNG plots.")
+@click.option("--list", "list_only", is_flag=True, help="Print the points and exit without simulating.")
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+@click.option("--evaluator", hidden=True, default=None, help="module:function evaluating a Design (tests, custom flows).")
+def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs, out, workers, cluster,
+                  keep_waveforms, resize, no_plots, list_only, quiet, evaluator):
+    from netgen.design import load_design
+    from netgen.studies import (
+        STORE_NAME,
+        SweepStore,
+        export_csv,
+        make_plan,
+        parse_spec,
+        run_sweep,
+        summarize,
+    )
+
+    if workers is not None and workers < 1:
+        raise click.BadParameter("must be at least 1.", param_hint="--workers")
+    design = load_design(design_file)
+    spec_list = [parse_spec(s) for s in specs]
+    if not vary and not vswr and not tolerance:
+        raise DesignError("nothing to sweep; give --vary, --vswr or --tolerance (see netgen sweep --help).")
+    plan = make_plan(design.raw, source=design.source, vary=vary, vswr=vswr, tolerance=tolerance,
+                     samples=samples, seed=seed, dist=dist, resize=resize)
+    if list_only:
+        for idx in range(plan.n_points):
+            click.echo(f"{idx}\t{json.dumps(plan.point(idx), sort_keys=True)}")
+        return
+    out = out or Path(f"sweep_{design.name}")
+    fn = _load_evaluator(evaluator)
+    import tomlkit
+
+    with SweepStore(out / STORE_NAME) as store:
+        sid = store.open_sweep(plan.design_digest(), tomlkit.dumps(design.raw), plan.spec(), plan.n_points,
+                               plan.seed if plan.tolerances else None)
+        bar = None
+        if not quiet:
+            from tqdm import tqdm
+
+            bar = tqdm(total=plan.n_points, initial=len(store.done_indices(sid)), file=sys.stderr,
+                       unit="pt", desc="sweep", dynamic_ncols=True)
+
+        def progress(done, total, res):
+            if bar is not None:
+                bar.update(1)
+                if res["status"] != "ok":
+                    bar.set_postfix_str(f"point {res['idx']}: {res['status']}")
+
+        try:
+            counts = run_sweep(plan, store, sid, workers=workers, cluster=cluster, evaluator=fn,
+                               wave_dir=(out / "waveforms") if keep_waveforms else None, progress=progress)
+        finally:
+            if bar is not None:
+                bar.close()
+        summary = summarize(store.rows(sid), spec_list, plan.n_points)  # streamed, one row at a time
+        first_failed = store.con.execute(
+            "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'failed' ORDER BY idx LIMIT 1", (sid,)
+        ).fetchone()
+    csv_path = export_csv(out / STORE_NAME, out / "sweep.csv")
+    made = {}
+    if not no_plots:
+        from netgen.studies import plot_sweep
+
+        made = plot_sweep(out / STORE_NAME, out, spec_list)
+    from netgen.fileio import atomic_write_text
+
+    atomic_write_text(out / "summary.json", json.dumps(summary, indent=2, sort_keys=True) + "\n")
+    click.echo(f"{plan.n_points} points: {summary['ok']} ok, {summary['not_settled']} not settled, "
+               f"{summary['failed']} failed ({counts['skipped']} already stored, {counts['ran']} run now).")
+    for name, n_pass in summary["specs"].items():
+        click.echo(f"  {name}: {n_pass}/{summary['stored']} pass")
+    if "yield" in summary:
+        click.echo(f"yield {100 * summary['yield']:.1f}% ({summary['passed']}/{summary['stored']}), "
+                   f"95% interval {100 * summary['yield_lo']:.1f}%..{100 * summary['yield_hi']:.1f}% "
+                   "(Clopper-Pearson; failed and not-settled points count as failing)")
+    if first_failed:
+        n_failed = summary["failed"]
+        more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
+        click.echo(f"  point {first_failed[0]} failed: {first_failed[1].splitlines()[0]}{more}")
+    click.echo(f"wrote {out / STORE_NAME}, {csv_path}" + (f", {len(made)} plots" if made else ""))
+
+
+def main(argv=None) -> None:
+    """Run the command alone (``python -m netgen.cli.studies``), errors as one line and exit code 2."""
+    try:
+        sweep_command.main(args=argv, prog_name="netgen sweep", standalone_mode=False)
+    except click.ClickException as exc:
+        exc.show()
+        sys.exit(exc.exit_code)
+    except NetgenError as exc:
+        click.echo(f"Error: {exc}", err=True)
+        sys.exit(exc.exit_code)
+    except click.exceptions.Abort:
+        sys.exit(130)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,49 @@
+"""The design description: what the designer asks for, parsed and checked.
+
+Takes a TOML file (or a dict); gives a frozen :class:`Design` with every quantity in SI units.
+Also holds the frozen records passed between the later stages (:class:`Component`,
+:class:`SizedDesign`, :class:`Waveforms`), so every stage can depend on them.
+
+Modules: ``quantities`` (text with units -> floats), ``schema`` (the one table of keys,
+validation, defaults, dotted key paths; ``python -m netgen.design`` prints the key reference),
+``records`` (the frozen records).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "COMPONENT_UNITS": "records",
+    "Component": "records",
+    "Design": "schema",
+    "DeviceSpec": "schema",
+    "SCHEMA": "schema",
+    "SimSpec": "schema",
+    "SizedDesign": "records",
+    "TOPOLOGIES": "schema",
+    "Waveforms": "records",
+    "design_from_dict": "schema",
+    "format_quantity": "quantities",
+    "get_dotted": "schema",
+    "load_design": "schema",
+    "parse_quantity": "quantities",
+    "reference_markdown": "schema",
+    "set_dotted": "schema",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

@@ -1,0 +1,40 @@
+"""Hand-off: what leaves the designer's desk. Regression of designs against golden metrics and packs.
+
+Takes design files (and their ``*.expect.json`` goldens); gives check results, design diffs and
+hand-off packs (portable and ngspice netlists, Touchstone, expected metrics) for colleagues on
+other simulators.
+
+Modules: ``regress`` (goldens, check, diff), ``export`` (packs), ``pytest_plugin``
+(``--netgen-designs=DIR`` runs a folder of designs as tests).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "GOLDEN_SUFFIX": "regress",
+    "accept": "regress",
+    "check_designs": "regress",
+    "diff_designs": "regress",
+    "export_pack": "export",
+    "format_diff": "regress",
+    "format_result": "regress",
+    "format_summary": "regress",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

@@ -1,0 +1,626 @@
+"""Template regression against golden metrics, and design-to-design comparison.
+
+A golden file ``<design>.expect.json`` sits beside ``<design>.toml``. It holds
+the metrics a known-good run produced, a tolerance per metric, the netgen
+version and the sized-design digest it came from (format in
+docs/regression.md). :func:`check_designs` re-runs designs (in a process pool)
+and compares; :func:`accept` rewrites goldens after an intended change.
+:func:`diff_designs` compares two designs component by component and metric by
+metric.
+
+Library code: nothing here prints or exits; the CLI (netgen.cli.handoff) and the
+pytest plugin (netgen.handoff.pytest_plugin) present the results.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import multiprocessing
+import subprocess
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Iterable
+
+import tomllib
+
+from netgen import __version__
+from netgen.errors import DesignError, NetgenError
+from netgen.fileio import atomic_write_text
+
+__all__ = [
+    "GOLDEN_SUFFIX",
+    "GOLDEN_FORMAT",
+    "Tolerance",
+    "Row",
+    "CheckResult",
+    "golden_path",
+    "find_designs",
+    "select_metrics",
+    "default_tolerances",
+    "make_golden",
+    "read_golden",
+    "write_golden",
+    "compare",
+    "run_one",
+    "check_designs",
+    "accept",
+    "format_result",
+    "format_summary",
+    "ComponentRow",
+    "DesignDiff",
+    "load_design_spec",
+    "diff_designs",
+    "format_diff",
+]
+
+GOLDEN_SUFFIX = ".expect.json"
+GOLDEN_FORMAT = "netgen-expect-1"
+#: Harmonics compared (n = 1..HARMONICS_COMPARED).
+HARMONICS_COMPARED = 5
+#: Harmonic load power at or below this (dBc) counts as "absent": two such values agree.
+DBC_FLOOR = -60.0
+#: A harmonic impedance above this multiple of |Z1| counts as "open": two such values agree.
+OPEN_FACTOR = 10.0
+
+
+@dataclass(frozen=True)
+class Tolerance:
+    """Allowed deviation of one metric: ``|new - golden| <= abs + rel * |golden|``.
+
+    ``floor``: when both values are at or below it they agree (harmonic levels
+    lost in numerical noise). ``ceiling``: when both are at or above it they
+    agree (an open circuit is an open circuit, whether 3 kohm or 8 kohm).
+    """
+
+    abs: float = 0.0
+    rel: float = 0.0
+    floor: float | None = None
+    ceiling: float | None = None
+
+    def allows(self, golden: float, new: float) -> bool:
+        if new is None or golden is None or not math.isfinite(new) or not math.isfinite(golden):
+            return new == golden  # both missing agree; a NaN never passes
+        if self.floor is not None and golden <= self.floor and new <= self.floor:
+            return True
+        if self.ceiling is not None and golden >= self.ceiling and new >= self.ceiling:
+            return True
+        return abs(new - golden) <= self.abs + self.rel * abs(golden) + 1e-15
+
+    def describe(self) -> str:
+        parts = []
+        if self.abs:
+            parts.append(f"+/-{self.abs:g}")
+        if self.rel:
+            parts.append(f"+/-{100 * self.rel:g}%")
+        text = " ".join(parts) or "exact"
+        if self.floor is not None:
+            text += f" (<= {self.floor:g} equal)"
+        if self.ceiling is not None:
+            text += f" (>= {self.ceiling:.4g} equal)"
+        return text
+
+    def to_json(self) -> dict:
+        out = {}
+        for key in ("abs", "rel", "floor", "ceiling"):
+            value = getattr(self, key)
+            if value is not None and (key in ("floor", "ceiling") or value != 0.0):
+                out[key] = value
+        return out
+
+
+@dataclass(frozen=True)
+class Row:
+    """One compared metric."""
+
+    metric: str
+    golden: float | None
+    new: float | None
+    tolerance: Tolerance
+    ok: bool
+
+    @property
+    def deviation(self) -> str:
+        if self.golden is None or self.new is None:
+            return "missing"
+        if not (math.isfinite(self.golden) and math.isfinite(self.new)):
+            return "n/a"
+        d = self.new - self.golden
+        text = f"{d:+.4g}"
+        if self.golden != 0:
+            text += f" ({100 * d / abs(self.golden):+.2f}%)"
+        return text
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """Outcome of checking one design against its golden file."""
+
+    design_path: Path
+    golden_path: Path
+    rows: tuple[Row, ...] = ()
+    settled: bool = True
+    error: str | None = None
+    notes: tuple[str, ...] = ()
+    new_golden: dict | None = field(default=None, compare=False, repr=False)
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None and self.settled and all(r.ok for r in self.rows)
+
+    @property
+    def failed_metrics(self) -> list[str]:
+        return [r.metric for r in self.rows if not r.ok]
+
+
+# ---------------------------------------------------------------- goldens
+
+
+def golden_path(design_path: str | Path) -> Path:
+    """``sims/x.toml`` -> ``sims/x.expect.json``."""
+    p = Path(design_path)
+    return p.with_name(p.name[: -len(".toml")] + GOLDEN_SUFFIX if p.name.endswith(".toml") else p.name + GOLDEN_SUFFIX)
+
+
+def find_designs(paths: Iterable[str | Path], *, include_new: bool = False) -> list[Path]:
+    """Design files to check.
+
+    A folder contributes every ``*.toml`` that has a golden beside it; a
+    ``.toml`` file is taken as it is (it needs a golden unless
+    ``include_new``); a ``.expect.json`` file stands for its design.
+
+    Raises
+    ------
+    DesignError
+        A path that does not exist, a golden without its design, or a design
+        without a golden (unless ``include_new``).
+    """
+    out: list[Path] = []
+    for raw in paths:
+        p = Path(raw)
+        if not p.exists():
+            raise DesignError(f"{p}: no such file or folder; give design files (*.toml) or folders holding them.")
+        if p.is_dir():
+            out += sorted(t for t in p.glob("*.toml") if golden_path(t).is_file())
+            continue
+        if p.name.endswith(GOLDEN_SUFFIX):
+            design = p.with_name(p.name[: -len(GOLDEN_SUFFIX)] + ".toml")
+            if not design.is_file():
+                raise DesignError(f"{p}: golden file without its design {design.name}; restore the design or delete the golden.")
+            out.append(design)
+        elif p.suffix == ".toml":
+            if not include_new and not golden_path(p).is_file():
+                raise DesignError(f"{p}: no golden file {golden_path(p).name}; create it with 'netgen check --accept {p}'.")
+            out.append(p)
+        else:
+            raise DesignError(f"{p}: not a design (*.toml) or golden (*{GOLDEN_SUFFIX}) file.")
+    seen, unique = set(), []
+    for p in out:
+        key = p.resolve()
+        if key not in seen:
+            seen.add(key)
+            unique.append(p)
+    return unique
+
+
+def _z_mag(h: dict) -> float:
+    return math.hypot(float(h["z_re_ohm"]), float(h["z_im_ohm"]))
+
+
+def select_metrics(metrics: dict, n_max: int = HARMONICS_COMPARED) -> dict[str, float]:
+    """The compared numbers of a metrics dict (the metrics.json contract), flat.
+
+    ``drain_efficiency`` (0..1), ``pout_w``, ``pdc_w``, ``pload_total_w``,
+    ``peak_vd_over_vdd``, ``peak_id_a``, ``h<n>_dbc`` (harmonic load power,
+    n = 2..n_max) and ``z<n>_ohm`` (``|Z_n|`` at the drain, n = 1..n_max).
+    """
+    out: dict[str, float] = {}
+    for key in ("drain_efficiency", "pout_w", "pdc_w", "pload_total_w", "peak_vd_over_vdd", "peak_id_a"):
+        if metrics.get(key) is not None:
+            out[key] = float(metrics[key])
+    for h in metrics.get("harmonics", []):
+        n = int(h["n"])
+        if n > n_max:
+            continue
+        if n >= 2 and h.get("pload_dbc") is not None:
+            out[f"h{n}_dbc"] = max(float(h["pload_dbc"]), -300.0)
+        if h.get("z_re_ohm") is not None and h.get("z_im_ohm") is not None:
+            out[f"z{n}_ohm"] = _z_mag(h)
+    return out
+
+
+def default_tolerances(values: dict[str, float]) -> dict[str, Tolerance]:
+    """Default tolerance per selected metric (docs/regression.md explains the choice).
+
+    Efficiency +/- 0.5 points; powers 1 %; peak voltage ratio 1 %; peak current
+    2 %; harmonic levels +/- 1 dB, equal below -60 dBc; |Z_n| 2 % + 0.05 ohm,
+    equal above 10 |Z_1| (open).
+    """
+    z1 = values.get("z1_ohm")
+    out = {}
+    for key in values:
+        if key == "drain_efficiency":
+            out[key] = Tolerance(abs=0.005)
+        elif key in ("pout_w", "pdc_w", "pload_total_w", "peak_vd_over_vdd"):
+            out[key] = Tolerance(rel=0.01)
+        elif key == "peak_id_a":
+            out[key] = Tolerance(rel=0.02)
+        elif key.endswith("_dbc"):
+            out[key] = Tolerance(abs=1.0, floor=DBC_FLOOR)
+        elif key.startswith("z") and key.endswith("_ohm"):
+            ceiling = OPEN_FACTOR * z1 if (z1 and key != "z1_ohm") else None
+            out[key] = Tolerance(rel=0.02, abs=0.05, ceiling=ceiling)
+        else:
+            out[key] = Tolerance(rel=0.01)
+    return out
+
+
+def make_golden(design_path: Path, metrics: dict, digest: str, old: dict | None = None) -> dict:
+    """A golden document from a run; tolerances edited by hand in ``old`` are kept."""
+    values = select_metrics(metrics)
+    tols = default_tolerances(values)
+    old_metrics = (old or {}).get("metrics", {})
+    entries = {}
+    for key, value in values.items():
+        tol = tols[key].to_json()
+        if key in old_metrics and isinstance(old_metrics[key], dict):
+            kept = {k: v for k, v in old_metrics[key].items() if k in ("abs", "rel", "floor", "ceiling")}
+            if kept:
+                tol = kept
+        entries[key] = {"value": value, **tol}
+    return {
+        "format": GOLDEN_FORMAT,
+        "design_file": Path(design_path).name,
+        "netgen_version": __version__,
+        "sized_digest": digest,
+        "settled": bool(metrics.get("settled", False)),
+        "cycles": metrics.get("cycles"),
+        "metrics": entries,
+    }
+
+
+def read_golden(path: str | Path) -> dict:
+    """Read and validate a golden file.
+
+    Raises
+    ------
+    DesignError
+        Naming the file and what is wrong with it.
+    """
+    path = Path(path)
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise DesignError(f"{path}: golden file missing; create it with 'netgen check --accept <design.toml>'.") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise DesignError(f"{path}: not a readable golden file ({exc}); regenerate it with 'netgen check --accept'.") from None
+    if not isinstance(doc, dict) or doc.get("format") != GOLDEN_FORMAT or not isinstance(doc.get("metrics"), dict):
+        raise DesignError(f"{path}: not a golden file of format '{GOLDEN_FORMAT}'; regenerate it with 'netgen check --accept'.")
+    for key, entry in doc["metrics"].items():
+        if not isinstance(entry, dict) or "value" not in entry:
+            raise DesignError(f"{path}: metrics.{key} needs a 'value' (and optional abs, rel, floor, ceiling).")
+        for k in ("value", "abs", "rel", "floor", "ceiling"):
+            if k in entry and entry[k] is not None and not isinstance(entry[k], (int, float)):
+                raise DesignError(f"{path}: metrics.{key}.{k} must be a number.")
+    return doc
+
+
+def write_golden(path: str | Path, doc: dict) -> Path:
+    """Write a golden file atomically (stable key order, one metric a line)."""
+    return atomic_write_text(path, json.dumps(doc, indent=2) + "\n")
+
+
+def _tolerance(entry: dict) -> Tolerance:
+    return Tolerance(
+        abs=float(entry.get("abs", 0.0) or 0.0),
+        rel=float(entry.get("rel", 0.0) or 0.0),
+        floor=entry.get("floor"),
+        ceiling=entry.get("ceiling"),
+    )
+
+
+def compare(golden: dict, metrics: dict) -> tuple[Row, ...]:
+    """Compare a run's metrics with a golden document, one :class:`Row` per golden metric."""
+    new = select_metrics(metrics)
+    rows = []
+    for key, entry in golden["metrics"].items():
+        value = new.get(key)
+        tol = _tolerance(entry)
+        ok = value is not None and tol.allows(float(entry["value"]), value)
+        rows.append(Row(key, float(entry["value"]), value, tol, ok))
+    return tuple(rows)
+
+
+# ---------------------------------------------------------------- running
+
+
+def run_one(design_path: str) -> dict:
+    """Run one design (in a worker process) and return plain data.
+
+    Returns ``{"metrics": dict, "digest": str, "error": None}`` or
+    ``{"error": "message"}`` for an error the user can cause or a simulator failure.
+    """
+    from netgen.design import load_design
+    from netgen.pipeline import run_design
+
+    try:
+        design = load_design(design_path)
+        result = run_design(design, None, plots=False)
+        return {"metrics": result.metrics, "digest": result.sized.digest(), "error": None}
+    except NetgenError as exc:
+        return {"error": f"{type(exc).__name__}: {exc}"}
+
+
+def _result(design: Path, run: dict, accept: bool) -> CheckResult:
+    gpath = golden_path(design)
+    old = read_golden(gpath) if gpath.is_file() else None
+    if run.get("error"):
+        return CheckResult(design, gpath, error=run["error"])
+    metrics = run["metrics"]
+    settled = bool(metrics.get("settled", False))
+    notes = []
+    if not settled:
+        notes.append(f"the run did not settle in {metrics.get('cycles')} cycles; a run that does not settle fails the check")
+    rows: tuple[Row, ...] = ()
+    if old is not None:
+        rows = compare(old, metrics)
+        if old.get("sized_digest") != run["digest"]:
+            notes.append(f"sized design changed since the golden (digest {old.get('sized_digest')} -> {run['digest']})")
+        if old.get("netgen_version") != __version__:
+            notes.append(f"golden made by netgen {old.get('netgen_version')}, this is {__version__}")
+    else:
+        notes.append("no golden yet")
+    new_golden = make_golden(design, metrics, run["digest"], old) if accept else None
+    return CheckResult(design, gpath, rows, settled, None, tuple(notes), new_golden)
+
+
+def check_designs(
+    paths: Iterable[str | Path],
+    *,
+    jobs: int | None = None,
+    accept: bool = False,
+    on_done: Callable[[CheckResult], None] | None = None,
+    runner: Callable[[str], dict] = run_one,
+) -> list[CheckResult]:
+    """Re-run designs and compare each with its golden file.
+
+    Parameters
+    ----------
+    paths : files or folders (see :func:`find_designs`).
+    jobs : int, optional
+        Worker processes (default: one per core, at most one per design);
+        1 runs in this process.
+    accept : bool
+        Also build the new golden documents (``CheckResult.new_golden``);
+        :func:`accept` writes them. Designs without a golden are then allowed.
+    on_done : callable, optional
+        Called with each result as it completes (progress display).
+    runner : callable
+        ``design path -> run dict`` (:func:`run_one`); must be picklable.
+
+    Returns
+    -------
+    list of CheckResult, in the order of the designs.
+    """
+    designs = find_designs(paths, include_new=accept)
+    for d in designs:  # fail early on a broken golden (a user error), before any simulation
+        if golden_path(d).is_file():
+            read_golden(golden_path(d))
+    if not designs:
+        return []
+    workers = jobs or min(len(designs), multiprocessing.cpu_count() or 1)
+    results: dict[int, CheckResult] = {}
+    if workers <= 1 or len(designs) == 1:
+        for i, d in enumerate(designs):
+            results[i] = _result(d, runner(str(d)), accept)
+            if on_done:
+                on_done(results[i])
+    else:
+        ctx = multiprocessing.get_context("spawn")  # a fresh interpreter: no inherited simulator state
+        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+            futures = {pool.submit(runner, str(d)): i for i, d in enumerate(designs)}
+            from concurrent.futures import as_completed
+
+            for fut in as_completed(futures):
+                i = futures[fut]
+                try:
+                    run = fut.result()
+                except Exception as exc:  # a crashed worker is a failed check, reported, not hidden
+                    run = {"error": f"worker failed: {type(exc).__name__}: {exc}"}
+                results[i] = _result(designs[i], run, accept)
+                if on_done:
+                    on_done(results[i])
+    return [results[i] for i in range(len(designs))]
+
+
+def accept(results: Iterable[CheckResult]) -> list[str]:
+    """Write the new goldens of ``results`` (from ``check_designs(..., accept=True)``).
+
+    Designs that failed to run or did not settle are not accepted. Returns one
+    line per design saying what changed.
+    """
+    lines = []
+    for r in results:
+        name = r.design_path.name
+        if r.error:
+            lines.append(f"{name}: not accepted ({r.error})")
+            continue
+        if not r.settled:
+            lines.append(f"{name}: not accepted (the run did not settle)")
+            continue
+        if r.new_golden is None:
+            continue
+        changed = [row for row in r.rows if row.new is None or row.golden != row.new]
+        if not r.golden_path.is_file():
+            lines.append(f"{name}: new golden {r.golden_path.name} ({len(r.new_golden['metrics'])} metrics)")
+        elif not changed and all(row.ok for row in r.rows):
+            lines.append(f"{name}: unchanged")
+        else:
+            parts = [f"{row.metric} {row.golden:.6g} -> {row.new:.6g}" if row.new is not None else f"{row.metric} removed"
+                     for row in changed]
+            lines.append(f"{name}: updated: " + ("; ".join(parts) if parts else "metadata only"))
+        write_golden(r.golden_path, r.new_golden)
+    return lines
+
+
+def _fmt(x: float | None) -> str:
+    return "-" if x is None else f"{x:.6g}"
+
+
+def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
+    """A pass/fail table for one design: metric, golden, new, deviation, tolerance, result."""
+    status = "PASS" if r.ok else "FAIL"
+    if r.ok and not r.rows and not r.golden_path.is_file():
+        status = "NEW "
+    head = f"{status}  {r.design_path}"
+    lines = [head]
+    for note in r.notes:
+        lines.append(f"  note: {note}")
+    if r.error:
+        lines.append(f"  error: {r.error}")
+        return "\n".join(lines)
+    rows = [row for row in r.rows if not (only_failures and row.ok)]
+    if rows:
+        table = [("metric", "golden", "new", "deviation", "tolerance", "result")]
+        table += [(row.metric, _fmt(row.golden), _fmt(row.new), row.deviation, row.tolerance.describe(),
+                   "ok" if row.ok else "FAIL") for row in rows]
+        widths = [max(len(t[i]) for t in table) for i in range(6)]
+        for t in table:
+            lines.append("  " + "  ".join(c.ljust(w) for c, w in zip(t, widths)).rstrip())
+    return "\n".join(lines)
+
+
+def format_summary(results: list[CheckResult]) -> str:
+    """One closing line: how many designs passed."""
+    failed = [r.design_path.name for r in results if not r.ok]
+    text = f"{len(results) - len(failed)} of {len(results)} designs pass"
+    if failed:
+        text += "; failed: " + ", ".join(failed)
+    return text
+
+
+# ---------------------------------------------------------------- design diff
+
+
+@dataclass(frozen=True)
+class ComponentRow:
+    """One component in either design: values in SI (None when absent)."""
+
+    name: str
+    kind: str
+    unit: str
+    a: float | None
+    b: float | None
+
+    @property
+    def change_pct(self) -> float | None:
+        if self.a is None or self.b is None or self.a == 0:
+            return None
+        return 100.0 * (self.b - self.a) / abs(self.a)
+
+
+@dataclass(frozen=True)
+class DesignDiff:
+    """Two designs compared: sized components, Ropt, and (optionally) metrics."""
+
+    a_label: str
+    b_label: str
+    ropt_ohm: tuple[float, float]
+    components: tuple[ComponentRow, ...]
+    metrics: tuple[tuple[str, float | None, float | None], ...] = ()
+    settled: tuple[bool, bool] | None = None
+
+
+def load_design_spec(spec: str):
+    """Load a design from a path or from ``git:REV:path`` (that file as of revision REV).
+
+    Raises
+    ------
+    DesignError
+        When git cannot produce the file (unknown revision, path not tracked).
+    """
+    from netgen.design import design_from_dict, load_design
+
+    if not spec.startswith("git:"):
+        return load_design(spec)
+    try:
+        _, rev, path = spec.split(":", 2)
+    except ValueError:
+        raise DesignError(f"{spec}: write a revision as git:REV:path, e.g. git:HEAD~1:sims/demo.toml.") from None
+    p = Path(path)
+    folder = p.parent if str(p.parent) else Path(".")
+    try:
+        proc = subprocess.run(["git", "-C", str(folder), "show", f"{rev}:./{p.name}"],
+                              capture_output=True, text=True, check=False)
+    except FileNotFoundError:
+        raise DesignError(f"{spec}: git is not installed; compare two files instead.") from None
+    if proc.returncode != 0:
+        msg = proc.stderr.strip().splitlines()[-1] if proc.stderr.strip() else "git failed"
+        raise DesignError(f"{spec}: git cannot show that file ({msg}); check the revision and path.")
+    try:
+        doc = tomllib.loads(proc.stdout)
+    except tomllib.TOMLDecodeError as exc:
+        raise DesignError(f"{spec}: TOML syntax error: {exc}.") from None
+    return design_from_dict(doc, source=p.resolve(), where=spec)
+
+
+def diff_designs(a_spec: str, b_spec: str, *, run: bool = True) -> DesignDiff:
+    """Compare two designs: sized component values (% change) and, with ``run``, metrics."""
+    from netgen.synthesis import size
+
+    da, db = load_design_spec(a_spec), load_design_spec(b_spec)
+    sa, sb = size(da), size(db)
+    names = list(sa.components) + [n for n in sb.components if n not in sa.components]
+    rows = []
+    for n in names:
+        ca, cb = sa.components.get(n), sb.components.get(n)
+        c = ca or cb
+        rows.append(ComponentRow(n, c.kind, c.unit, ca.value if ca else None, cb.value if cb else None))
+    metrics: tuple = ()
+    settled = None
+    if run:
+        from netgen.pipeline import run_design
+
+        ma = run_design(da, None, plots=False).metrics
+        mb = run_design(db, None, plots=False).metrics
+        va, vb = select_metrics(ma), select_metrics(mb)
+        keys = list(va) + [k for k in vb if k not in va]
+        metrics = tuple((k, va.get(k), vb.get(k)) for k in keys)
+        settled = (bool(ma.get("settled")), bool(mb.get("settled")))
+    return DesignDiff(a_spec, b_spec, (sa.ropt_ohm, sb.ropt_ohm), tuple(rows), metrics, settled)
+
+
+def format_diff(diff: DesignDiff, *, changed_only: bool = False) -> str:
+    """Text tables of a :class:`DesignDiff` (components, then metrics)."""
+    lines = [f"a: {diff.a_label}", f"b: {diff.b_label}", ""]
+    table = [("component", "unit", "a", "b", "change")]
+    ra, rb = diff.ropt_ohm
+    table.append(("Ropt", "ohm", f"{ra:.6g}", f"{rb:.6g}", f"{100 * (rb - ra) / ra:+.2f}%" if ra else "-"))
+    for c in diff.components:
+        pct = c.change_pct
+        if changed_only and pct is not None and abs(pct) < 1e-9:
+            continue
+        change = "only in b" if c.a is None else "only in a" if c.b is None else f"{pct:+.2f}%" if pct is not None else "-"
+        table.append((c.name, c.unit, _fmt(c.a), _fmt(c.b), change))
+    lines += _columns(table)
+    if diff.metrics:
+        lines.append("")
+        if diff.settled and not all(diff.settled):
+            lines.append(f"note: settled a={diff.settled[0]} b={diff.settled[1]}; an unsettled run's metrics are not final")
+        mt = [("metric", "a", "b", "change")]
+        for key, a, b in diff.metrics:
+            if a is None or b is None:
+                change = "only in " + ("b" if a is None else "a")
+            elif key.endswith("_dbc") or key == "drain_efficiency":
+                change = f"{b - a:+.4g}" + (" dB" if key.endswith("_dbc") else "")
+            else:
+                change = f"{100 * (b - a) / abs(a):+.2f}%" if a else f"{b - a:+.4g}"
+            mt.append((key, _fmt(a), _fmt(b), change))
+        lines += _columns(mt)
+    return "\n".join(lines)
+
+
+def _columns(table: list[tuple]) -> list[str]:
+    widths = [max(len(t[i]) for t in table) for i in range(len(table[0]))]
+    return ["  ".join(c.ljust(w) for c, w in zip(t, widths)).rstrip() for t in table]

@@ -1,0 +1,50 @@
+"""Netlists: a sized design rendered to SPICE text, and rendered text read back.
+
+Takes a :class:`netgen.design.SizedDesign`; gives deterministic netlist text in the ngspice or
+the portable SPICE3 dialect (sandboxed Jinja, StrictUndefined). Reading back: the cards,
+parameters, source waveforms and device expressions of a netlist, as the periodic estimate and
+the analysis need them.
+
+Modules: ``renderer`` (Jinja environment, dialects, header), ``portable`` (the strict portable
+subset checker), ``cards`` (reading a netlist back; SPICE numbers).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "Card": "cards",
+    "GROUND": "cards",
+    "SourceWaveform": "cards",
+    "Unsupported": "cards",
+    "card_params": "cards",
+    "check_portable": "portable",
+    "device_expression": "cards",
+    "format_problems": "portable",
+    "loss_elements": "renderer",
+    "model_cards": "cards",
+    "netlist_elements": "cards",
+    "parse_spice_number": "cards",
+    "portable_cards": "renderer",
+    "read_cards": "cards",
+    "render": "renderer",
+    "source_waveform": "cards",
+    "spice_value": "cards",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

@@ -1,0 +1,535 @@
+"""Render a :class:`~netgen.design.records.SizedDesign` into netlist text through Jinja templates.
+
+The environment is sandboxed (``SandboxedEnvironment``), undefined names are errors
+(``StrictUndefined``), nothing is escaped, and numbers reach the text only through our
+``n`` filter (``'{:.10g}'``). The only user text placed in a netlist is the validated design
+name (:data:`netgen.design.schema.SAFE_NAME`) and the checked model-file path of a spice device.
+Output is byte-identical for identical input (no timestamps). Every context variable is
+documented in docs/template_context.md; the portable dialect in docs/portable_dialect.md.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import re
+from fractions import Fraction
+from pathlib import Path
+
+import jinja2
+from jinja2.sandbox import SandboxedEnvironment
+
+from netgen import __version__
+from netgen.design import SizedDesign
+from netgen.errors import RenderError
+from netgen.synthesis import element_name, line_plan, loss_ohm, tail_plan
+
+__all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "portable_cards", "MODES", "DIALECTS"]
+
+MODES = ("tran", "ac", "op")
+DIALECTS = ("ngspice", "portable")
+#: default AC grid: this many points per f0 from f0/AC_POINTS_PER_F0 up to harmonics x f0
+AC_POINTS_PER_F0 = 50
+_MAX_AC_POINTS = 200_001
+#: Cout series time constant in maximum time steps (resolved by the trapezoidal rule)...
+COUT_TAU_STEPS = 4
+#: ...and at least this fraction of the period (fixed physics when points_per_cycle >= 500)
+COUT_TAU_PERIODS = 1.0 / 125.0
+_RLOSS = re.compile(r"^(RLOSS_\S+)\s+(\S+)\s+(\S+)\s+(\S+)", re.IGNORECASE | re.MULTILINE)
+
+
+def template_dir() -> Path:
+    """Folder of the built-in templates (the ``netgen.templates`` package)."""
+    import netgen.templates as pkg
+
+    return Path(pkg.__file__).resolve().parent
+
+
+def _fmt(value) -> str:
+    """The only number formatter of the templates: ``'{:.10g}'``; refuses NaN/inf."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise RenderError(f"template: the 'n' filter needs a number, got {type(value).__name__}; pass a numeric context value.")
+    x = float(value)
+    if not math.isfinite(x):
+        raise RenderError(f"template: a value is {x!r}; every netlist number must be finite (check the sized values).")
+    return "{:.10g}".format(x)
+
+
+@functools.lru_cache(maxsize=1)
+def _environment() -> SandboxedEnvironment:
+    """The shared sandboxed environment (built once per process; templates are cached)."""
+    env = SandboxedEnvironment(
+        loader=jinja2.FileSystemLoader(str(template_dir())),
+        undefined=jinja2.StrictUndefined,
+        autoescape=False,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    env.filters["n"] = _fmt
+    return env
+
+
+def ac_grid(freqs_hz) -> tuple[int, float, float]:
+    """One ``.ac lin N f1 f2`` grid that contains every requested frequency exactly.
+
+    The step is the largest common divisor of the frequency differences (found with
+    rational approximation to 1e-9 relative); N = (f2 - f1)/step + 1, and 3 instead of 2
+    (ngspice 39 gives only f1 for ``lin 2``).
+
+    Raises
+    ------
+    RenderError
+        When no common step gives at most 200001 points.
+    """
+    f = sorted({float(x) for x in freqs_hz})
+    if not f or f[0] <= 0:
+        raise RenderError("ac_freqs_hz: give at least one positive frequency.")
+    if len(f) == 1:
+        return 1, f[0], f[0]
+    scale = f[-1]
+    step = None
+    for x in f[1:]:
+        frac = Fraction((x - f[0]) / scale).limit_denominator(10**7)
+        step = frac if step is None else Fraction(math.gcd(step.numerator * frac.denominator, frac.numerator * step.denominator),
+                                                   step.denominator * frac.denominator)
+    n = int(round((f[-1] - f[0]) / (float(step) * scale))) + 1
+    if n == 2:  # ngspice 39 returns only the start point of ".ac lin 2 f1 f2" (measured): add the midpoint
+        n = 3
+    if n > _MAX_AC_POINTS:
+        raise RenderError(f"ac_freqs_hz: no common grid of at most {_MAX_AC_POINTS} points holds all {len(f)} frequencies; request fewer or rounder frequencies.")
+    return n, f[0], f[-1]
+
+
+def _comp_ctx(sized: SizedDesign) -> dict:
+    out = {}
+    for name, c in sized.components.items():
+        out[name] = {
+            "name": name,
+            "kind": c.kind,
+            "value": c.value,
+            "unit": c.unit,
+            "element": element_name(name),
+            "rloss": loss_ohm(sized, name),
+            "how": c.how,
+            "role": c.role,
+        }
+    return out
+
+
+def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
+    d = sized.design
+    lines = [
+        f"netgen {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
+        f"f0 = {_fmt(d.f0_hz)} Hz, Vdd = {_fmt(d.vdd_v)} V, RL = {_fmt(d.load_ohm)} ohm, load_x = {_fmt(d.load_x_ohm)} ohm, device {d.device.model}",
+        f"Ropt = {_fmt(sized.ropt_ohm)} ohm; sized-design digest {sized.digest()}",
+        "components (name = value unit: how):",
+    ]
+    for c in sized.components.values():
+        lines.append(f"  {c.name} = {_fmt(c.value)} {c.unit}: {c.how}")
+    lines.append("derived values:")
+    for k, (v, unit, how) in sized.derived.items():
+        lines.append(f"  {k} = {_fmt(v)} {unit}: {how}")
+    # header text is ours, but never let a line break escape the comment
+    return ["* " + ln.replace("\n", " ").replace("\r", " ") for ln in lines]
+
+
+def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None,
+                     ic=None, ac_freqs_hz=None, idc_a=None) -> dict:
+    """The variables a template sees (documented in docs/template_context.md)."""
+    d = sized.design
+    dev = d.device
+    period = 1.0 / d.f0_hz
+    tmax = period / d.sim.points_per_cycle
+    tstop = float(tstop_s) if tstop_s is not None else d.sim.max_cycles * period
+    if not (tstop > 0 and math.isfinite(tstop)):
+        raise RenderError(f"tstop_s: {tstop_s!r} is not a positive finite time; give the simulated time in seconds.")
+    if ac_freqs_hz is None:
+        h = d.sim.harmonics
+        ac = (AC_POINTS_PER_F0 * h, d.f0_hz / AC_POINTS_PER_F0, h * d.f0_hz)
+    else:
+        ac = ac_grid(ac_freqs_hz)
+    lines = {}
+    for name in sized.components:
+        if name.endswith("_z0"):
+            base = name[:-3]
+            plan = line_plan(sized, base)
+            plan["element"] = f"T_{base}"
+            plan["base"] = base
+            lines[base] = plan
+    tail = []
+    plan = tail_plan(sized)
+    n_series = sum(1 for _, how in plan if how == "series")
+    node = "t0" if n_series else "load"
+    tail_in = node
+    k = 0
+    for name, how in plan:
+        if how == "series":
+            k += 1
+            nxt = "load" if k == n_series else f"t{k}"
+            tail.append({"comp": name, "how": "series", "a": node, "b": nxt})
+            node = nxt
+        else:
+            tail.append({"comp": name, "how": "shunt", "a": node, "b": "0"})
+    device = {
+        "model": dev.model,
+        "ron_ohm": dev.ron_ohm,
+        "roff_ohm": dev.roff_ohm,
+        "transition": dev.transition,
+        "duty": dev.duty,
+        "cout_f": dev.cout_f,
+        "vknee_v": dev.vknee_v,
+        "drive": dev.drive,
+        "rgate_ohm": dev.rgate_ohm,
+        "vgate_bias_v": dev.vgate_bias_v,
+        "vgate_amp_v": dev.vgate_amp_v,
+        "conduction_angle_deg": dev.conduction_angle_deg,
+    }
+    device["cout_rs_ohm"] = cout_series_ohm(dev.cout_f, period, tmax) if (lines and dev.cout_f > 0) else 0.0
+    if dev.model == "switch":
+        edge = dev.transition * period if dev.transition > 0 else period / 200.0
+        pw = dev.duty * period - edge
+        if pw <= 0:
+            raise RenderError(f"device.transition: {dev.transition:g} of a period is longer than the on-time (device.duty = {dev.duty:g}); lower the transition.")
+        device.update(edge_s=edge, pw_s=pw)
+    elif dev.model == "gm":
+        alpha = math.radians(dev.conduction_angle_deg) / 2.0
+        imax = sized.derived["imax_a"][0]
+        device.update(imax_a=imax, vg_bias=-math.cos(alpha), gm_a_per_v=imax / (1.0 - math.cos(alpha)))
+    else:
+        pins = {"drain": "dsw", "gate": "gate", "source": "0"}
+        device["nodes"] = " ".join(pins[p] for p in dev.pins)
+        device["subckt"] = dev.subckt
+        device.update(_include(sized, dialect))
+    ic = dict(ic or {})
+    for k_, v_ in ic.items():
+        _fmt(v_)
+    return {
+        "design": {"name": d.name, "topology": d.topology, "f0_hz": d.f0_hz, "vdd_v": d.vdd_v,
+                   "load_ohm": d.load_ohm, "load_x_ohm": d.load_x_ohm, "period_s": period},
+        "device": device,
+        "comp": _comp_ctx(sized),
+        "lines": lines,
+        "has_line": bool(lines),
+        "tail": tail,
+        "tail_in": tail_in,
+        "resonators": sorted(int(m.group(1)) for m in (re.match(r"^res(\d+)_l$", k) for k in sized.components) if m),
+        "mode": mode,
+        "dialect": dialect,
+        "ic": ic,
+        "tran": {"tstep_s": tmax, "tstop_s": tstop, "tmax_s": tmax, "minbreak_s": 0.01 * tmax},
+        "ac": {"points": ac[0], "fstart_hz": ac[1], "fstop_hz": ac[2]},
+        "idc_a": float(idc_a) if idc_a is not None else sized.idc_est_a,
+        "header_lines": _header_lines(sized, mode, dialect),
+        "ropt_ohm": sized.ropt_ohm,
+        "version": __version__,
+        "digest": sized.digest(),
+    }
+
+
+def cout_series_ohm(cout_f: float, period_s: float, tmax_s: float) -> float:
+    """Series resistance given to the device output capacitance in designs with lines, ohm.
+
+    R = tau / Cout with tau = max(COUT_TAU_STEPS * TMAX, COUT_TAU_PERIODS * T): an RC
+    corner at f0 / (2 pi COUT_TAU_PERIODS), about 20 f0, above the harmonics analysed.
+
+    Notes
+    -----
+    Why (measured on sims/demo.toml, see docs/simulation.md, "Hard switching with Cout"):
+    a quarter-wave line modelled with frequency-independent loss keeps undamped
+    resonances at every harmonic and returns each switching transient after exactly
+    T/2, i.e. at the next switching instant. With an ideal Cout (discharge time constant
+    Ron*Cout far below the step) the run never settled and the drain showed
+    4-6 x Vdd spikes; with this resistance it settles and agrees with a SPICE-free
+    harmonic-balance solution. The energy C V^2 / 2 of each hard turn-on is
+    independent of the resistance it is dissipated in (textbook RC charging), so the
+    discharge loss stays; it is reported as the ``cout`` loss (element ``RLOSS_cout``).
+    """
+    if cout_f <= 0:
+        return 0.0
+    tau_s = max(COUT_TAU_STEPS * tmax_s, COUT_TAU_PERIODS * period_s)
+    return tau_s / cout_f
+
+
+def _include(sized: SizedDesign, dialect: str) -> dict:
+    path = sized.design.device.include
+    if path is None:
+        raise RenderError("device.include: a spice device needs a model file; set device.include.")
+    path = Path(path).resolve()
+    text_path = str(path)
+    if any(ch in text_path for ch in "\"\n\r\x00;") or not path.is_file():
+        raise RenderError(f"device.include: '{path.name}' is not a readable model file with a plain path; move it to a simple path.")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RenderError(f"device.include: cannot read '{path.name}' ({exc}); check the file.") from None
+    for line in text.splitlines():
+        word = line.strip().lower().split()[0] if line.strip() else ""
+        # ngspice runs .control blocks of included files (a route to the shell); the portable
+        # dialect inlines the file, so nested includes and .end would break it too
+        if word in (".control", ".endc", ".end", ".include", ".lib", ".inc"):
+            raise RenderError(f"device.include: '{path.name}' contains '{word}'; a model file may hold only models and subcircuits.")
+    if dialect == "ngspice":
+        return {"include_path": text_path, "include_text": ""}
+    return {"include_path": "", "include_text": text.rstrip("\n")}
+
+
+def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None, ic=None,
+           ac_freqs_hz=None, idc_a=None) -> str:
+    """Netlist text for ``sized``.
+
+    Parameters
+    ----------
+    sized : SizedDesign
+    mode : {"tran", "ac", "op"}
+        Full circuit with the device and ``.tran ... uic``; the passive network driven by
+        ``IPORT 0 drain AC 1`` with ``.ac``; or ``IPORT drain 0 DC idc_a`` with ``.op``
+        (docs/netlist_conventions.md).
+    dialect : {"ngspice", "portable"}
+    tstop_s : float, optional
+        Simulated time, s (default ``sim.max_cycles`` periods).
+    ic : dict, optional
+        Element name (``L_feed``, ``C_block``) -> initial current (A) / voltage (V).
+    ac_freqs_hz : array_like, optional
+        Frequencies the ``.ac lin`` grid must contain exactly (default: f0/50 steps up to
+        ``sim.harmonics`` x f0).
+    idc_a : float, optional
+        DC current drawn at the drain in ``op`` mode (default ``sized.idc_est_a``).
+
+    Raises
+    ------
+    RenderError
+        For an unknown mode/dialect, a missing or failing template.
+    """
+    if mode not in MODES:
+        raise RenderError(f"mode: '{mode}' is not one of {', '.join(MODES)}.")
+    if dialect not in DIALECTS:
+        raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
+    ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a)
+    env = _environment()
+    d = sized.design
+    try:
+        if d.template_path is None:
+            from netgen.synthesis import get_topology
+
+            tmpl = env.get_template(get_topology(d.topology).template)
+        else:
+            try:
+                src = d.template_path.read_text(encoding="utf-8")
+            except (OSError, UnicodeDecodeError) as exc:
+                raise RenderError(f"design.topology: cannot read template '{d.topology}' ({exc}); check the file.") from None
+            tmpl = env.from_string(src)
+        text = tmpl.render(**ctx)
+    except jinja2.UndefinedError as exc:
+        raise RenderError(f"template for {d.topology}: {exc}; the name is not in the template context (docs/template_context.md).") from None
+    except jinja2.TemplateSyntaxError as exc:
+        raise RenderError(f"template for {d.topology}: syntax error at line {exc.lineno}: {exc.message}.") from None
+    except jinja2.TemplateError as exc:
+        raise RenderError(f"template for {d.topology}: {exc}.") from None
+    except RenderError:
+        raise
+    except (TypeError, ValueError, OverflowError, ZeroDivisionError, ArithmeticError, LookupError,
+            AttributeError, RecursionError) as exc:
+        raise RenderError(f"template for {d.topology}: {type(exc).__name__}: {exc}; fix the template expression.") from None
+    text = _finish(text, mode)
+    return portable_cards(text) if dialect == "portable" else text
+
+
+def _finish(text: str, mode: str) -> str:
+    """Normalise blank lines, add ``.save`` of the loss-resistor nodes (tran), end with ``.end``."""
+    lines = [ln.rstrip() for ln in text.splitlines()]
+    lines = [ln for ln in lines if ln]
+    if lines and lines[-1].lower() == ".end":
+        lines.pop()
+    if mode == "op":
+        floating = dc_islands("\n".join(lines))
+        if floating:
+            lines.append("* DC paths for nodes isolated by capacitors (op mode only; 1e12 ohm changes nothing else)")
+            lines += [f"RDC_{n} {n} 0 1e12" for n in floating]
+    if mode == "tran":
+        nodes = []
+        for _, a, b, _r in loss_elements("\n".join(lines)):
+            for node in (a, b):
+                if node != "0" and node not in nodes:
+                    nodes.append(node)
+        if nodes:
+            lines.append(".save " + " ".join(f"v({n})" for n in nodes))
+    lines.append(".end")
+    return "\n".join(lines) + "\n"
+
+
+def dc_islands(netlist_text: str) -> list[str]:
+    """One node of each group of nodes with no DC path to ground (R, L, V and T lines conduct).
+
+    Such an island (e.g. between a DC block and a series capacitor) makes the ``.op`` matrix
+    singular; ngspice's gmin stepping then returns a wrong operating point for the rest of the
+    circuit (measured on class_f_feed), so op mode ties each island to ground with 1e12 ohm.
+    """
+    parent: dict[str, str] = {}
+
+    def find(x: str) -> str:
+        parent.setdefault(x, x)
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    def union(a: str, b: str) -> None:
+        parent[find(a)] = find(b)
+
+    order: list[str] = []
+    for line in netlist_text.splitlines():
+        tok = line.split()
+        if not tok or tok[0][0] in "*.+":
+            continue
+        kind = tok[0][0].upper()
+        nodes = [t.lower() for t in tok[1:5] if "=" not in t]
+        if kind in "RLVCI" and len(nodes) >= 2:
+            nodes = nodes[:2]
+        for n in nodes:
+            if n not in parent:
+                order.append(n)
+            find(n)
+        if kind in "RLV" and len(nodes) >= 2:
+            union(nodes[0], nodes[1])
+        elif kind == "T" and len(nodes) >= 4:
+            union(nodes[0], nodes[2])
+            union(nodes[1], nodes[3])
+        elif kind not in "CI" and len(nodes) >= 2:
+            for n in nodes[1:]:
+                union(nodes[0], n)
+    ground = find("0")
+    seen, out = set(), []
+    for n in order:
+        root = find(n)
+        if root != find(ground) and root not in seen:
+            seen.add(root)
+            out.append(n)
+    return out
+
+
+def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
+    """The ``RLOSS_*`` resistors of a netlist: ``[(name, node_a, node_b, r_ohm), ...]``."""
+    out = []
+    for m in _RLOSS.finditer(netlist_text):
+        try:
+            r = float(m.group(4))
+        except ValueError:
+            raise RenderError(f"netlist: loss resistor {m.group(1)} has value '{m.group(4)}'; write plain numbers for RLOSS_ values.") from None
+        out.append((m.group(1), m.group(2).lower(), m.group(3).lower(), r))
+    return out
+
+
+# ---------------------------------------------------------------- portable dialect
+
+#: card width of the portable dialect (SPICE2-era 80 columns; netgen.netlist.portable.MAX_CARD_CHARS)
+PORTABLE_CARD_CHARS = 80
+#: comment-line width of the portable dialect (netgen.netlist.portable.MAX_COMMENT_CHARS)
+PORTABLE_COMMENT_CHARS = 255
+#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (NGSPICE_NOTES.md)
+MINBREAK_DIVISOR = 100.0
+
+
+def portable_cards(text: str) -> str:
+    """The card-level rules of the portable dialect applied to a rendered netlist.
+
+    1. ``.save`` cards (and their ``+`` lines) are dropped: vector selection is
+       simulator-specific, and a SPICE3 reader keeps every node anyway.
+    2. When the netlist has a ``T`` line, ``.options minbreak=<TMAX/100>`` goes right
+       before ``.tran``. Measured in ngspice 39 (NGSPICE_NOTES.md): a lossless T line in
+       a switching circuit makes the time step collapse after a few hundred periods unless
+       near-coincident breakpoints are merged; 0.01 TMAX cured every case tried.
+       docs/portable_dialect.md says what a simulator without the option should do.
+    3. Cards longer than 80 characters are split at spaces onto ``+`` continuation lines
+       (a word longer than a line, e.g. a B-source expression, after an operator); comment
+       lines longer than 255 characters are split into several comment lines.
+
+    Parameters
+    ----------
+    text : str
+        A netlist as ``render`` finishes it (ends with ``.end``).
+
+    Returns
+    -------
+    str
+        The portable netlist; idempotent (applying it twice changes nothing).
+    """
+    lines = text.splitlines()
+    kept: list[str] = []
+    dropping = False
+    for ln in lines:
+        low = ln.lstrip().lower()
+        if low.startswith(".save"):
+            dropping = True
+            continue
+        if dropping and ln.startswith("+"):
+            continue
+        dropping = False
+        kept.append(ln)
+    has_line = any(ln[:1].upper() == "T" for ln in kept)
+    has_minbreak = any(ln.lower().startswith(".options") and "minbreak" in ln.lower() for ln in kept)
+    out: list[str] = []
+    for ln in kept:
+        words = ln.split()
+        if has_line and not has_minbreak and words and words[0].lower() == ".tran":
+            out.append(f".options minbreak={_fmt(_tran_tmax(words) / MINBREAK_DIVISOR)}")
+        out.extend(_wrap_card(ln))
+    return "\n".join(out) + "\n"
+
+
+def _tran_tmax(words: list[str]) -> float:
+    """TMAX of a ``.tran TSTEP TSTOP [TSTART [TMAX]] [uic]`` card (TSTEP when TMAX is absent), s."""
+    from .cards import (
+        parse_spice_number,  # a user template may write scale suffixes (1p)
+    )
+
+    rest = [w for w in words[1:] if w.lower() != "uic"]
+    try:
+        return parse_spice_number(rest[3] if len(rest) > 3 else rest[0])
+    except (IndexError, ValueError):
+        raise RenderError(f"template: the .tran card '{' '.join(words)}' has no readable TSTEP/TMAX; write '.tran TSTEP TSTOP 0 TMAX uic'.") from None
+
+
+def _wrap_card(line: str) -> list[str]:
+    """One card or comment line split to the portable widths."""
+    if line.lstrip().startswith("*"):
+        if len(line) <= PORTABLE_COMMENT_CHARS:
+            return [line]
+        body = line.lstrip()[1:].strip()
+        width = PORTABLE_COMMENT_CHARS - 4
+        return ["* " + body[i:i + width] for i in range(0, len(body), width)]
+    width = PORTABLE_CARD_CHARS
+    if len(line) <= width:
+        return [line]
+    words: list[str] = []
+    for w in line.split():
+        while len(w) > width - 2:  # room for the "+ " of a continuation line
+            cut = _operator_cut(w, width - 2)
+            if cut <= 0:
+                break
+            words.append(w[: cut + 1])
+            w = w[cut + 1:]
+        words.append(w)
+    out, cur = [], ""
+    for w in words:
+        if cur and len(cur) + 1 + len(w) > width:
+            out.append(cur)
+            cur = "+ " + w
+        else:
+            cur = f"{cur} {w}" if cur else w
+    out.append(cur)
+    return out
+
+
+def _operator_cut(word: str, limit: int) -> int:
+    """Index of the last operator before ``limit`` after which ``word`` may be split (-1: none).
+
+    The sign of an exponent (``1e-09``) is not an operator: splitting there would break the number.
+    """
+    for i in range(min(limit, len(word)) - 1, 0, -1):
+        ch = word[i]
+        if ch in "*/,":
+            return i
+        if ch in "+-" and not (word[i - 1] in "eE" and i >= 2 and (word[i - 2].isdigit() or word[i - 2] == ".")):
+            return i
+    return -1

@@ -1,0 +1,39 @@
+"""Results: settled waveforms become the metrics, the plots and the report.
+
+Takes :class:`netgen.design.Waveforms`, the sized design and the netlist text; gives the metrics
+dict (the metrics.json contract, docs/metrics.md), PNG figures and report.html, the terminal
+table and the metrics/waveform files.
+
+Modules: ``analysis`` (metrics, loss budget, warnings), ``plots`` (the only matplotlib user of
+a single run), ``report`` (HTML, table, JSON and CSV writers).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "analyse": "analysis",
+    "design_warnings": "analysis",
+    "format_table": "report",
+    "plot_all": "plots",
+    "write_metrics_json": "report",
+    "write_report": "report",
+    "write_waveforms_csv": "report",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

@@ -1,0 +1,373 @@
+"""Outputs of one run: report.html, the terminal table, waveforms.csv and metrics.json.
+
+Every file is written atomically (temp file + os.replace, :mod:`netgen.fileio`).
+The HTML report is self-contained (inline CSS, images by relative file name in
+the same folder, no scripts, no external resources). A result that did not
+settle says so in every output.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import html
+import io
+import json
+import math
+import textwrap
+from pathlib import Path
+
+import numpy as np
+
+from netgen.design import format_quantity
+from netgen.fileio import atomic_write_text
+
+__all__ = ["write_report", "format_table", "write_waveforms_csv", "write_metrics_json", "clean_for_json"]
+
+CAUTIONS = (
+    "Supply and peak drain voltages can be several times Vdd (class E about 3.6 Vdd, inverse class F "
+    "about 3.1 Vdd); check device ratings and keep clear of live circuits.",
+    "RF power causes deep burns on contact and RF exposure near antennas and open lines; never touch "
+    "an energised output, and keep exposure within the limits that apply to you.",
+    "Harmonic and spurious emissions are limited by regulation; a simulated harmonic level is not "
+    "compliance evidence. Measure the built amplifier with filters and a calibrated set-up.",
+    "Idealised models (switch, ideal lines) leave out parasitics, thermal effects and device limits; "
+    "follow local codes and licensed practice before building or transmitting.",
+)
+
+_CSS = """
+body{font-family:Helvetica,Arial,sans-serif;margin:0;background:#f4f5f2;color:#1f2328}
+main{max-width:1100px;margin:0 auto;padding:18px 26px 40px;background:#fff}
+h1{font-size:24px;margin:8px 0 2px;color:#14394f}
+h2{font-size:17px;margin:28px 0 8px;padding-bottom:3px;border-bottom:2px solid #1d5f8a;color:#14394f}
+.sub{color:#5c636a;margin:0 0 14px}
+.banner{background:#b3261e;color:#fff;font-weight:bold;font-size:20px;padding:14px 18px;margin:10px 0;border-radius:4px}
+.warn{background:#fff4e0;border-left:4px solid #c77700;padding:8px 12px}
+.banner small{display:block;font-weight:normal;font-size:14px;margin-top:4px}
+.ok{background:#e6f2e4;color:#24571f;padding:6px 12px;border-radius:4px;display:inline-block}
+.cards{display:flex;flex-wrap:wrap;gap:10px}
+.card{border:1px solid #d6dadf;border-radius:5px;padding:8px 14px;min-width:140px}
+.card b{display:block;font-size:20px;color:#1d5f8a}
+.card span{font-size:12px;color:#5c636a}
+table{border-collapse:collapse;font-size:13px;margin:6px 0}
+th,td{border:1px solid #d6dadf;padding:3px 8px;text-align:right;vertical-align:top}
+th{background:#eef2f5}
+td.l,th.l{text-align:left}
+figure{margin:12px 0;display:inline-block;max-width:100%}
+figure img{max-width:100%;border:1px solid #d6dadf}
+figcaption{font-size:12px;color:#5c636a}
+.caution{background:#fff6df;border-left:5px solid #d08a00;padding:8px 14px}
+.caution li{margin:4px 0}
+pre{background:#f6f8fa;border:1px solid #d6dadf;padding:8px;font-size:12px;overflow:auto}
+"""
+
+_PLOT_CAPTIONS = {
+    "waveforms": "Drain voltage and current over the stored periods.",
+    "load_line": "Dynamic load line (drain current against drain voltage) with Vdd and the Ropt line.",
+    "harmonics": "Harmonic amplitudes at the drain and harmonic load power relative to the fundamental.",
+    "impedance": "Impedance of the output network seen from the drain (network analysis) with the "
+                 "harmonic impedances measured in the transient.",
+    "smith": "Harmonic impedances presented to the device (Smith chart).",
+    "convergence": "DC and load power per simulated cycle (settling).",
+}
+
+
+# ----------------------------------------------------------------- helpers
+
+def clean_for_json(obj):
+    """Plain JSON types: numpy scalars/arrays to Python, NaN and infinities to None, paths to str."""
+    if isinstance(obj, dict):
+        return {str(k): clean_for_json(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [clean_for_json(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [clean_for_json(v) for v in obj.tolist()]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        x = float(obj)
+        return x if math.isfinite(x) else None
+    if isinstance(obj, complex):
+        return [clean_for_json(obj.real), clean_for_json(obj.imag)]
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def _num(x, fmt: str = "{:.4g}", none: str = "-") -> str:
+    if x is None:
+        return none
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    if not math.isfinite(xf):
+        return none
+    return fmt.format(xf)
+
+
+def _pct(x) -> str:
+    return _num(None if x is None else 100.0 * x, "{:.2f}")
+
+
+def _e(x) -> str:
+    return html.escape(str(x))
+
+
+def _si(value, unit: str) -> str:
+    if value is None:
+        return "-"
+    try:
+        return format_quantity(float(value), unit)
+    except (TypeError, ValueError):
+        return str(value)
+
+
+# ------------------------------------------------------------------ table
+
+def start_text(start: dict) -> str:
+    """One sentence on how the run started (metrics ``start``), or '' when not recorded."""
+    method = start.get("method")
+    if method == "periodic":
+        dev = start.get("estimate_deviation")
+        agree = f"; ngspice's Pdc and Pout agree with it within {100 * dev:.2g} %" if dev is not None else ""
+        return (f"Started on the periodic steady state computed from the netlist (Pdc "
+                f"{_num(start.get('estimate_pdc_w'))} W, Pout {_num(start.get('estimate_pout_w'))} W{agree}).")
+    if method == "dc":
+        why = f" ({start['reason']})" if start.get("reason") else ""
+        return f"Started from the DC state of feed and block{why}."
+    if method == "cold":
+        return "Started from zero (sim.warm_start = false)."
+    return ""
+
+
+def format_table(metrics: dict) -> str:
+    """Compact plain-text summary for the terminal (fits 80 columns, units in the labels)."""
+    d = metrics.get("design", {})
+    lines = [f"{d.get('name', '?')}  {d.get('topology', '?')}  f0 {_si(d.get('f0_hz'), 'Hz')}  "
+             f"Vdd {_si(d.get('vdd_v'), 'V')}  cycles {metrics.get('cycles', '?')}"]
+    if not metrics.get("settled", False):
+        lines.append("*** NOT SETTLED: values below are not periodic steady state ***")
+    start = start_text(metrics.get("start") or {})
+    if start:
+        lines.extend(textwrap.wrap(start, 78, subsequent_indent="  "))
+    for text in metrics.get("warnings") or ():
+        lines.extend(textwrap.wrap(f"Note: {text}.", 78, subsequent_indent="  "))
+    bound = metrics.get("bound") or {}
+    pairs = [
+        ("Pout (W)", _num(metrics.get("pout_w")), "Pdc (W)", _num(metrics.get("pdc_w"))),
+        ("drain eff. (%)", _pct(metrics.get("drain_efficiency")), "ideal bound (%)", _pct(bound.get("efficiency"))),
+        ("PAE (%)", _pct(metrics.get("pae")), "Pload total (W)", _num(metrics.get("pload_total_w"))),
+        ("peak Vd (V)", _num(metrics.get("peak_vd_v")), "peak Vd/Vdd", _num(metrics.get("peak_vd_over_vdd"), "{:.3f}")),
+        ("peak Id (A)", _num(metrics.get("peak_id_a")), "balance err (%)", _pct(metrics.get("loss_balance_error"))),
+    ]
+    for a, va, b, vb in pairs:
+        lines.append(f"  {a:<16}{va:>12}     {b:<16}{vb:>12}")
+    lines.append("")
+    lines.append(f"  {'n':>2} {'Vd (V)':>9} {'Vd (deg)':>9} {'Id (A)':>9} {'ReZ (ohm)':>10} "
+                 f"{'ImZ (ohm)':>10} {'Pload (W)':>10} {'(dBc)':>7}")
+    for h in metrics.get("harmonics", []):
+        lines.append(f"  {h['n']:>2} {_num(h['vd_v']):>9} {_num(h['vd_deg'], '{:.1f}'):>9} {_num(h['id_a']):>9} "
+                     f"{_num(h['z_re_ohm']):>10} {_num(h['z_im_ohm']):>10} {_num(h['pload_w']):>10} "
+                     f"{_num(h['pload_dbc'], '{:.1f}'):>7}")
+    losses = metrics.get("losses") or {}
+    if losses:
+        lines.append("")
+        lines.append("  losses (W): " + ", ".join(f"{k} {_num(v, '{:.3g}')}" for k, v in losses.items()))
+    return "\n".join(_wrap80(line) for line in lines)
+
+
+def _wrap80(line: str) -> str:
+    if len(line) <= 80:
+        return line
+    out, cur = [], ""
+    for word in line.split(", "):
+        piece = word if not cur else cur + ", " + word
+        if len(piece) > 78 and cur:
+            out.append(cur + ",")
+            cur = "    " + word
+        else:
+            cur = piece
+    out.append(cur)
+    return "\n".join(out)
+
+
+# ------------------------------------------------------------- data files
+
+def write_metrics_json(path, metrics: dict) -> Path:
+    """metrics.json: indented, sorted as given, no NaN (null instead)."""
+    text = json.dumps(clean_for_json(metrics), indent=2, allow_nan=False) + "\n"
+    return atomic_write_text(path, text)
+
+
+def write_waveforms_csv(path, wf, periods: int = 2) -> Path:
+    """waveforms.csv: the last ``periods`` periods of every stored voltage and current.
+
+    Columns ``t_s``, ``v_<node>_v``..., ``i_<name>_a``...; time restarts at 0.
+    The first line is a ``#`` comment with f0 and the settled flag (read with
+    ``comment='#'``).
+    """
+    t = np.asarray(wf.t_s, dtype=float)
+    ppc = int(round(1.0 / (wf.f0_hz * (t[1] - t[0])))) if t.size > 1 else t.size
+    keep = min(t.size, max(1, periods) * ppc)
+    sl = slice(t.size - keep, t.size)
+    cols = [("t_s", t[sl] - t[sl][0])]
+    cols += [(f"v_{k}_v", np.asarray(v, float)[sl]) for k, v in wf.v.items()]
+    cols += [(f"i_{k}_a", np.asarray(v, float)[sl]) for k, v in wf.i.items()]
+    buf = io.StringIO()
+    buf.write(f"# netgen waveforms; f0_hz={wf.f0_hz:.12g}; settled={'true' if wf.settled else 'false (NOT SETTLED)'}; "
+              f"cycles={wf.cycles}\n")
+    buf.write(",".join(name for name, _ in cols) + "\n")
+    np.savetxt(buf, np.column_stack([c for _, c in cols]), delimiter=",", fmt="%.9g")
+    return atomic_write_text(path, buf.getvalue())
+
+
+# ------------------------------------------------------------------- HTML
+
+def _kv_table(rows, head=("quantity", "value")) -> str:
+    out = [f"<table><tr><th class=l>{_e(head[0])}</th><th class=l>{_e(head[1])}</th></tr>"]
+    for k, v in rows:
+        out.append(f"<tr><td class=l>{_e(k)}</td><td class=l>{_e(v)}</td></tr>")
+    out.append("</table>")
+    return "".join(out)
+
+
+def _design_rows(design) -> list[tuple[str, str]]:
+    units = {"hz": "Hz", "v": "V", "ohm": "ohm", "w": "W", "f": "F", "h": "H", "a": "A", "s": "s",
+             "db": "dB", "deg": "deg"}
+    rows = []
+
+    def add(prefix, obj):
+        for f in dataclasses.fields(obj):
+            if f.name in ("raw", "source", "device", "network", "sim"):
+                continue
+            val = getattr(obj, f.name)
+            suffix = f.name.rsplit("_", 1)[-1] if "_" in f.name else ""
+            if isinstance(val, float) and suffix in units and math.isfinite(val):
+                text = format_quantity(val, units[suffix])
+            elif isinstance(val, dict):
+                text = ", ".join(f"{k} = {v}" for k, v in val.items()) or "-"
+            else:
+                text = "-" if val is None else str(val)
+            rows.append((f"{prefix}{f.name}", text))
+
+    add("design.", design)
+    for sec in ("device", "network", "sim"):
+        if hasattr(design, sec):
+            add(f"{sec}.", getattr(design, sec))
+    return rows
+
+
+def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: str) -> Path:
+    """Write ``outdir/report.html`` and return its path.
+
+    Parameters
+    ----------
+    outdir : path
+        Folder of the run; the plots are referenced by file name relative to it.
+    sized : SizedDesign
+    metrics : dict
+        The analyse() result.
+    plot_paths : dict
+        kind -> PNG path or file name (only the file name is used).
+    netlist_text : str
+        Shown folded at the end.
+    """
+    outdir = Path(outdir)
+    d = metrics.get("design", {})
+    design = sized.design
+    settled = bool(metrics.get("settled", False))
+    bound = metrics.get("bound") or {}
+    parts = [f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{_e(d.get('name', 'netgen'))} - netgen report"
+             f"</title><style>{_CSS}</style></head><body><main>"]
+    parts.append(f"<h1>{_e(d.get('name', design.name))}</h1><p class=sub>{_e(design.topology)} &middot; "
+                 f"f0 {_e(_si(design.f0_hz, 'Hz'))} &middot; Vdd {_e(_si(design.vdd_v, 'V'))} &middot; "
+                 f"load {_e(_si(d.get('load_ohm', design.load_ohm), 'ohm'))} &middot; Ropt {_e(_si(sized.ropt_ohm, 'ohm'))}</p>")
+    if not settled:
+        parts.append(f"<div class=banner id=not-settled>NOT SETTLED<small>The simulation stopped after "
+                     f"{_e(metrics.get('cycles'))} cycles before reaching periodic steady state; every number below "
+                     f"describes a transient, not the amplifier. {_e(metrics.get('settle_note') or '')}</small></div>")
+    else:
+        note = metrics.get("settle_note") or ""
+        lead = "" if note.lower().startswith("settled") else f"Settled after {_e(metrics.get('cycles'))} cycles. "
+        parts.append(f"<p class=ok>{lead}{_e(note[:1].upper() + note[1:])}</p>")
+    if start_text(metrics.get("start") or {}):
+        parts.append(f"<p class=sub>{_e(start_text(metrics.get('start') or {}))}</p>")
+    for text in metrics.get("warnings") or ():
+        parts.append(f"<p class=warn>Note: {_e(text)}.</p>")
+
+    cards = [
+        ("output power (fundamental)", _si(metrics.get("pout_w"), "W")),
+        ("drain efficiency", _pct(metrics.get("drain_efficiency")) + " %"),
+        ("ideal bound", _pct(bound.get("efficiency")) + " %"),
+        ("PAE", _pct(metrics.get("pae")) + (" %" if metrics.get("pae") is not None else "")),
+        ("DC power", _si(metrics.get("pdc_w"), "W")),
+        ("peak drain voltage", f"{_si(metrics.get('peak_vd_v'), 'V')} ({_num(metrics.get('peak_vd_over_vdd'), '{:.2f}')} Vdd)"),
+    ]
+    parts.append("<div class=cards>" + "".join(f"<div class=card><b>{_e(v)}</b><span>{_e(k)}</span></div>" for k, v in cards) + "</div>")
+
+    parts.append("<h2>Metrics</h2>")
+    rows = [
+        ("DC power Pdc (W)", _num(metrics.get("pdc_w"))), ("DC current (A)", _num(metrics.get("idc_a"))),
+        ("fundamental load power Pout (W)", _num(metrics.get("pout_w"))),
+        ("total load power (W)", _num(metrics.get("pload_total_w"))),
+        ("fundamental power leaving the drain (W)", _num(metrics.get("p1_drain_w"))),
+        ("drive power Pin (W)", _num(metrics.get("pin_w"))),
+        ("drain efficiency (%)", _pct(metrics.get("drain_efficiency"))), ("PAE (%)", _pct(metrics.get("pae"))),
+        ("peak drain voltage (V)", _num(metrics.get("peak_vd_v"))),
+        ("peak drain voltage / Vdd", _num(metrics.get("peak_vd_over_vdd"), "{:.3f}")),
+        ("lowest drain voltage (V)", _num(metrics.get("min_vd_v"))),
+        ("peak drain current (A)", _num(metrics.get("peak_id_a"))),
+        ("lowest drain current (A)", _num(metrics.get("min_id_a"))),
+        ("cycles simulated", str(metrics.get("cycles"))), ("settled", "yes" if settled else "NO"),
+    ]
+    parts.append(_kv_table(rows))
+    parts.append("<h2>Ideal bound</h2>")
+    parts.append(f"<p><b>{_e(_pct(bound.get('efficiency')))} %</b> &mdash; {_e(bound.get('name', ''))}.<br>"
+                 f"Source: {_e(bound.get('source', '') or 'none')}. The bound assumes an ideal switch and a "
+                 f"lossless network; the simulated efficiency falls short by the losses listed below.</p>")
+
+    parts.append("<h2>Harmonics at the drain</h2><table><tr><th>n</th><th>Vd (V)</th><th>Vd (deg)</th><th>Id (A)</th>"
+                 "<th>Id (deg)</th><th>Re Zn (ohm)</th><th>Im Zn (ohm)</th><th>load power (W)</th><th>load power (dBc)</th></tr>")
+    for h in metrics.get("harmonics", []):
+        parts.append("<tr>" + "".join(f"<td>{_e(x)}</td>" for x in (
+            h["n"], _num(h["vd_v"]), _num(h["vd_deg"], "{:.1f}"), _num(h["id_a"]), _num(h["id_deg"], "{:.1f}"),
+            _num(h["z_re_ohm"]), _num(h["z_im_ohm"]), _num(h["pload_w"]), _num(h["pload_dbc"], "{:.1f}"))) + "</tr>")
+    parts.append("</table><p class=sub>Zn = Vn/(&minus;In), shown only where the current harmonic is at least "
+                 "1e-3 of the fundamental.</p>")
+
+    parts.append("<h2>Loss budget</h2><table><tr><th class=l>where the DC power goes</th><th>W</th><th>% of Pdc</th></tr>")
+    pdc = metrics.get("pdc_w") or 0.0
+    budget = [("fundamental power in the load", metrics.get("pout_w"))] + list((metrics.get("losses") or {}).items())
+    for name, w in budget:
+        share = _num(None if not pdc or w is None else 100.0 * w / pdc, "{:.2f}")
+        parts.append(f"<tr><td class=l>{_e(name)}</td><td>{_e(_num(w))}</td><td>{_e(share)}</td></tr>")
+    parts.append(f"</table><p class=sub>Balance error (Pdc minus everything listed, relative to Pdc): "
+                 f"{_e(_pct(metrics.get('loss_balance_error')))} %. device_switching counts the turn-on discharge "
+                 f"of the drain capacitance and off-state dissipation; load_harmonics is load power outside the "
+                 f"fundamental.</p>")
+
+    if plot_paths:
+        parts.append("<h2>Plots</h2>")
+        for kind, p in plot_paths.items():
+            name = Path(p).name
+            cap = _PLOT_CAPTIONS.get(kind, kind)
+            parts.append(f"<figure><img src=\"{_e(name)}\" alt=\"{_e(kind)}\"><figcaption>{_e(cap)}</figcaption></figure>")
+
+    parts.append("<h2>Design inputs</h2>" + _kv_table(_design_rows(design), ("key", "value")))
+    parts.append("<h2>Sized values</h2><table><tr><th class=l>component</th><th class=l>kind</th><th>value</th>"
+                 "<th class=l>role</th><th class=l>how it was derived</th></tr>")
+    for c in sized.components.values():
+        parts.append(f"<tr><td class=l>{_e(c.name)}</td><td class=l>{_e(c.kind)}</td><td>{_e(_si(c.value, c.unit))}</td>"
+                     f"<td class=l>{_e(c.role)}</td><td class=l>{_e(c.how)}</td></tr>")
+    for name, val in (sized.derived or {}).items():
+        v, unit, how = (tuple(val) + ("", "", ""))[:3]
+        parts.append(f"<tr><td class=l>{_e(name)}</td><td class=l>derived</td><td>{_e(_si(v, unit) if unit else _num(v))}</td>"
+                     f"<td class=l></td><td class=l>{_e(how)}</td></tr>")
+    parts.append("</table>")
+
+    parts.append("<h2>Cautions</h2><div class=caution><ul>" + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+    parts.append(f"<h2>Netlist</h2><details><summary>show the simulated netlist</summary><pre>{_e(netlist_text)}</pre></details>")
+    parts.append("</main></body></html>\n")
+    return atomic_write_text(outdir / "report.html", "\n".join(parts))

@@ -1,0 +1,39 @@
+"""Studies: many variants of one design (sweeps, load circles, tolerance Monte Carlo) and their yield.
+
+Takes a design and the variation text; gives a plan of points, runs them (local process pool or
+a Dask cluster), keeps every point in a resumable SQLite store, and draws the study's plots.
+
+Modules: ``plan`` (variation grammar, load circles, Monte Carlo, specs and yield), ``execute``
+(running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "STORE_NAME": "store",
+    "SweepStore": "store",
+    "export_csv": "store",
+    "make_plan": "plan",
+    "parse_spec": "plan",
+    "plot_sweep": "plots",
+    "run_sweep": "execute",
+    "summarize": "plan",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

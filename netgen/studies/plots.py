@@ -1,0 +1,295 @@
+"""Plots of a sweep, drawn from the data read back from the store (matplotlib, Agg).
+
+The ``*_data`` functions turn stored rows into arrays; the ``plot_*`` functions
+draw those arrays, so a test can compare what is drawn with the database.
+Failed and not-settled points are drawn as gaps (NaN), never as values.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+from pathlib import Path
+from typing import Sequence
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from .plan import Spec, metric_value, point_passes, yield_interval  # noqa: E402
+
+__all__ = [
+    "LINE_METRICS",
+    "axis_names",
+    "line_data",
+    "grid_data",
+    "sample_data",
+    "circle_data",
+    "plot_line",
+    "plot_grid",
+    "plot_histograms",
+    "plot_load_circle",
+    "plot_sweep",
+]
+
+#: metric -> (label, display scale)
+LINE_METRICS = {
+    "drain_efficiency": ("drain efficiency (%)", 100.0),
+    "pout_w": ("output power (W)", 1.0),
+    "peak_vd_over_vdd": ("peak drain voltage / Vdd", 1.0),
+    "h2_dbc": ("2nd harmonic in load (dBc)", 1.0),
+    "h3_dbc": ("3rd harmonic in load (dBc)", 1.0),
+}
+
+#: metric -> the smallest span of the value axis drawn, in display units. A metric that does
+#: not move over the sweep (efficiency of a linear network against supply voltage, which
+#: scales every voltage and current alike) is drawn as the flat line it is, not with an axis
+#: magnified to show the simulator's last digits.
+MIN_SPAN = {
+    "drain_efficiency": 1.0,  # percentage points
+    "peak_vd_over_vdd": 0.02,
+    "h2_dbc": 1.0,  # dB
+    "h3_dbc": 1.0,
+}
+MIN_SPAN_REL = 0.02  # other metrics: 2 % of their magnitude
+
+
+def _value_limits(values: np.ndarray, metric: str) -> tuple[float, float] | None:
+    """(low, high) for a value axis that would span less than the metric's smallest span, else None."""
+    v = values[np.isfinite(values)]
+    if v.size == 0:
+        return None
+    lo, hi = float(v.min()), float(v.max())
+    span = MIN_SPAN.get(metric, MIN_SPAN_REL * max(abs(lo), abs(hi)))
+    if span <= 0 or hi - lo >= span:
+        return None
+    mid = 0.5 * (lo + hi)
+    return mid - span / 2, mid + span / 2
+
+
+def _value(row: dict, metric: str) -> float:
+    """The metric of a stored row, NaN unless the point ran and settled."""
+    if row["status"] != "ok":
+        return math.nan
+    v = metric_value(row["metrics"], metric)
+    return math.nan if v is None else v
+
+
+def axis_names(rows: Sequence[dict]) -> list[str]:
+    """Axis names in first-seen order."""
+    names: list[str] = []
+    for r in rows:
+        for k in r["inputs"].get("axes", {}):
+            if k not in names:
+                names.append(k)
+    return names
+
+
+def line_data(rows: Sequence[dict], axis: str, metric: str) -> tuple[np.ndarray, np.ndarray]:
+    """(x, y) sorted by x: the axis value and the metric of each stored point."""
+    pts = sorted((r["inputs"]["axes"][axis], _value(r, metric)) for r in rows if axis in r["inputs"].get("axes", {}))
+    return np.array([p[0] for p in pts], dtype=float), np.array([p[1] for p in pts], dtype=float)
+
+
+def grid_data(rows: Sequence[dict], x_axis: str, y_axis: str, metric: str):
+    """(xs, ys, Z) with Z[j, i] the metric at ys[j], xs[i]; NaN where no settled point is stored."""
+    xs = sorted({r["inputs"]["axes"][x_axis] for r in rows})
+    ys = sorted({r["inputs"]["axes"][y_axis] for r in rows})
+    z = np.full((len(ys), len(xs)), np.nan)
+    xi = {v: i for i, v in enumerate(xs)}
+    yi = {v: j for j, v in enumerate(ys)}
+    for r in rows:
+        a = r["inputs"]["axes"]
+        z[yi[a[y_axis]], xi[a[x_axis]]] = _value(r, metric)
+    return np.array(xs, dtype=float), np.array(ys, dtype=float), z
+
+
+def sample_data(rows: Sequence[dict], metric: str) -> np.ndarray:
+    """The metric over the stored points that ran and settled."""
+    v = np.array([_value(r, metric) for r in rows], dtype=float)
+    return v[np.isfinite(v)]
+
+
+def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
+    """Reflection coefficients of the load-circle points and their efficiency and power.
+
+    Gamma = (Z - RL)/(Z + RL) with Z = design.load + j design.load_x (Pozar).
+    """
+    from netgen.design import parse_quantity
+
+    g, eff, pout = [], [], []
+    for r in rows:
+        s = r["inputs"].get("set", {})
+        if "design.load" not in s:
+            continue
+        z = complex(parse_quantity(s["design.load"], "ohm", "design.load"),
+                    parse_quantity(s.get("design.load_x", "0 ohm"), "ohm", "design.load_x"))
+        g.append((z - rl_ohm) / (z + rl_ohm))
+        eff.append(_value(r, "drain_efficiency"))
+        pout.append(_value(r, "pout_w"))
+    return {"gamma": np.array(g, dtype=complex), "drain_efficiency": np.array(eff), "pout_w": np.array(pout)}
+
+
+# ---------------------------------------------------------------- drawing
+
+def _save(fig, path: Path) -> Path:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
+    os.close(fd)
+    try:
+        fig.savefig(tmp, dpi=110)
+        os.replace(tmp, path)
+    finally:
+        plt.close(fig)
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+    return path
+
+
+def _axis_label(name: str, unit: str) -> str:
+    return f"{name} ({unit})" if unit else name
+
+
+def plot_line(rows: Sequence[dict], axis: str, path: Path, unit: str = "",
+              metrics: Sequence[str] = tuple(LINE_METRICS)) -> Path:
+    """One panel per metric against the swept axis."""
+    fig, axes = plt.subplots(len(metrics), 1, figsize=(6.4, 1.9 * len(metrics) + 0.6), sharex=True, squeeze=False)
+    for ax, metric in zip(axes[:, 0], metrics):
+        x, y = line_data(rows, axis, metric)
+        label, scale = LINE_METRICS.get(metric, (metric, 1.0))
+        ax.plot(x, y * scale, "o-", color="#1f4e79", ms=4, lw=1.2)
+        lim = _value_limits(y * scale, metric)
+        if lim is not None:
+            ax.set_ylim(*lim)
+        ax.ticklabel_format(axis="y", useOffset=False)
+        ax.set_ylabel(label, fontsize=8)
+        ax.grid(True, color="#dddddd", lw=0.6)
+    axes[-1, 0].set_xlabel(_axis_label(axis, unit))
+    fig.suptitle(f"sweep of {axis}", fontsize=10)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def plot_grid(rows: Sequence[dict], x_axis: str, y_axis: str, metric: str, path: Path,
+              x_unit: str = "", y_unit: str = "") -> Path:
+    """Heat map with contours of one metric over two swept axes."""
+    xs, ys, z = grid_data(rows, x_axis, y_axis, metric)
+    label, scale = LINE_METRICS.get(metric, (metric, 1.0))
+    fig, ax = plt.subplots(figsize=(6.4, 4.8))
+    lim = _value_limits(z * scale, metric)
+    vmin, vmax = lim if lim is not None else (None, None)
+    mesh = ax.pcolormesh(xs, ys, z * scale, shading="nearest", cmap="viridis", vmin=vmin, vmax=vmax)
+    if lim is None and len(xs) > 1 and len(ys) > 1 and np.isfinite(z).sum() >= 4:
+        cs = ax.contour(xs, ys, z * scale, colors="white", linewidths=0.7)
+        ax.clabel(cs, fontsize=7)
+    fig.colorbar(mesh, ax=ax, label=label)
+    ax.set_xlabel(_axis_label(x_axis, x_unit))
+    ax.set_ylabel(_axis_label(y_axis, y_unit))
+    ax.set_title(f"{label} over {x_axis} and {y_axis}", fontsize=10)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def plot_histograms(rows: Sequence[dict], specs: Sequence[Spec], path: Path,
+                    metrics: Sequence[str] | None = None) -> Path:
+    """Histogram of each spec'd metric (or the default metrics) with its limit; the yield in the title."""
+    names = list(dict.fromkeys([s.metric for s in specs] or list(metrics or ("drain_efficiency", "pout_w"))))
+    fig, axes = plt.subplots(len(names), 1, figsize=(6.4, 2.2 * len(names) + 0.8), squeeze=False)
+    for ax, metric in zip(axes[:, 0], names):
+        v = sample_data(rows, metric)
+        label, scale = LINE_METRICS.get(metric, (metric, 1.0))
+        if v.size:
+            ax.hist(v * scale, bins=max(5, min(40, int(np.sqrt(v.size)) + 1)), color="#7a9cc6", edgecolor="#1f4e79")
+        for s in specs:
+            if s.metric == metric:
+                ax.axvline(s.limit * scale, color="#b22222", lw=1.5, ls="--")
+                ax.text(s.limit * scale, ax.get_ylim()[1] * 0.9, f" {s.op} {s.limit * scale:g}", color="#b22222", fontsize=8)
+        ax.set_xlabel(label, fontsize=8)
+        ax.set_ylabel("points", fontsize=8)
+    n = len(rows)
+    if specs and n:
+        k = sum(point_passes(r["status"], r["metrics"], specs) for r in rows)
+        lo, hi = yield_interval(k, n)
+        title = f"yield {100 * k / n:.1f}% ({k}/{n}), 95% interval {100 * lo:.1f}..{100 * hi:.1f}% (Clopper-Pearson)"
+    else:
+        title = f"{n} points"
+    fig.suptitle(title, fontsize=9)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path) -> Path:
+    """Efficiency and output power at each load, on a reflection-coefficient plane with a Smith-like grid."""
+    data = circle_data(rows, rl_ohm)
+    fig, axes = plt.subplots(1, 2, figsize=(10, 4.8))
+    t = np.linspace(0, 2 * np.pi, 361)
+    for ax, key in zip(axes, ("drain_efficiency", "pout_w")):
+        ax.plot(np.cos(t), np.sin(t), color="#888888", lw=0.8)
+        for r in (0.2, 0.5, 1.0, 2.0, 5.0):  # constant-resistance circles, centre r/(1+r), radius 1/(1+r)
+            ax.plot(r / (1 + r) + np.cos(t) / (1 + r), np.sin(t) / (1 + r), color="#dddddd", lw=0.6)
+        for x in (0.5, 1.0, 2.0):  # constant-reactance arcs, centre (1, 1/x), radius 1/x, inside |G|<=1
+            for sgn in (1, -1):
+                c = 1 + 1j * sgn / x
+                arc = c + np.exp(1j * t) / x
+                arc[np.abs(arc) > 1.0001] = np.nan
+                ax.plot(arc.real, arc.imag, "-", color="#dddddd", lw=0.6)
+        ax.axhline(0, color="#dddddd", lw=0.6)
+        label, scale = LINE_METRICS[key]
+        g = data["gamma"]
+        sc = ax.scatter(g.real, g.imag, c=data[key] * scale, cmap="viridis", s=40, edgecolors="k", linewidths=0.4)
+        fig.colorbar(sc, ax=ax, label=label, shrink=0.8)
+        ax.set_aspect("equal")
+        ax.set_xlim(-1.05, 1.05)
+        ax.set_ylim(-1.05, 1.05)
+        ax.set_xlabel("Re Γ")
+        ax.set_ylabel("Im Γ")
+        ax.set_title(label, fontsize=9)
+    fig.suptitle(f"load circle around {rl_ohm:g} ohm", fontsize=10)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def plot_sweep(db, outdir, specs: Sequence[Spec] = ()) -> dict:
+    """All plots that suit the stored sweep; returns {kind: path}.
+
+    One numeric axis: metrics against it. Two: a heat map per line metric.
+    A load circle: the reflection-coefficient plot. Monte Carlo (or any specs):
+    the histograms.
+    """
+    import tomllib
+
+    from .store import SweepStore
+
+    outdir = Path(outdir)
+    with SweepStore(db) as st:
+        info = st.sweep_info()
+        rows = list(st.rows(info["id"]))
+    if not rows:
+        return {}
+    made: dict = {}
+    spec = info["spec"]
+    units = {v["name"]: v.get("unit", "") for v in spec["variations"]}
+    numeric = [v["name"] for v in spec["variations"]
+               if all(isinstance(a, (int, float)) for a in v["axis"]) and len(v["axis"]) > 1 and v["name"] != "load_phase_deg"]
+    if "load_phase_deg" in units:
+        from netgen.design import parse_quantity
+
+        doc = tomllib.loads(info["design_toml"])
+        rl = parse_quantity(doc.get("design", {}).get("load", "50 ohm"), "ohm", "design.load")
+        made["load_circle"] = plot_load_circle(rows, rl, outdir / "load_circle.png")
+        if len(units) == 1:
+            made["line_load_phase_deg"] = plot_line(rows, "load_phase_deg", outdir / "sweep_load_phase.png", "deg")
+    if len(numeric) == 1 and not spec["samples"] and len(units) == 1:
+        made[f"line_{numeric[0]}"] = plot_line(rows, numeric[0], outdir / f"sweep_{numeric[0].replace('.', '_')}.png",
+                                               units[numeric[0]])
+    if len(numeric) == 2 and len(units) == 2 and not spec["samples"]:
+        a, b = numeric
+        for metric in ("drain_efficiency", "pout_w"):
+            made[f"grid_{metric}"] = plot_grid(rows, a, b, metric, outdir / f"grid_{metric}.png", units[a], units[b])
+    if spec["samples"] or specs:
+        made["histograms"] = plot_histograms(rows, specs, outdir / "histograms.png")
+    return made

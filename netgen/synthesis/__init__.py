@@ -1,0 +1,48 @@
+"""Synthesis: a Design becomes a sized network, with the published formula behind every value.
+
+Takes a :class:`netgen.design.Design`; gives a :class:`netgen.design.SizedDesign` (every component's
+value and how it was derived), the ideal efficiency bound of its class and the network's drain
+impedance Z(f) computed in numpy (ABCD matrices), independent of any simulator.
+
+Modules: ``builder`` (the component builder and shared sizing formulas: Ropt, L-section,
+quarter-wave), ``sizers`` (one sizing function per topology),
+``topologies`` (the registry: name -> template, sizing, bound), ``theory`` (ideal bounds and
+closed forms), ``network`` (the numpy network model), ``sizing`` (``size``: the entry point,
+overrides, the sized TOML file).
+"""
+
+from importlib import import_module
+
+#: public name -> module of this package that defines it (loaded on first use, so importing
+#: the package costs nothing and pulls in no heavy dependency)
+_EXPORTS = {
+    "TOPOLOGY_REGISTRY": "topologies",
+    "bound_for": "theory",
+    "element_name": "builder",
+    "get_topology": "topologies",
+    "line_plan": "network",
+    "loss_ohm": "network",
+    "resolve_topology": "topologies",
+    "size": "sizing",
+    "sized_toml_text": "sizing",
+    "tail_plan": "network",
+    "topology_names": "topologies",
+    "write_sized_toml": "sizing",
+    "z_drain": "network",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return list(__all__)

@@ -1,0 +1,291 @@
+"""The passive output network in numpy: drain impedance Z(f) and the drain->load ABCD matrix.
+
+Independent of SPICE: each topology is described here as a cascade of series impedances,
+shunt admittances and transmission lines from the drain to the load (``RLOAD``), built the
+same way the templates build the netlist (loss resistors, the segmented lossy line, the
+feed choke as a shunt to the supply, which is an AC short). The device and its output
+capacitance are excluded (docs/netlist_conventions.md, ac mode).
+
+ABCD matrices of series/shunt elements and lines: Pozar, "Microwave Engineering", table of
+ABCD parameters of useful two-port circuits.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Callable
+
+import numpy as np
+
+from netgen.design import SizedDesign
+
+__all__ = [
+    "z_drain",
+    "abcd_drain_to_load",
+    "z_port_matrix",
+    "loss_ohm",
+    "line_plan",
+    "tail_plan",
+    "LINE_SEGMENTS_LOSSY",
+    "cascade",
+    "abcd_tline",
+    "z_in",
+]
+
+#: number of lossless T segments a lossy line is split into (RLOSS resistors between them).
+#: Measured on sims/demo.toml, 100 cycles in ngspice 39: 8 segments 10.9 s, 4 -> 3.9 s,
+#: 3 -> 2.6 s, lossless 1.0 s (every segment adds breakpoints). 3 keeps the loss spread
+#: over the line (a single middle resistor would sit at a current null at 2 f0).
+LINE_SEGMENTS_LOSSY = 3
+
+
+# ---------------------------------------------------------------- shared with render
+
+def loss_ohm(sized: SizedDesign, name: str) -> float:
+    """Series loss resistance of component ``name``, ohm.
+
+    Inductor: ``omega0 L / Q`` with Q = network.inductor_q (unloaded Q at f0; inf -> 0).
+    Capacitor: network.capacitor_esr. Components with ``lossy=False`` (the feed choke,
+    whose loss is a DC resistance, not omega0 L / Q) and lines: 0.
+    """
+    comp = sized.components[name]
+    if not comp.lossy:
+        return 0.0
+    net = sized.design.network
+    if comp.kind == "L":
+        q = net.inductor_q
+        return 0.0 if math.isinf(q) else 2 * math.pi * sized.design.f0_hz * comp.value / q
+    if comp.kind == "C":
+        return net.capacitor_esr_ohm
+    return 0.0
+
+
+def line_plan(sized: SizedDesign, base: str) -> dict:
+    """How line ``base`` is built: ``{z0, td_seg, k, r_seg, r_total}``.
+
+    A lossy line (network.line_loss > 0 dB) is k = 3 lossless segments of TD/k with k-1
+    equal series resistors between them. A series R between matched Z0 lines passes
+    |S21| = 1/(1 + R/(2 Z0)) (Pozar, ABCD -> S conversion), so each resistor is
+    R = 2 Z0 (10^(dB/(20 (k-1))) - 1) and the matched line loses line_loss dB at f0
+    (to within the small mismatch between the lumps; for low loss this is the distributed
+    alpha = R'/(2 Z0) of Pozar, lossy transmission lines).
+    """
+    z0 = sized.value(f"{base}_z0")
+    td = sized.value(f"{base}_td")
+    db = sized.design.network.line_loss_db
+    if db <= 0:
+        return {"z0": z0, "td_seg": td, "k": 1, "r_seg": 0.0, "r_total": 0.0}
+    k = LINE_SEGMENTS_LOSSY
+    r_seg = 2.0 * z0 * (10 ** (db / (20.0 * (k - 1))) - 1.0)
+    return {"z0": z0, "td_seg": td / k, "k": k, "r_seg": r_seg, "r_total": r_seg * (k - 1)}
+
+
+def tail_plan(sized: SizedDesign) -> list[tuple[str, str]]:
+    """The elements between the topology's own part and RLOAD: match section, then load reactance.
+
+    Returns ``[(component_name, "series" | "shunt"), ...]`` in circuit order.
+    """
+    out = []
+    for name in sized.components:
+        if name.startswith("match_series"):
+            out.append((name, "series"))
+        elif name.startswith("match_shunt"):
+            out.append((name, "shunt"))
+    for name in ("loadx_l", "loadx_c"):
+        if name in sized.components:
+            out.append((name, "series"))
+    return out
+
+
+# ---------------------------------------------------------------- element impedances
+
+def _z_elem(sized: SizedDesign, name: str, w: np.ndarray) -> np.ndarray:
+    comp = sized.components[name]
+    r = loss_ohm(sized, name)
+    if comp.kind == "L":
+        return 1j * w * comp.value + r
+    if comp.kind == "C":
+        return 1.0 / (1j * w * comp.value) + r
+    raise ValueError(f"{name}: not an L or C")
+
+
+def _abcd_series(z: np.ndarray) -> np.ndarray:
+    m = np.zeros(z.shape + (2, 2), dtype=complex)
+    m[..., 0, 0] = 1
+    m[..., 0, 1] = z
+    m[..., 1, 1] = 1
+    return m
+
+
+def _abcd_shunt(y: np.ndarray) -> np.ndarray:
+    m = np.zeros(y.shape + (2, 2), dtype=complex)
+    m[..., 0, 0] = 1
+    m[..., 1, 0] = y
+    m[..., 1, 1] = 1
+    return m
+
+
+def abcd_tline(z0: float, td: float, w: np.ndarray) -> np.ndarray:
+    """ABCD of a lossless line of impedance ``z0`` (ohm) and delay ``td`` (s) at ``w`` (rad/s).
+
+    ``[[cos bl, j Z0 sin bl], [j sin bl / Z0, cos bl]]`` with ``bl = w td`` (Pozar).
+    """
+    bl = w * td
+    m = np.zeros(w.shape + (2, 2), dtype=complex)
+    m[..., 0, 0] = np.cos(bl)
+    m[..., 0, 1] = 1j * z0 * np.sin(bl)
+    m[..., 1, 0] = 1j * np.sin(bl) / z0
+    m[..., 1, 1] = np.cos(bl)
+    return m
+
+
+def _abcd_line(sized: SizedDesign, base: str, w: np.ndarray) -> np.ndarray:
+    plan = line_plan(sized, base)
+    seg = abcd_tline(plan["z0"], plan["td_seg"], w)
+    m = seg
+    for _ in range(plan["k"] - 1):
+        m = m @ _abcd_series(np.full(w.shape, plan["r_seg"], dtype=complex)) @ seg
+    return m
+
+
+def cascade(mats: list[np.ndarray]) -> np.ndarray:
+    """Product of ABCD matrices in order (first = drain side)."""
+    out = mats[0]
+    for m in mats[1:]:
+        out = out @ m
+    return out
+
+
+def z_in(abcd: np.ndarray, zl: complex | np.ndarray) -> np.ndarray:
+    """Input impedance of a two-port terminated in ``zl``: (A ZL + B)/(C ZL + D)."""
+    a, b, c, d = abcd[..., 0, 0], abcd[..., 0, 1], abcd[..., 1, 0], abcd[..., 1, 1]
+    return (a * zl + b) / (c * zl + d)
+
+
+# ---------------------------------------------------------------- per topology
+
+def _parallel(sized, names, w):
+    """Admittance of components in parallel, S.
+
+    A lossless tank exactly at resonance sums to zero; the result is floored at 1e-15 of the
+    branch admittances (an open to 15 digits) so that a series tank stays a finite ABCD entry.
+    """
+    y = np.zeros(w.shape, dtype=complex)
+    scale = np.zeros(w.shape)
+    for n in names:
+        yi = 1.0 / _z_elem(sized, n, w)
+        y = y + yi
+        scale = scale + np.abs(yi)
+    floor = 1e-15 * scale
+    return np.where(np.abs(y) < floor, floor, y)
+
+
+def _feed(sized, w):
+    return _abcd_shunt(1.0 / _z_elem(sized, "feed_l", w))
+
+
+def _series_sum(sized, names, w):
+    z = np.zeros(w.shape, dtype=complex)
+    for n in names:
+        z = z + _z_elem(sized, n, w)
+    return _abcd_series(z)
+
+
+def _tail(sized, w) -> list[np.ndarray]:
+    mats = []
+    for name, how in tail_plan(sized):
+        z = _z_elem(sized, name, w)
+        mats.append(_abcd_series(z) if how == "series" else _abcd_shunt(1.0 / z))
+    return mats
+
+
+def _chain_class_f_line(s, w):
+    return [_feed(s, w), _series_sum(s, ["block_c"], w), _abcd_line(s, "line", w),
+            _abcd_shunt(_parallel(s, ["tank_l", "tank_c"], w))] + _tail(s, w)
+
+
+def _chain_class_f_feed(s, w):
+    z_end = 1.0 / _parallel(s, ["bypass_c", "feed_l"], w)
+    z_feed = z_in(_abcd_line(s, "feedline", w), z_end)
+    return [_abcd_shunt(1.0 / z_feed), _series_sum(s, ["block_c"], w),
+            _series_sum(s, ["res_l", "res_c"], w)] + _tail(s, w)
+
+
+def _chain_class_f_lumped(s, w):
+    mats = [_feed(s, w), _series_sum(s, ["block_c"], w)]
+    for k in range(1, s.design.network.harmonics + 1):
+        n = 2 * k + 1
+        mats.append(_abcd_series(1.0 / _parallel(s, [f"res{n}_l", f"res{n}_c"], w)))
+    mats.append(_abcd_shunt(_parallel(s, ["tank_l", "tank_c"], w)))
+    return mats + _tail(s, w)
+
+
+def _chain_inverse_f_line(s, w):
+    return [_feed(s, w), _series_sum(s, ["block_c"], w), _abcd_line(s, "line", w),
+            _series_sum(s, ["res_l", "res_c"], w)] + _tail(s, w)
+
+
+def _chain_class_e(s, w):
+    return [_feed(s, w), _abcd_shunt(1.0 / _z_elem(s, "shunt_c", w)),
+            _series_sum(s, ["series_c", "series_l", "excess_l"], w)] + _tail(s, w)
+
+
+def _chain_class_b_tuned(s, w):
+    return [_feed(s, w), _series_sum(s, ["block_c"], w),
+            _abcd_shunt(_parallel(s, ["tank_l", "tank_c"], w))] + _tail(s, w)
+
+
+_CHAINS: dict[str, Callable] = {
+    "class_f_line": _chain_class_f_line,
+    "class_f_feed": _chain_class_f_feed,
+    "class_f_lumped": _chain_class_f_lumped,
+    "inverse_f_line": _chain_inverse_f_line,
+    "class_e": _chain_class_e,
+    "class_b_tuned": _chain_class_b_tuned,
+}
+
+
+def abcd_drain_to_load(sized: SizedDesign, f_hz) -> np.ndarray:
+    """ABCD matrix (shape ``(N, 2, 2)``) of the two-port from the drain to the top of RLOAD.
+
+    The supply is an AC short (the feed choke is a shunt to ground); RLOAD itself is not
+    included. Lossy elements carry their RLOSS resistance exactly as rendered.
+    """
+    from .topologies import resolve_topology
+
+    w = 2 * math.pi * np.atleast_1d(np.asarray(f_hz, dtype=float))
+    name = resolve_topology(sized.design).name
+    return cascade(_CHAINS[name](sized, w))
+
+
+def z_drain(sized: SizedDesign, f_hz) -> np.ndarray:
+    """Impedance the passive network presents at the drain, ohm (complex ndarray).
+
+    Parameters
+    ----------
+    sized : SizedDesign
+    f_hz : array_like
+        Frequencies, Hz.
+
+    Notes
+    -----
+    ``Zin = (A RL + B)/(C RL + D)`` of the drain->load ABCD matrix terminated in RL
+    (Pozar, "Microwave Engineering", ABCD parameters).
+    """
+    return z_in(abcd_drain_to_load(sized, f_hz), sized.design.load_ohm)
+
+
+def z_port_matrix(sized: SizedDesign, f_hz) -> np.ndarray:
+    """Z matrix (shape ``(N, 2, 2)``, ohm) of the drain->load two-port (port 2 at RLOAD's top).
+
+    ``Z11 = A/C, Z12 = (AD - BC)/C, Z21 = 1/C, Z22 = D/C`` (Pozar, conversions between
+    two-port parameters). For a Touchstone export, convert to S with scikit-rf.
+    """
+    m = abcd_drain_to_load(sized, f_hz)
+    a, b, c, d = m[..., 0, 0], m[..., 0, 1], m[..., 1, 0], m[..., 1, 1]
+    z = np.empty_like(m)
+    z[..., 0, 0] = a / c
+    z[..., 0, 1] = (a * d - b * c) / c
+    z[..., 1, 0] = 1.0 / c
+    z[..., 1, 1] = d / c
+    return z
