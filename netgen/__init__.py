@@ -1,9 +1,10 @@
 """netgen: size, render and simulate RF power-amplifier output networks.
 
-Pipeline (one module per stage): ``design`` (TOML -> Design) -> ``sizing``
-(Design -> SizedDesign) -> ``render`` (SizedDesign -> netlist text) ->
-``steady`` / ``engine`` (netlist -> settled Waveforms) -> ``analysis``
-(Waveforms -> metrics dict) -> ``plots`` / ``report``.
+The pipeline, one sub-package per stage (DEVELOPERS.md has the map): ``design`` (TOML ->
+Design) -> ``synthesis`` (Design -> SizedDesign) -> ``netlist`` (SizedDesign -> netlist text) ->
+``simulator`` and ``periodic`` (netlist -> settled Waveforms) -> ``results`` (Waveforms ->
+metrics, plots, report); ``pipeline`` runs one design through all of it; ``studies`` and
+``handoff`` run many; ``cli`` is the command line.
 """
 
 __version__ = "0.1.0"

@@ -2,11 +2,11 @@
 traceback, no output folder.
 
 Protections covered (a test here fails if its protection is removed):
-* schema validation in netgen/design.py (unknown keys with the closest valid one, units,
+* schema validation in netgen/design/schema.py (unknown keys with the closest valid one, units,
   ranges, types, required keys, file checks: missing, folder, FIFO, size limit, UTF-8, empty),
-* quantity parsing in netgen/quantities.py (bare numbers, NaN/inf, wrong unit),
-* ``[network.values]`` checks in netgen/sizing.py,
-* the CLI's error mapping in netgen/cli.py (NetgenError -> one line on stderr, exit code 2),
+* quantity parsing in netgen/design/quantities.py (bare numbers, NaN/inf, wrong unit),
+* ``[network.values]`` checks in netgen/synthesis/sizers.py,
+* the CLI's error mapping in netgen/cli/root.py (NetgenError -> one line on stderr, exit code 2),
 * atomic outputs (netgen/fileio.py, pipeline.atomic_folder): a failed command leaves no folder.
 
 The corpus is tests/data/bad/*.toml; the first line of each file says what the message must

@@ -16,6 +16,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
+from netgen.handoff import diff as design_diff
 from netgen.handoff import regress
 from netgen.errors import DesignError
 
@@ -226,11 +227,11 @@ def test_all_sims_designs_pass_check():
 def test_diff_no_run_lists_component_changes(tmp_path):
     # sizing is pure Python (no simulator): the overridden line Z0 shows +5 %, the rest 0 %
     folder, value = _design_folder(tmp_path)
-    diff = regress.diff_designs(str(folder / "ref.toml"), str(folder / "bumped.toml"), run=False)
+    diff = design_diff.diff_designs(str(folder / "ref.toml"), str(folder / "bumped.toml"), run=False)
     rows = {c.name: c for c in diff.components}
     assert rows["line_z0"].change_pct == pytest.approx(5.0, abs=1e-3)
     assert rows["line_z0"].b == pytest.approx(float(value))
     others = [c for c in diff.components if c.name != "line_z0"]
     assert others and all(abs(c.change_pct or 0.0) < 1e-9 for c in others)
-    text = regress.format_diff(diff, changed_only=True)
+    text = design_diff.format_diff(diff, changed_only=True)
     assert "line_z0" in text and "+5.00%" in text

@@ -25,10 +25,8 @@ from netgen.design.schema import design_from_dict
 from netgen.errors import DesignError, SimulationError, SizingError
 from netgen.design.quantities import parse_quantity
 from netgen.studies.store import STORE_NAME, SweepStore
-from netgen.studies.plan import (
-    load_circle, make_plan, metric_value, parse_spec, parse_tolerance, parse_vary, parse_vswr,
-    point_passes, summarize, yield_interval,
-)
+from netgen.studies.grammar import load_circle, metric_value, parse_spec
+from netgen.studies.plan import make_plan, parse_tolerance, parse_vary, parse_vswr, point_passes, summarize, yield_interval
 from netgen.studies.execute import run_sweep
 
 TESTS = Path(__file__).resolve().parent

@@ -4,7 +4,7 @@ Takes design files (and their ``*.expect.json`` goldens); gives check results, d
 hand-off packs (portable and ngspice netlists, Touchstone, expected metrics) for colleagues on
 other simulators.
 
-Modules: ``regress`` (goldens, check, diff), ``export`` (packs), ``pytest_plugin``
+Modules: ``regress`` (goldens and check), ``diff`` (two designs compared), ``export`` (packs), ``pytest_plugin``
 (``--netgen-designs=DIR`` runs a folder of designs as tests).
 """
 
@@ -16,9 +16,9 @@ _EXPORTS = {
     "GOLDEN_SUFFIX": "regress",
     "accept": "regress",
     "check_designs": "regress",
-    "diff_designs": "regress",
+    "diff_designs": "diff",
     "export_pack": "export",
-    "format_diff": "regress",
+    "format_diff": "diff",
     "format_result": "regress",
     "format_summary": "regress",
 }

@@ -1,12 +1,11 @@
-"""Template regression against golden metrics, and design-to-design comparison.
+"""Template regression against golden metrics.
 
 A golden file ``<design>.expect.json`` sits beside ``<design>.toml``. It holds
 the metrics a known-good run produced, a tolerance per metric, the netgen
 version and the sized-design digest it came from (format in
 docs/regression.md). :func:`check_designs` re-runs designs (in a process pool)
 and compares; :func:`accept` rewrites goldens after an intended change.
-:func:`diff_designs` compares two designs component by component and metric by
-metric.
+Comparing two designs (``netgen diff``) is :mod:`netgen.handoff.diff`.
 
 Library code: nothing here prints or exits; the CLI (netgen.cli.handoff) and the
 pytest plugin (netgen.handoff.pytest_plugin) present the results.
@@ -17,13 +16,10 @@ from __future__ import annotations
 import json
 import math
 import multiprocessing
-import subprocess
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable
-
-import tomllib
 
 from netgen import __version__
 from netgen.errors import DesignError, NetgenError
@@ -48,11 +44,7 @@ __all__ = [
     "accept",
     "format_result",
     "format_summary",
-    "ComponentRow",
-    "DesignDiff",
-    "load_design_spec",
-    "diff_designs",
-    "format_diff",
+    "format_number",
 ]
 
 GOLDEN_SUFFIX = ".expect.json"
@@ -464,7 +456,7 @@ def accept(results: Iterable[CheckResult]) -> list[str]:
     return lines
 
 
-def _fmt(x: float | None) -> str:
+def format_number(x: float | None) -> str:
     return "-" if x is None else f"{x:.6g}"
 
 
@@ -483,7 +475,7 @@ def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
     rows = [row for row in r.rows if not (only_failures and row.ok)]
     if rows:
         table = [("metric", "golden", "new", "deviation", "tolerance", "result")]
-        table += [(row.metric, _fmt(row.golden), _fmt(row.new), row.deviation, row.tolerance.describe(),
+        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation, row.tolerance.describe(),
                    "ok" if row.ok else "FAIL") for row in rows]
         widths = [max(len(t[i]) for t in table) for i in range(6)]
         for t in table:
@@ -498,129 +490,3 @@ def format_summary(results: list[CheckResult]) -> str:
     if failed:
         text += "; failed: " + ", ".join(failed)
     return text
-
-
-# ---------------------------------------------------------------- design diff
-
-
-@dataclass(frozen=True)
-class ComponentRow:
-    """One component in either design: values in SI (None when absent)."""
-
-    name: str
-    kind: str
-    unit: str
-    a: float | None
-    b: float | None
-
-    @property
-    def change_pct(self) -> float | None:
-        if self.a is None or self.b is None or self.a == 0:
-            return None
-        return 100.0 * (self.b - self.a) / abs(self.a)
-
-
-@dataclass(frozen=True)
-class DesignDiff:
-    """Two designs compared: sized components, Ropt, and (optionally) metrics."""
-
-    a_label: str
-    b_label: str
-    ropt_ohm: tuple[float, float]
-    components: tuple[ComponentRow, ...]
-    metrics: tuple[tuple[str, float | None, float | None], ...] = ()
-    settled: tuple[bool, bool] | None = None
-
-
-def load_design_spec(spec: str):
-    """Load a design from a path or from ``git:REV:path`` (that file as of revision REV).
-
-    Raises
-    ------
-    DesignError
-        When git cannot produce the file (unknown revision, path not tracked).
-    """
-    from netgen.design import design_from_dict, load_design
-
-    if not spec.startswith("git:"):
-        return load_design(spec)
-    try:
-        _, rev, path = spec.split(":", 2)
-    except ValueError:
-        raise DesignError(f"{spec}: write a revision as git:REV:path, e.g. git:HEAD~1:sims/demo.toml.") from None
-    p = Path(path)
-    folder = p.parent if str(p.parent) else Path(".")
-    try:
-        proc = subprocess.run(["git", "-C", str(folder), "show", f"{rev}:./{p.name}"],
-                              capture_output=True, text=True, check=False)
-    except FileNotFoundError:
-        raise DesignError(f"{spec}: git is not installed; compare two files instead.") from None
-    if proc.returncode != 0:
-        msg = proc.stderr.strip().splitlines()[-1] if proc.stderr.strip() else "git failed"
-        raise DesignError(f"{spec}: git cannot show that file ({msg}); check the revision and path.")
-    try:
-        doc = tomllib.loads(proc.stdout)
-    except tomllib.TOMLDecodeError as exc:
-        raise DesignError(f"{spec}: TOML syntax error: {exc}.") from None
-    return design_from_dict(doc, source=p.resolve(), where=spec)
-
-
-def diff_designs(a_spec: str, b_spec: str, *, run: bool = True) -> DesignDiff:
-    """Compare two designs: sized component values (% change) and, with ``run``, metrics."""
-    from netgen.synthesis import size
-
-    da, db = load_design_spec(a_spec), load_design_spec(b_spec)
-    sa, sb = size(da), size(db)
-    names = list(sa.components) + [n for n in sb.components if n not in sa.components]
-    rows = []
-    for n in names:
-        ca, cb = sa.components.get(n), sb.components.get(n)
-        c = ca or cb
-        rows.append(ComponentRow(n, c.kind, c.unit, ca.value if ca else None, cb.value if cb else None))
-    metrics: tuple = ()
-    settled = None
-    if run:
-        from netgen.pipeline import run_design
-
-        ma = run_design(da, None, plots=False).metrics
-        mb = run_design(db, None, plots=False).metrics
-        va, vb = select_metrics(ma), select_metrics(mb)
-        keys = list(va) + [k for k in vb if k not in va]
-        metrics = tuple((k, va.get(k), vb.get(k)) for k in keys)
-        settled = (bool(ma.get("settled")), bool(mb.get("settled")))
-    return DesignDiff(a_spec, b_spec, (sa.ropt_ohm, sb.ropt_ohm), tuple(rows), metrics, settled)
-
-
-def format_diff(diff: DesignDiff, *, changed_only: bool = False) -> str:
-    """Text tables of a :class:`DesignDiff` (components, then metrics)."""
-    lines = [f"a: {diff.a_label}", f"b: {diff.b_label}", ""]
-    table = [("component", "unit", "a", "b", "change")]
-    ra, rb = diff.ropt_ohm
-    table.append(("Ropt", "ohm", f"{ra:.6g}", f"{rb:.6g}", f"{100 * (rb - ra) / ra:+.2f}%" if ra else "-"))
-    for c in diff.components:
-        pct = c.change_pct
-        if changed_only and pct is not None and abs(pct) < 1e-9:
-            continue
-        change = "only in b" if c.a is None else "only in a" if c.b is None else f"{pct:+.2f}%" if pct is not None else "-"
-        table.append((c.name, c.unit, _fmt(c.a), _fmt(c.b), change))
-    lines += _columns(table)
-    if diff.metrics:
-        lines.append("")
-        if diff.settled and not all(diff.settled):
-            lines.append(f"note: settled a={diff.settled[0]} b={diff.settled[1]}; an unsettled run's metrics are not final")
-        mt = [("metric", "a", "b", "change")]
-        for key, a, b in diff.metrics:
-            if a is None or b is None:
-                change = "only in " + ("b" if a is None else "a")
-            elif key.endswith("_dbc") or key == "drain_efficiency":
-                change = f"{b - a:+.4g}" + (" dB" if key.endswith("_dbc") else "")
-            else:
-                change = f"{100 * (b - a) / abs(a):+.2f}%" if a else f"{b - a:+.4g}"
-            mt.append((key, _fmt(a), _fmt(b), change))
-        lines += _columns(mt)
-    return "\n".join(lines)
-
-
-def _columns(table: list[tuple]) -> list[str]:
-    widths = [max(len(t[i]) for t in table) for i in range(len(table[0]))]
-    return ["  ".join(c.ljust(w) for c, w in zip(t, widths)).rstrip() for t in table]

@@ -43,7 +43,6 @@ that are not periodic at f0, behavioural expressions outside a small set of func
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -54,27 +53,21 @@ from netgen.netlist import (
     SourceWaveform,
     Unsupported,
     card_params,
-    device_expression,
     model_cards,
     read_cards,
     source_waveform,
     spice_value,
 )
 
+from .device import LINEAR_KINDS, read_device, solve_device
+
 __all__ = ["Unsupported", "PeriodicState", "estimate", "grid_points"]
 
 #: largest grid of the estimate (grid_points), for a switch and for a nonlinear device
 GRID_MAX = 2048
 GRID_MAX_NONLINEAR = 1024
-#: on-interval samples above which the switch's system is solved as Toeplitz (_solve_on_interval; LU
-#: below, where it is as fast)
-TOEPLITZ_FROM = 128
 #: harmonics of the port impedance kept in PeriodicState.z_port
 PORT_HARMONICS = 50
-#: Newton iterations allowed for a nonlinear device before the estimate is given up
-NEWTON_MAX = 40
-#: relative change of the device current at which Newton's method has converged
-NEWTON_TOL = 1e-10
 
 
 # ---------------------------------------------------------------- the linear network
@@ -188,7 +181,6 @@ class _Net:
         return Y, b
 
 
-_LINEAR_KINDS = "RLCVIEGT"
 
 
 def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set[str]]:
@@ -224,7 +216,7 @@ def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set
     nb = 0
     for c in mine:
         kind = c.name[0]
-        if kind not in _LINEAR_KINDS:
+        if kind not in LINEAR_KINDS:
             raise Unsupported(f"{c.tokens[0]}: element type '{kind}' in the output network")
         if kind in "RLC" and len(c.tokens) < 4:
             raise Unsupported(f"{c.tokens[0]}: no value")
@@ -243,107 +235,6 @@ def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set
             branches[c.name] = nb
             nb += 2
     return _Net(mine, sorted(seen), branches, sources), seen
-
-
-# ---------------------------------------------------------------- the device
-
-@dataclass
-class _Device:
-    """The device law ``i(t_j, v_j)`` (A, drawn from ``dsw``) on the grid, and where it conducts."""
-
-    name: str
-    law: object            # callable (v (m,), idx (m,)) -> i (m,)
-    linear: bool
-    conductance: np.ndarray | None = None   # (M,) for linear devices: i = g v
-    t0_s: float = 0.0      # grid origin (a switch's turn-on instant)
-
-
-def _control(cards: list[Card], node: str, period_s: float) -> SourceWaveform:
-    """The waveform of a control node driven by an independent voltage source from ground."""
-    for c in cards:
-        t = [x.lower() for x in c.tokens]
-        if c.name[0] != "V" or len(t) < 3:
-            continue
-        if t[1] == node and t[2] in GROUND:
-            return source_waveform(c.tokens, period_s)
-        if t[2] == node and t[1] in GROUND:
-            return SourceWaveform("neg", (source_waveform(c.tokens, period_s),))
-    raise Unsupported(f"the device's control node '{node}' is not driven by a voltage source from ground")
-
-
-def _device(cards: list[Card], models: dict, period_s: float, points: int) -> _Device:
-    touching = [c for c in cards if not c.text.startswith(".") and c.name[0] not in _LINEAR_KINDS + "S"
-                and "dsw" in [x.lower() for x in c.tokens[1:3]]]
-    switches = [c for c in cards if c.name[0] == "S" and [x.lower() for x in c.tokens[1:3]] in (["dsw", "0"], ["dsw", "gnd"])]
-    cands = switches + [c for c in touching if c.name[0] == "B"]
-    others = [c for c in touching if c.name[0] != "B"]
-    if others:
-        raise Unsupported(f"{others[0].tokens[0]}: the device is a subcircuit or model netgen does not solve directly")
-    if len(cands) != 1:
-        raise Unsupported("the netlist has no single device element between 'dsw' and ground")
-    dev = cands[0]
-    t = dev.tokens
-    h = period_s / points
-    if dev.name[0] == "S":
-        if len(t) < 6:
-            raise Unsupported(f"{t[0]}: an S switch without a model")
-        kind, pars = models.get(t[5].upper(), ("", {}))
-        if kind != "SW":
-            raise Unsupported(f"{t[0]}: switch model '{t[5]}' is not an SW model")
-        ron, roff = pars.get("RON", 1.0), pars.get("ROFF", 1e12)
-        vt, vh = pars.get("VT", 0.0), pars.get("VH", 0.0)
-        if vh < 0:
-            raise Unsupported(f"{t[0]}: a switch with negative hysteresis (smooth transition)")
-        if t[4].lower() not in GROUND:
-            raise Unsupported(f"{t[0]}: a switch control referred to a node other than ground")
-        ctrl = _control(cards, t[3].lower(), period_s)
-        if ctrl.kind == "neg":
-            raise Unsupported(f"{t[0]}: a switch control source connected from node to ground with reversed polarity")
-        on_at = ctrl.crossings(vt + vh, period_s, rising=True)
-        off_at = ctrl.crossings(vt - vh, period_s, rising=False)
-        if len(on_at) != 1 or len(off_at) != 1:
-            raise Unsupported(f"{t[0]}: the control does not turn the switch on and off once per period")
-        ta = on_at[0]
-        tb = off_at[0] if off_at[0] > ta else off_at[0] + period_s
-        # ngspice starts the switch from its control voltage at t = 0; the periodic state must agree
-        v_start = float(ctrl.value(np.array([0.0]))[0])
-        on_at_start = (0.0 - ta) % period_s < (tb - ta)
-        if not (v_start < vt - vh and not on_at_start or v_start > vt + vh and on_at_start):
-            raise Unsupported(f"{t[0]}: the switch's state at t = 0 is not set by its control voltage")
-        # The trapezoidal rule averages the two ends of a step, so a conductance that changes
-        # between samples acts as if it switched half-way between them: the grid is placed with
-        # the switching instants half-way between samples (t_j = ta + (j + 1/2) h), and each
-        # sample carries the on-fraction of its cell [t_j - h/2, t_j + h/2). On a grid starting at
-        # ta itself the whole periodic state came out shifted by h/2 against ngspice's (0.36
-        # degrees at 500 points per cycle; powers unchanged, the states at t = 0 off by ~0.5 %).
-        start = np.arange(points) * h
-        w = np.clip((tb - ta - start) / h, 0.0, 1.0)
-        g = 1.0 / roff + (1.0 / ron - 1.0 / roff) * w
-        return _Device(t[0], lambda v, idx: g[idx] * v, True, g, ta + 0.5 * h)
-    m = re.match(r"\s*i\s*=\s*(.*)$", " ".join(t[3:]), re.IGNORECASE)
-    if not m or t[2].lower() not in GROUND:
-        raise Unsupported(f"{t[0]}: a B source that is not a current from 'dsw' to ground")
-    f, nodes = device_expression(m.group(1).strip().strip("{}'\""), t[0])
-    grid = np.arange(points) * h
-    values = {"time": grid}
-    for x in nodes - {"dsw", "0", "gnd"}:
-        values[x] = _control(cards, x, period_s).value(grid)
-    values["0"] = values["gnd"] = np.zeros(points)
-
-    def law(v, idx):
-        vals = {k: (a[idx] if isinstance(a, np.ndarray) and a.shape == (points,) else a) for k, a in values.items()}
-        vals["dsw"] = v
-        out = f(vals)
-        return np.broadcast_to(out, np.shape(v)).astype(float)
-
-    idx = np.arange(points)
-    probe = [law(np.full(points, x), idx) for x in (0.0, 1.0, 2.0, 10.0)]
-    if not all(np.all(np.isfinite(p)) for p in probe):
-        raise Unsupported(f"{t[0]}: the device expression is not finite")
-    g = probe[1] - probe[0]
-    linear = bool(np.allclose(probe[0], 0.0, atol=1e-15) and np.allclose(probe[2], 2 * g, rtol=1e-9, atol=1e-15)
-                  and np.allclose(probe[3], 10 * g, rtol=1e-9, atol=1e-15))
-    return _Device(t[0], law, linear, g if linear else None, 0.0)
 
 
 # ---------------------------------------------------------------- the periodic state
@@ -469,10 +360,10 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
     cards = read_cards(netlist)
     models = model_cards(cards)
     M = grid_points(points) if cap else max(int(points) + int(points) % 2, 8)
-    dev = _device(cards, models, period, M)
+    dev = read_device(cards, models, period, M)
     if cap and not dev.linear and M > GRID_MAX_NONLINEAR:
         M = grid_points(points, nonlinear=True)
-        dev = _device(cards, models, period, M)
+        dev = read_device(cards, models, period, M)
     h = period / M
     net, _ = _network(cards, dev.name.upper(), period)
     if "dsw" not in net.index:
@@ -491,7 +382,7 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     x_src, x_draw = X[..., 0], X[..., 1]
-    i_dev = _solve_device(dev, x_src[:, idsw], x_draw[:, idsw], M)
+    i_dev = solve_device(dev, x_src[:, idsw], x_draw[:, idsw], M)
     spec = np.fft.rfft(i_dev)
     x_all = np.fft.irfft(x_src + x_draw * spec[:, None], M, axis=0)  # (M, n)
     if not np.all(np.isfinite(x_all)):
@@ -525,110 +416,3 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
     return PeriodicState(f0_hz=f0_hz, points=M, t0_s=dev.t0_s, series=series, lines=lines,
                          elements=elements, device=dev.name, dc=dc, peaks=peaks,
                          z_port=-x_draw[:PORT_HARMONICS + 1, idsw].copy())
-
-
-def _solve_device(dev: _Device, voc_k: np.ndarray, zdraw_k: np.ndarray, M: int) -> np.ndarray:
-    """Device current on the grid (A): v = voc + zdraw (*) i with i = law(v).
-
-    ``zdraw_k``: the voltage at dsw per unit current drawn (minus the port impedance), per bin.
-    """
-    voc = np.fft.irfft(voc_k, M)
-    kern = np.fft.irfft(zdraw_k, M)  # v = voc + circ(kern) i
-    j = np.arange(M)
-    if dev.linear:
-        g = dev.conductance
-        g0 = float(max(g.min(), 0.0))
-        # fold the constant part g0 into the port: z' = z / (1 + g0 z) (z = -zdraw), voc' likewise
-        z_k = -zdraw_k
-        zf_k = z_k / (1.0 + g0 * z_k)
-        vocf = np.fft.irfft(voc_k / (1.0 + g0 * z_k), M)
-        kf = np.fft.irfft(zf_k, M)
-        act = np.nonzero(g - g0 > 1e-12 * max(g.max(), 1e-30))[0]
-        i_act = np.zeros(M)
-        if act.size:
-            # v_A = vocf_A - C i_A and i_A = dg v_A  ->  (C + diag(1/dg)) i_A = vocf_A
-            i_act[act] = _solve_on_interval(kf, act, 1.0 / (g[act] - g0), vocf[act])
-        v = vocf - _circ(kf, i_act)
-        return g0 * v + i_act
-    # nonlinear: Newton on the voltage at the samples where the device can conduct
-    probe_v = np.abs(voc).max() * np.array([-2.0, -0.5, 0.25, 1.0, 3.0]) + np.array([-1, -0.1, 0.1, 1, 10])
-    can = np.zeros(M, bool)
-    for pv in probe_v:
-        can |= np.abs(dev.law(np.full(M, pv), j)) > 0
-    act = np.nonzero(can)[0]
-    if not act.size:
-        return np.zeros(M)
-    C = -kern[(act[:, None] - act[None, :]) % M]  # v_A = voc_A - C i_A
-    v = voc[act].copy()
-    i = dev.law(v, act)
-    scale = max(float(np.abs(voc).max()), 1.0)
-    for _ in range(NEWTON_MAX):
-        r = v - voc[act] + C @ i
-        dv_probe = 1e-6 * scale
-        di = (dev.law(v + dv_probe, act) - dev.law(v - dv_probe, act)) / (2 * dv_probe)
-        J = np.eye(act.size) + C * di[None, :]
-        try:
-            step = np.linalg.solve(J, -r)
-        except np.linalg.LinAlgError:
-            raise Unsupported("the device equation could not be solved (singular Jacobian)") from None
-        lam, norm0 = 1.0, float(np.linalg.norm(r))
-        while True:
-            v_new = v + lam * step
-            i_new = dev.law(v_new, act)
-            r_new = v_new - voc[act] + C @ i_new
-            if float(np.linalg.norm(r_new)) <= (1 - 0.25 * lam) * norm0 or lam < 1e-4:
-                break
-            lam *= 0.5
-        change = float(np.abs(i_new - i).max()) / max(float(np.abs(i_new).max()), 1e-30)
-        v, i = v_new, i_new
-        if change < NEWTON_TOL and float(np.linalg.norm(r_new)) < 1e-9 * scale * math.sqrt(act.size):
-            break
-    else:
-        raise Unsupported(f"the device equation did not converge in {NEWTON_MAX} Newton steps")
-    out = np.zeros(M)
-    out[act] = i
-    return out
-
-
-def _solve_on_interval(kernel: np.ndarray, act: np.ndarray, r: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-    """Solve (C + diag(r)) x = rhs, C[a, b] = kernel[(act_a - act_b) mod M].
-
-    For one contiguous on-interval with the same r everywhere but the last sample (a switch),
-    C + r0 I is Toeplitz: above ``TOEPLITZ_FROM`` samples, Levinson recursion
-    (scipy.linalg.solve_toeplitz, O(n^2)) with the last sample's difference added by the
-    Sherman-Morrison formula; the residual is checked and a dense LU solve used when it is not
-    small (or the samples are not contiguous, or fewer).
-    """
-    M = len(kernel)
-    n = act.size
-    contiguous = (n > TOEPLITZ_FROM and act[-1] - act[0] == n - 1
-                  and np.allclose(r[:-1], r[0], rtol=1e-12, atol=0.0))
-    if contiguous:
-        from scipy.linalg import solve_toeplitz
-
-        col = kernel[np.arange(n) % M].copy()
-        row = kernel[(-np.arange(n)) % M].copy()
-        col[0] += r[0]
-        row[0] = col[0]
-        e = np.zeros(n)
-        e[-1] = 1.0
-        try:
-            xy = solve_toeplitz((col, row), np.column_stack([rhs, e]))
-            x, y = xy[:, 0], xy[:, 1]
-            delta = r[-1] - r[0]
-            x = x - (delta * x[-1] / (1.0 + delta * y[-1])) * y
-            full = np.zeros(M)
-            full[act] = x
-            residual = _circ(kernel, full)[act] + r * x - rhs  # C x + diag(r) x - rhs, by FFT
-            if np.linalg.norm(residual) <= 1e-9 * max(np.linalg.norm(rhs), 1e-300):
-                return x
-        except (np.linalg.LinAlgError, ValueError, ZeroDivisionError):
-            pass
-    dense = kernel[(act[:, None] - act[None, :]) % M]
-    return np.linalg.solve(dense + np.diag(r), rhs)
-
-
-def _circ(kernel: np.ndarray, x: np.ndarray) -> np.ndarray:
-    """Circular convolution sum_l kernel[(j - l) mod M] x[l]."""
-    M = len(kernel)
-    return np.fft.irfft(np.fft.rfft(kernel) * np.fft.rfft(x), M)

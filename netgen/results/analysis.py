@@ -246,6 +246,42 @@ def _start(start: dict, pdc_w: float, pout_w: float) -> dict:
     return out
 
 
+def _harmonic_table(V: np.ndarray, I: np.ndarray, pload_n: np.ndarray, n_h: int) -> list[dict]:
+    """Rows n = 1..n_h of the metrics' harmonic table (drain V and I, Z_n, load power, dBc)."""
+    z = harmonic_impedance(V, I)
+    pout = float(pload_n[1])
+    table = []
+    for n in range(1, n_h + 1):
+        zn = z[n - 1]
+        table.append({
+            "n": n,
+            "vd_v": _f(abs(V[n])),
+            "vd_deg": _f(math.degrees(np.angle(V[n]))),
+            "id_a": _f(abs(I[n])),
+            "id_deg": _f(math.degrees(np.angle(I[n]))),
+            "z_re_ohm": None if zn is None else _f(zn.real),
+            "z_im_ohm": None if zn is None else _f(zn.imag),
+            "pload_w": _f(pload_n[n]),
+            "pload_dbc": 0.0 if n == 1 and pout > 0 else _db(pload_n[n] / pout if pout > 0 else math.nan),
+        })
+    return table
+
+
+def _loss_budget(wf, design, netlist_text: str, vd: np.ndarray, isw: np.ndarray, load_harmonics_w: float) -> dict:
+    """Every watt drawn from Vdd, by where it goes: the device (conduction, switching), each
+    ``RLOSS_*`` resistor, and the load power outside the fundamental (W)."""
+    dev = design.device
+    losses = device_loss_split(vd, isw, float(design.vdd_v), model=dev.model, ron_ohm=dev.ron_ohm,
+                               roff_ohm=dev.roff_ohm)
+    for name, a, b, r in _loss_elements(netlist_text):
+        va = _node_voltage(wf, a, name)
+        vb = _node_voltage(wf, b, name)
+        key = name[6:] if name.upper().startswith("RLOSS_") else name
+        losses[key] = float(np.mean((va - vb) ** 2) / r)
+    losses["load_harmonics"] = load_harmonics_w  # load power outside the fundamental (n >= 2, DC)
+    return losses
+
+
 def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> dict:
     """Metrics of one settled simulation (the metrics.json contract).
 
@@ -310,31 +346,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     eff = pout / pdc if pdc > 0 else None
     pae = (pout - pin) / pdc if (pin is not None and pdc > 0) else None
 
-    z = harmonic_impedance(V, I)
-    table = []
-    for n in range(1, n_h + 1):
-        zn = z[n - 1]
-        table.append({
-            "n": n,
-            "vd_v": _f(abs(V[n])),
-            "vd_deg": _f(math.degrees(np.angle(V[n]))),
-            "id_a": _f(abs(I[n])),
-            "id_deg": _f(math.degrees(np.angle(I[n]))),
-            "z_re_ohm": None if zn is None else _f(zn.real),
-            "z_im_ohm": None if zn is None else _f(zn.imag),
-            "pload_w": _f(pload_n[n]),
-            "pload_dbc": 0.0 if n == 1 and pout > 0 else _db(pload_n[n] / pout if pout > 0 else math.nan),
-        })
+    table = _harmonic_table(V, I, pload_n, n_h)
 
-    # ----- loss budget: every watt drawn from Vdd, by where it goes
-    dev = design.device
-    losses = device_loss_split(vd, isw, vdd, model=dev.model, ron_ohm=dev.ron_ohm, roff_ohm=dev.roff_ohm)
-    for name, a, b, r in _loss_elements(netlist_text):
-        va = _node_voltage(wf, a, name)
-        vb = _node_voltage(wf, b, name)
-        key = name[6:] if name.upper().startswith("RLOSS_") else name
-        losses[key] = float(np.mean((va - vb) ** 2) / r)
-    losses["load_harmonics"] = pload_total - pout  # load power outside the fundamental (n >= 2, DC)
+    losses = _loss_budget(wf, design, netlist_text, vd, isw, pload_total - pout)
     balance = (pdc - pout - sum(losses.values())) / pdc if pdc > 0 else None
 
     # extremes from the simulator's own time points when steady.py supplied them (the uniform

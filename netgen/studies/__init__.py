@@ -3,7 +3,8 @@
 Takes a design and the variation text; gives a plan of points, runs them (local process pool or
 a Dask cluster), keeps every point in a resumable SQLite store, and draws the study's plots.
 
-Modules: ``plan`` (variation grammar, load circles, Monte Carlo, specs and yield), ``execute``
+Modules: ``grammar`` (variations, load circles, tolerances, specs and yield), ``plan`` (the points of a
+study, Monte Carlo draws, the summary), ``execute``
 (running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures).
 """
 
@@ -16,7 +17,7 @@ _EXPORTS = {
     "SweepStore": "store",
     "export_csv": "store",
     "make_plan": "plan",
-    "parse_spec": "plan",
+    "parse_spec": "grammar",
     "plot_sweep": "plots",
     "run_sweep": "execute",
     "summarize": "plan",

@@ -19,7 +19,8 @@ import numpy as np
 from netgen.design import COMPONENT_UNITS, design_from_dict, set_dotted
 from netgen.errors import DesignError, NetgenError
 
-from .plan import Evaluator, ProgressFn, SweepPlan, _fmt
+from .grammar import format_value
+from .plan import Evaluator, ProgressFn, SweepPlan
 
 __all__ = ["run_point", "run_sweep"]
 
@@ -42,7 +43,7 @@ def _point_design(base_doc: dict, source: Path | None, point: dict, sizer: Calla
             if name not in sized.components:
                 raise DesignError(f"network.values.{name}: this point's design has no component '{name}' to vary.")
             comp = sized.components[name]
-            text = _fmt(comp.value * factor, COMPONENT_UNITS[comp.kind])
+            text = format_value(comp.value * factor, COMPONENT_UNITS[comp.kind])
             applied[name] = text
             doc = set_dotted(doc, f"network.values.{name}", text)
         design = design_from_dict(doc, source=source, where=where)

@@ -19,7 +19,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .plan import Spec, metric_value, point_passes, yield_interval  # noqa: E402
+from .grammar import Spec, metric_value, point_passes, yield_interval  # noqa: E402
 
 __all__ = [
     "LINE_METRICS",
