@@ -136,7 +136,11 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
 
 def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None,
                      ic=None, ac_freqs_hz=None, idc_a=None) -> dict:
-    """The variables a template sees (documented in docs/template_context.md)."""
+    """The variables a template sees (documented in docs/template_context.md).
+
+    Length: one dict literal, entry by entry the documented template context
+    (docs/template_context.md).
+    """
     d = sized.design
     dev = d.device
     period = 1.0 / d.f0_hz

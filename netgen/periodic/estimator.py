@@ -92,7 +92,11 @@ class _Net:
         self.index = {n: i for i, n in enumerate(self.nodes)}
 
     def assemble(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float):
-        """Y (K, n, n) and source vectors (K, n) for the bins with Laplace variable ``s`` (trapezoidal)."""
+        """Y (K, n, n) and source vectors (K, n) for the bins with Laplace variable ``s`` (trapezoidal).
+
+        Length: one modified-nodal-analysis stamp per element kind (R, L, C, V, I, E, G, T),
+        side by side so the stamps can be checked against each other.
+        """
         K, n, nn = len(s), self.size, len(self.nodes)
         Y = np.zeros((K, n, n), complex)
         b = np.zeros((K, n), complex)
@@ -355,6 +359,10 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
     ------
     Unsupported
         Something in the netlist is outside what the direct solution models.
+
+    Length: the method's steps in the order of the module docstring (read the cards, build the
+    network, solve the device, superpose, collect the state); split further they would pass a
+    dozen arrays between functions that have no meaning alone.
     """
     period = 1.0 / f0_hz
     cards = read_cards(netlist)

@@ -130,6 +130,10 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
     when q is negative (ringing) the bound is max(|d1|, |d2|); when q >= 0.95
     (too slow to extrapolate) the run is not settled unless both differences are
     below the noise floor NOISE_FRACTION*tol (or, on the estimated orbit, within the scatter).
+
+    Length: the settle criteria in the order they are applied (powers, extrapolated drift,
+    waveform, harmonic impedances, switching peaks, the estimate as anchor); kept together so
+    the verdict's order can be read top to bottom.
     """
     n = min(len(v) for v in series.values()) if series else 0
     if n < max(min_cycles, 6):

@@ -217,6 +217,10 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     -------
     Waveforms
         Two periods on a uniform grid, ``settled``, ``cycles`` (all attempts), ``history``.
+
+    Length: the run in its order (periodic estimate or DC start, the chunked ngspice run with
+    the judge, the harmonic table of the kept periods, the outcome record); each step is a call,
+    the body is the sequence.
     """
     sim = sim or SimSpec()
     backend = backend or sim.backend

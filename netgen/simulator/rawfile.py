@@ -86,7 +86,11 @@ def _header_line(blob: bytes, pos: int) -> tuple[str, int]:
 
 
 def parse_raw(blob: bytes, label: str = "raw file") -> list[RawPlot]:
-    """Parse raw-file bytes into plots (see the module docstring for the format)."""
+    """Parse raw-file bytes into plots (see the module docstring for the format).
+
+    Length: follows the raw-file layout field by field (header lines, variables, then binary or
+    ASCII values), as ngspice writes it.
+    """
     plots: list[RawPlot] = []
     pos = 0
     n = len(blob)

@@ -120,6 +120,9 @@ def parse_vary(text: str) -> Variation:
     DesignError
         Naming the key for a malformed option, an unknown key, a unit that is
         not the key's unit, or a count below 2.
+
+    Length: one branch per form of the grammar (range, log range, list; numeric and text keys),
+    each with its own one-line error.
     """
     if "=" not in text:
         raise DesignError(f"--vary {text!r}: write PATH=START:STOP:N, PATH=START:STOP:N:log or PATH=V1,V2,...")

@@ -147,6 +147,9 @@ def make_plan(
     into every point (``[network.values]``) -- unless a swept key is itself a sizing
     input (``design.pout``, ``design.ropt``, any ``network.*`` key), which asks for
     a design exploration where each point is sized anew.
+
+    Length: the plan's kinds (grid, load circle, Monte Carlo) and their checks in one place, so
+    a plan is a pure function of its inputs (resumable sweeps rely on that).
     """
     variations = [parse_vary(v) for v in vary]
     base = design_from_dict(base_doc, source=source, where=str(source or "design"))
