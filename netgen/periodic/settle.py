@@ -16,7 +16,7 @@ import numpy as np
 
 from netgen import simulator
 
-from .fourier import fourier_pwl, pwl_mean_square
+from .fourier import _clip_window, fourier_pwl, pwl_mean_product, pwl_mean_square
 
 __all__ = ["judge", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
            "Z_CHANGE_TOL", "Z_SCALE_FRACTION", "Z_CURRENT_FLOOR", "NOISE_FRACTION", "NOISE_SIGMAS",
@@ -78,7 +78,8 @@ def _scatter(x: np.ndarray) -> float:
 
 def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
           min_cycles: int, iwaves: np.ndarray | None = None,
-          anchor: Anchor | None = None, peaks: dict | None = None) -> tuple[bool, str]:
+          anchor: Anchor | None = None, peaks: dict | None = None,
+          pin_w: np.ndarray | None = None) -> tuple[bool, str]:
     """Decide from per-cycle values whether the run has settled.
 
     Parameters
@@ -118,6 +119,13 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         cycles, median 2.66, the smooth waveform 2.09) or only after ~100 cycles
         (class_f_feed.toml: 2.0-2.9 Vdd, then 1.98); the outputs give their range and a warning
         instead (netgen.results.analysis.design_warnings).
+    pin_w : ndarray, optional
+        Each cycle's drive power delivered into the device input, W (driven devices). A run whose
+        last window puts more power into the load than the supply and the drive deliver
+        (mean Pload > mean Pdc + mean Pin) is not settled, whatever the trends: in a periodic state
+        of a passive network energy is conserved (Tellegen's theorem, any circuit-theory
+        textbook), so the surplus is energy stored in the network still leaving it, and the
+        efficiency would read above 100 %.
 
     Returns
     -------
@@ -165,8 +173,16 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         if rel > worst:
             worst_name, worst = name, rel
     if worst >= tol:
-        return False, (f"{worst_name} still changing: predicted remaining change {worst:.2g} "
-                       f"(relative) over windows of {w} cycles, tolerance {tol:g}")
+        return False, _still_changing(worst_name, worst, w, tol)
+    if "pdc_w" in series and "pload_w" in series:
+        supplied = float(np.mean(series["pdc_w"][-w:]))
+        if pin_w is not None and len(pin_w) >= w:
+            supplied += max(float(np.mean(pin_w[-w:])), 0.0)
+        surplus = float(np.mean(series["pload_w"][-w:])) - supplied
+        if surplus > 0.0:
+            return False, (f"the load took {surplus / max(abs(supplied), 1e-30):.2g} more power (relative) than "
+                           f"the supply delivered over the last {w} cycles, so energy stored in the network is "
+                           "still leaving it")
     if waves is not None and len(waves) >= 2 * w:
         # drain waveform judged on its first harmonics (DC..5f0), which do not jitter with
         # the position of the switching edges on the sampling grid
@@ -212,6 +228,20 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
     return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
 
 
+_WHAT = {"pdc_w": "DC power", "pload_w": "load power"}
+
+
+def _still_changing(name: str, worst: float, w: int, tol: float) -> str:
+    """The judge's reason for a power still changing, in words (an infinite prediction means the
+    windows did not decay geometrically: a drift too slow to extrapolate)."""
+    what = _WHAT.get(name, name)
+    if math.isfinite(worst):
+        return (f"{what} still changing: about {worst:.2g} (relative) of change predicted to come, judged over "
+                f"windows of {w} cycles, tolerance {tol:g}")
+    return (f"{what} still changing: successive windows of {w} cycles keep moving one way, too slowly "
+            f"to predict where it ends (tolerance {tol:g})")
+
+
 @dataclass
 class SettleCheck:
     """The ``stop_check`` run inside the engine after every chunk (picklable, keeps state).
@@ -229,6 +259,8 @@ class SettleCheck:
     points: int = 256  # unused since the cycle integrals became exact (fourier_pwl); kept for callers
     pdc_w: list = field(default_factory=list)
     pload_w: list = field(default_factory=list)
+    #: drive power into the device input per cycle, W (driven devices only)
+    pin_w: list = field(default_factory=list)
     idrain_a: list = field(default_factory=list)
     waves: list = field(default_factory=list)
     iwaves: list = field(default_factory=list)
@@ -254,7 +286,7 @@ class SettleCheck:
 
     def _append(self, vecs) -> None:
         names = {"time": "time", "drain": "drain", "load": "load", "supply": "vdd#branch",
-                 "idrain": "vidrain#branch"}
+                 "idrain": "vidrain#branch", "gate": "gate", "igate": "vdrive#branch"}
         names.update({f"x:{v}": v for v in self.extra})
         new = {k: np.asarray(vecs[v], dtype=float) for k, v in names.items() if v in vecs}
         if self._buf is None:
@@ -284,6 +316,9 @@ class SettleCheck:
             self.pdc_w.append(-self.vdd_v * float(c["supply"][0].real))
             self.pload_w.append(pwl_mean_square(tb, buf["load"], t_a, t_b) / self.rload_ohm)
             self.waves.append(c["drain"])
+            if "gate" in buf and "igate" in buf:
+                tg, xg = _clip_window(tb, np.array([buf["gate"], buf["igate"]]), t_a, t_b)
+                self.pin_w.append(-pwl_mean_product(tg, xg[0], xg[1]))
             cyc = window_peaks(tb, {"drain": buf["drain"], **({"vidrain#branch": buf["idrain"]} if "idrain" in buf else {})},
                                t_a, t_b)
             for key in ("vd_max_v", "id_max_a"):
@@ -305,7 +340,8 @@ class SettleCheck:
                         np.array(self.waves[j:]) if self.waves[j:] else None, self.tol,
                         max(self.min_cycles - j, self.judge_min_after) if j else self.min_cycles,
                         np.array(self.iwaves[j:]) if len(self.iwaves) == len(self.waves) and self.iwaves[j:] else None,
-                        self.anchor, {k: np.array(v[j:]) for k, v in self.peaks.items()})
+                        self.anchor, {k: np.array(v[j:]) for k, v in self.peaks.items()},
+                        np.array(self.pin_w[j:]) if len(self.pin_w) == len(self.pdc_w) and self.pin_w[j:] else None)
         if ok and j:
             why = f"settled after {n} cycles ({n - j} judged after the last bias correction; {why.split('(', 1)[-1]}"
         self.settled, self.reason = ok, why

@@ -227,6 +227,12 @@ def pin_network(base_doc: dict, base, sizer: Callable | None = None) -> dict:
     sized = size_fn(base)
     user = dict(base.network.values)
     doc = base_doc
+    if base.network.match_shunt == "auto":
+        # the L-section keeps the nominal orientation at every point (which side the shunt
+        # element is on would otherwise follow each point's Ropt against RL)
+        from netgen.synthesis import match_orientation
+
+        doc = set_dotted(doc, "network.match_shunt", match_orientation(sized.components))
     for comp in sized.components.values():
         if comp.name in user or comp.role == "load":
             continue

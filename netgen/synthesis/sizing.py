@@ -48,7 +48,7 @@ from netgen.design import (
     format_quantity,
     parse_quantity,
 )
-from netgen.errors import DesignError
+from netgen.errors import DesignError, SizingError
 
 from .builder import (
     C0_M_S,
@@ -56,6 +56,7 @@ from .builder import (
     PI,
     Builder,
     conduction_fourier,
+    match_orientation,
     ropt_from_power,
 )
 from .network import z_drain
@@ -246,7 +247,36 @@ def _veff_how(design: Design) -> str:
     return "Vdd_eff = Vdd (user device: no drop assumed)"
 
 
+def _sibling(name: str, comps: dict[str, Component]) -> str | None:
+    """The sized component that ``name`` replaces by its other kind (``match_series_l`` for a given
+    ``match_series_c``): a reactance that changed sign when the design was re-sized keeps the
+    element the user (or the pinned network of a sweep) chose."""
+    if len(name) > 2 and name[-2:] in ("_l", "_c"):
+        other = name[:-2] + ("_c" if name.endswith("_l") else "_l")
+        if other in comps and name not in comps:
+            return other
+    return None
+
+
+def _swap_siblings(design: Design, comps: dict[str, Component]) -> dict[str, Component]:
+    """``comps`` (circuit order kept) with each sibling of a ``[network.values]`` name replaced by
+    the named kind (:func:`_sibling`)."""
+    swaps = {_sibling(n, comps): n for n in design.network.values if _sibling(n, comps)}
+    if not swaps:
+        return comps
+    out = {}
+    for name, comp in comps.items():
+        if name in swaps:
+            new = swaps[name]
+            kind = "L" if new.endswith("_l") else "C"
+            out[new] = Component(new, kind, comp.value, comp.how, comp.role, comp.lossy)
+        else:
+            out[name] = comp
+    return out
+
+
 def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> dict[str, Component]:
+    comps = _swap_siblings(design, comps)
     out = dict(comps)
     for name, text in design.network.values.items():
         key = f"network.values.{name}"
@@ -259,6 +289,11 @@ def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> 
         if not (value > 0):
             raise DesignError(f"{key}: {value:g} {comp.unit} is not positive; give a value > 0.")
         out[name] = Component(name, comp.kind, value, "set in [network.values]", comp.role, comp.lossy)
+    for name, comp in out.items():
+        if not math.isfinite(comp.value):
+            raise SizingError(f"network.values.{name}: the L-section with network.match_shunt = "
+                              f"'{design.network.match_shunt}' cannot reach Ropt from RL = {design.load_ohm:g} ohm by "
+                              f"formula; give {name} in [network.values] or set network.match_shunt = 'auto'.")
     return out
 
 
@@ -281,17 +316,24 @@ def sized_toml_text(sized: SizedDesign) -> str:
             continue
         t = tomlkit.table()
         for key, value in table.items():
-            if section == "network" and key == "values":
+            if section == "network" and key in ("values", "match_shunt"):
                 continue
             t.add(key, value)
         if section == "network":
-            t.add("values", _values_table(sized))
+            _add_fixed_circuit(t, sized)
         doc.add(section, t)
     if "network" not in raw:
         t = tomlkit.table()
-        t.add("values", _values_table(sized))
+        _add_fixed_circuit(t, sized)
         doc.add("network", t)
     return tomlkit.dumps(doc)
+
+
+def _add_fixed_circuit(t, sized: SizedDesign) -> None:
+    """``match_shunt`` (the L-section's orientation as sized) and ``values``: what a loaded sized
+    file needs to give back this circuit, whatever its supply or load are edited to."""
+    t.add("match_shunt", match_orientation(sized.components))
+    t.add("values", _values_table(sized))
 
 
 def _values_table(sized: SizedDesign):
