@@ -1,7 +1,8 @@
 """The ``netgen`` command line: parse, call the pipeline, print. No physics here.
 
 Every error a user can cause ends as one ``Error: ...`` line on stderr and exit
-code 2, with no traceback and no half-written output.
+code 2, with no traceback and no half-written output. A run that finished but did not reach
+periodic steady state exits with code 3 (``NOT_SETTLED_EXIT_CODE``), its outputs written.
 """
 
 from __future__ import annotations
@@ -15,7 +16,7 @@ from pathlib import Path
 import click
 
 from netgen import __version__
-from netgen.errors import NetgenError
+from netgen.errors import NOT_SETTLED_EXIT_CODE, NetgenError
 
 __all__ = ["cli", "main"]
 
@@ -138,8 +139,11 @@ def _run_and_print(design, outdir: Path) -> None:
     click.echo(f"Report: {result.files['report']}")
     click.echo(f"Metrics: {result.files['metrics']}  Waveforms: {result.files['waveforms']}  Netlist: {result.files['netlist']}")
     if not result.metrics.get("settled", False):
-        click.echo("Warning: the simulation did NOT settle to periodic steady state; treat the numbers as provisional "
-                   "(raise sim.max_cycles, or check the bias network).", err=True)
+        note = (result.metrics.get("settle_note") or "").strip()
+        note = note[:1].upper() + note[1:]
+        click.echo("Warning: the simulation did NOT settle to periodic steady state; the outputs are written but "
+                   f"every number is provisional. {note}", err=True)
+        click.get_current_context().exit(NOT_SETTLED_EXIT_CODE)
 
 
 @cli.command()

@@ -18,7 +18,7 @@ from netgen import simulator
 
 from .fourier import _clip_window, fourier_pwl, pwl_mean_product, pwl_mean_square
 
-__all__ = ["judge", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
+__all__ = ["judge", "settle_hint", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
            "Z_CHANGE_TOL", "Z_SCALE_FRACTION", "Z_CURRENT_FLOOR", "NOISE_FRACTION", "NOISE_SIGMAS",
            "PEAK_TOL", "ANCHOR_Z_TOL"]
 
@@ -141,7 +141,7 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
     """
     n = min(len(v) for v in series.values()) if series else 0
     if n < max(min_cycles, 6):
-        return False, f"{n} cycles, fewer than the {max(min_cycles, 6)} needed to judge"
+        return False, f"only {n} cycles were simulated, fewer than the {max(min_cycles, 6)} needed to judge"
     w = max(2, n // 6)
     spread = NOISE_SIGMAS * math.sqrt(2.0 / w)  # standard errors of a difference of two w-cycle means
     predicted = {"pdc_w": anchor.pdc_w, "pload_w": anchor.pload_w} if anchor is not None else {}
@@ -192,7 +192,7 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         change = float(np.sqrt(np.sum(np.abs(b - a) ** 2))) / scale
         allowed = max(tol, spread * _scatter(waves[-2 * w:]) / scale) if on_orbit else tol
         if change >= allowed:
-            return False, f"drain waveform still changing ({change:.2g} relative), tolerance {allowed:.2g}"
+            return False, f"the drain waveform is still changing ({change:.2g} relative, tolerance {allowed:.2g})"
         if iwaves is not None and len(iwaves) >= 2 * w:
             ia = iwaves[-2 * w:-w].mean(axis=0)
             ib = iwaves[-w:].mean(axis=0)
@@ -212,8 +212,8 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
                     if np.isfinite(sigma) and near:
                         ztol = max(ztol, spread * sigma / scale)
                 if zchange >= ztol:
-                    return False, (f"drain impedance at {k} f0 still changing ({zchange:.2g} relative "
-                                   f"between windows of {w} cycles), tolerance {ztol:.2g}")
+                    return False, (f"the drain impedance at {k} f0 is still changing ({zchange:.2g} relative "
+                                   f"between windows of {w} cycles, tolerance {ztol:.2g})")
     for name, values in (peaks or {}).items() if not on_orbit else ():
         x = np.asarray(values, dtype=float)
         if len(x) < 2 * w:
@@ -223,8 +223,8 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         if abs(pb - pa) <= PEAK_TOL * scale:
             continue
         what = "drain voltage" if name.startswith("vd") else "drain current"
-        return False, (f"peak {what} still changing ({(pb - pa) / scale:+.2g} relative between windows of "
-                       f"{w} cycles), tolerance {PEAK_TOL:g}")
+        return False, (f"the peak {what} is still changing ({(pb - pa) / scale:+.2g} relative between windows of "
+                       f"{w} cycles, tolerance {PEAK_TOL:g})")
     return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
 
 
@@ -236,9 +236,9 @@ def _still_changing(name: str, worst: float, w: int, tol: float) -> str:
     windows did not decay geometrically: a drift too slow to extrapolate)."""
     what = _WHAT.get(name, name)
     if math.isfinite(worst):
-        return (f"{what} still changing: about {worst:.2g} (relative) of change predicted to come, judged over "
-                f"windows of {w} cycles, tolerance {tol:g}")
-    return (f"{what} still changing: successive windows of {w} cycles keep moving one way, too slowly "
+        return (f"the {what} is still changing: about {worst:.2g} (relative) of change is predicted to come, "
+                f"judged over windows of {w} cycles against a tolerance of {tol:g}")
+    return (f"the {what} is still changing: successive windows of {w} cycles keep moving one way, too slowly "
             f"to predict where it ends (tolerance {tol:g})")
 
 
@@ -391,3 +391,35 @@ def window_peaks(t: np.ndarray, vecs, start_s: float, end_s: float) -> dict[str,
         peaks[f"{key}_max_{unit}"] = float(values.max())
         peaks[f"{key}_min_{unit}"] = float(values.min())
     return peaks
+
+
+def settle_hint(reason: str, *, settle_tol: float, max_cycles: int, warm: bool, periodic: bool,
+                bias_nulled: bool = False) -> str:
+    """What to change when a run did not settle, from the cause the judge saw (its ``reason``).
+
+    Returns one or two sentences naming the keys to change: the judge's reasons are written by
+    :func:`judge` in this module, so the classification below follows them.
+    """
+    tight = settle_tol < 1e-3
+    tol_note = (f" sim.settle_tol = {settle_tol:g} is tighter than the default 0.001; loosen it if that "
+                "precision is not needed.") if tight else ""
+    if "fewer than the" in reason:
+        return f"The run was too short to be judged: raise sim.max_cycles (now {max_cycles})."
+    if "energy stored in the network" in reason:
+        return ("A high-Q network was still giving back the energy of its start-up: raise sim.max_cycles "
+                f"(now {max_cycles}) or sim.min_cycles." + tol_note)
+    if "impedance at" in reason or "drain waveform" in reason or "peak drain" in reason:
+        return ("The harmonics scatter from cycle to cycle (narrow switching edges on a lightly damped line or "
+                "resonator): raise sim.average_periods and sim.max_cycles, or give the switch a finite "
+                "device.transition or device.cout." + tol_note)
+    if "power is still changing" in reason:
+        if not warm:
+            return ("A slow mode is still decaying from the cold start: set sim.warm_start = true, or raise "
+                    f"sim.max_cycles (now {max_cycles})." + tol_note)
+        if not periodic:
+            what = "the bias mode of the DC feed and block (nulled at the start)" if bias_nulled else \
+                "the bias mode of the DC feed and block"
+            return (f"A slow mode, most likely {what}, is still decaying: raise sim.max_cycles (now {max_cycles}), "
+                    "or give network.feed_l and network.block_c values with a faster bias resonance." + tol_note)
+        return (f"A slow mode is still decaying: raise sim.max_cycles (now {max_cycles})." + tol_note)
+    return f"Raise sim.max_cycles (now {max_cycles})." + tol_note

@@ -74,6 +74,7 @@ from .settle import (  # noqa: F401  (re-exported for callers and tests)
     Anchor,
     SettleCheck,
     judge,
+    settle_hint,
     window_peaks,
 )
 
@@ -335,8 +336,9 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     if settled:
         note = check.reason + how
     else:
-        note = (f"not settled within sim.max_cycles = {sim.max_cycles}: {check.reason}{how}; "
-                "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
+        hint = settle_hint(check.reason, settle_tol=sim.settle_tol, max_cycles=sim.max_cycles, warm=warm,
+                           periodic=state is not None, bias_nulled=bool(sources))
+        note = f"not settled within sim.max_cycles = {sim.max_cycles}{how}; {check.reason}. {hint}"
     return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
                      history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
                      note=note, peaks=peaks, fourier=coeffs, start=start, points=points)
