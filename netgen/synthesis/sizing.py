@@ -42,6 +42,7 @@ import math
 from pathlib import Path
 
 from netgen.design import (
+    COMPONENT_UNITS,
     Component,
     Design,
     SizedDesign,
@@ -275,11 +276,24 @@ def _swap_siblings(design: Design, comps: dict[str, Component]) -> dict[str, Com
     return out
 
 
+#: name ending -> kind of a component a user template adds through [network.values]
+_USER_KINDS = {"_l": "L", "_c": "C", "_r": "R"}
+
+
 def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> dict[str, Component]:
     comps = _swap_siblings(design, comps)
     out = dict(comps)
     for name, text in design.network.values.items():
         key = f"network.values.{name}"
+        if name not in comps and design.topology.endswith(".j2") and name[-2:] in _USER_KINDS:
+            # a component the user template adds: its kind from the name, its value from here
+            kind = _USER_KINDS[name[-2:]]
+            value = parse_quantity(text, COMPONENT_UNITS[kind], key)
+            if not (value > 0 and math.isfinite(value)):
+                raise DesignError(f"{key}: {value:g} {COMPONENT_UNITS[kind]} is not positive; give a value > 0.")
+            out[name] = Component(name, kind, value, "set in [network.values] (a component of the user template)",
+                                  "user", kind != "R")
+            continue
         if name not in comps:
             close = difflib.get_close_matches(name, list(comps), n=1, cutoff=0.4)
             hint = f"did you mean '{close[0]}'?" if close else "valid names: " + ", ".join(comps)
