@@ -32,6 +32,7 @@ __all__ = [
     "harmonic_impedance",
     "waveform_efficiency",
     "device_loss_split",
+    "bound_warning",
     "analyse",
     "Z_CURRENT_FLOOR",
 ]
@@ -373,15 +374,18 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
 
     eff = pout / pdc if pdc > 0 else None
     pae = (pout - pin) / pdc if (pin is not None and pdc > 0) else None
-    impossible = _impossible(pout, pdc, pin)
-    if impossible:
-        eff = pae = None  # never printed as a result (design_warnings says why)
-    elif eff is not None:
-        eff = min(eff, 1.0)  # within ROUNDING of 1: the arithmetic's own error, not a result above 1
-
+    if pin is not None and pin < 0:
+        pae = None  # the drive source absorbs power: no added-power figure (design_warnings says why)
     table = _harmonic_table(V, I, pload_n, n_h)
 
     losses = _loss_budget(win, design, netlist_text, pload_total - pout)
+    device_w = losses["device_conduction"] + losses["device_switching"]
+    coupled_pin = pin if design.device.model == "spice" else None  # a gm gate feeds only RGIN
+    impossible = _impossible(pout, pdc, coupled_pin, device_w)
+    if impossible:
+        eff = pae = None  # never printed as a result (design_warnings says why)
+    elif eff is not None and eff > 1.0:
+        eff = 1.0  # within ROUNDING of 1: the arithmetic's own error, not a result above 1
     balance = (pdc - pout - sum(losses.values())) / pdc if pdc > 0 else None
 
     # extremes from the simulator's own time points when steady.py supplied them (the uniform
@@ -401,7 +405,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
             "load_ohm": float(rl),
             "ropt_ohm": _f(sized.ropt_ohm),
         },
-        "settled": bool(wf.settled) and not impossible,
+        "settled": bool(wf.settled) and not (impossible and device_w >= 0),  # energy still leaving: not settled
         "cycles": int(wf.cycles),
         "settle_note": wf.note if not impossible else f"{impossible}; {wf.note}",
         "start": _start(getattr(wf, "start", None) or {}, pdc, pout),
@@ -435,22 +439,65 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
 ROUNDING = 1e-6
 
 
-def _impossible(pout_w: float, pdc_w: float, pin_w: float | None) -> str:
-    """Why the powers cannot be a periodic steady state ('' when they can).
+def _impossible(pout_w: float, pdc_w: float, pin_w: float | None, device_w: float) -> str:
+    """Why the powers cannot be a periodic steady state of a real amplifier ('' when they can).
 
     In a periodic state of a passive network fed by the supply and the drive, energy is conserved
     (Tellegen's theorem, any circuit-theory textbook): the load cannot take more than
-    Pdc + Pin. A surplus is stored energy still leaving the network (the run is not settled to
-    that precision), so the efficiency is withheld.
+    Pdc + Pin. A surplus is either a device model that delivers power (negative dissipation: an
+    ideal controlled current flowing against the voltage) or stored energy still leaving the
+    network (the run is not settled to that precision); either way the efficiency is withheld.
     """
     supplied = pdc_w + max(pin_w or 0.0, 0.0)
     if pout_w <= supplied * (1.0 + ROUNDING):
         return ""
     eff = f" (drain efficiency would read {pout_w / pdc_w:.2%})" if pdc_w > 0 else ""
-    return (f"the load received more power ({pout_w:.4g} W) than the supply and drive delivered "
-            f"({supplied:.4g} W){eff}, which no steady state allows: energy stored in the network was still "
-            "leaving it during the averaged periods, so the efficiency is not reported; raise sim.min_cycles "
-            "or tighten sim.settle_tol")
+    head = (f"the load received more power ({pout_w:.4g} W) than the supply and drive delivered "
+            f"({supplied:.4g} W){eff}, which no real amplifier does")
+    if device_w < 0:
+        return (f"{head}: the device model delivers {-device_w:.3g} W (its dissipation is negative: current "
+                "flows while the drain voltage is below zero), so the efficiency is not reported; give a "
+                "gm device a knee (device.vknee) or lower device.drive")
+    return (f"{head}: energy stored in the network was still leaving it during the averaged periods, so the "
+            "efficiency is not reported; raise sim.min_cycles or tighten sim.settle_tol")
+
+
+def bound_warning(metrics: dict, model: str) -> str:
+    """Why a simulated drain efficiency exceeds its ideal bound ('' when it does not).
+
+    The bound (netgen.synthesis.theory.bound_for) assumes an ideal device and the harmonics it
+    lists; a simulation can beat it only by breaking an assumption, and the sentence names which:
+    a device that delivers power (negative dissipation), voltage at harmonics the bound takes as
+    shorted (the real network's finite impedance there), or drive power reaching the output.
+    """
+    eff = metrics.get("drain_efficiency")
+    bound = metrics.get("bound") or {}
+    limit = bound.get("efficiency")
+    if eff is None or limit is None or eff <= limit * (1.0 + 1e-4):
+        return ""
+    why = []
+    losses = metrics.get("losses") or {}
+    device_w = (losses.get("device_conduction") or 0.0) + (losses.get("device_switching") or 0.0)
+    if device_w < 0:
+        why.append(f"the device model delivers {-device_w:.3g} W (current flows while the drain voltage is "
+                   f"{metrics.get('min_vd_v') or 0.0:.3g} V at its lowest): an ideal current source without a knee; "
+                   "set device.vknee")
+    allowed = bound.get("voltage_harmonics")
+    rows = metrics.get("harmonics") or []
+    if allowed and rows:
+        v1 = rows[0].get("vd_v") or 0.0
+        extra = [f"{r['n']}f0 ({(r.get('vd_v') or 0.0) / v1:.1%} of V1)" for r in rows[1:]
+                 if r["n"] not in allowed and v1 > 0 and (r.get("vd_v") or 0.0) > 0.01 * v1]
+        if extra:
+            why.append("the drain voltage has harmonics the bound assumes shorted, " + ", ".join(extra)
+                       + ": the real network's impedance there is not zero, so the waveform is flatter than the "
+                       "bound allows")
+    pin = metrics.get("pin_w")
+    if model == "spice" and pin:
+        why.append(f"drive power ({pin:.3g} W) reaches the output through the device")
+    reason = "; ".join(why) if why else "the simulated waveforms use freedoms the bound's assumptions exclude"
+    return (f"the drain efficiency {eff:.2%} exceeds the ideal bound {limit:.2%} ({bound.get('name', '')}) because "
+            f"{reason}")
 
 
 #: per-period drain peaks spreading by more than this fraction over the averaged periods are said
@@ -466,6 +513,15 @@ def design_warnings(sized, metrics: dict) -> list[str]:
         out.append("an abrupt switch with no output capacitance interrupts current into a transmission line: "
                    "the drain peak includes edge spikes the time step does not resolve; set device.cout "
                    "(or device.transition) for a trustworthy peak voltage")
+    beat = bound_warning(metrics, d.device.model)
+    if beat:
+        out.append(beat)
+    pin = metrics.get("pin_w")
+    if pin is not None and pin < 0:
+        out.append(f"the drive power Pin is negative ({pin:.3g} W): over a period the drive source absorbs power fed "
+                   "back from the drain through the device's gate-drain coupling, so PAE is not reported (it would "
+                   "exceed the drain efficiency); drive the gate through a source resistance or a matching network "
+                   "to measure a real input power")
     balance = metrics.get("loss_balance_error")
     if balance is not None and abs(balance) > 0.01:
         out.append(f"the loss budget misses {balance:+.1%} of Pdc: raise sim.points_per_cycle for a closer balance")
