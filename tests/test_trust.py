@@ -234,3 +234,63 @@ def test_not_settled_run_exits_3_with_outputs_written(tmp_path, netgen_cli):
     assert (tmp_path / "out" / "metrics.json").exists()
     report = (tmp_path / "out" / "report.html").read_text()
     assert "NOT SETTLED" in report and "inf" not in report.split("id=not-settled", 1)[1][:600]
+
+
+# ------------------------------------------------ Pin and PAE (defect 2)
+
+def test_negative_pin_gives_no_pae_and_a_warning():
+    # Pin = mean(v_gate i_gate) = 0.5 Vg Ig cos(phi) (common practice); phi = 180 deg: the source absorbs
+    t, th = _grid()
+    vl = math.sqrt(2 * 0.5 * 50.0) * np.cos(th)
+    v = {"drain": VDD + vl, "vdd": np.full_like(t, VDD), "load": vl, "gate": 2.0 * np.cos(th)}
+    i = {"drain": np.full_like(t, 0.1), "supply": np.full_like(t, 0.1), "gate": -0.02 * np.cos(th)}
+    m = analyse(Waveforms(F0, t, v, i, True, 20), _sized(model="spice"), "RLOAD load 0 50\n")
+    assert m["pin_w"] == pytest.approx(-0.02, rel=1e-9)
+    assert m["drain_efficiency"] == pytest.approx(0.5, rel=1e-6)
+    assert m["pae"] is None
+    assert any("Pin is negative" in w for w in m["warnings"])
+
+
+# ------------------------------------------------ beating the ideal bound (defect 4)
+
+def test_efficiency_above_its_bound_names_the_harmonics_the_bound_excludes():
+    # Raab (2001): class F with voltage harmonics up to 3f0 and any current: 90.69 %; a waveform
+    # with voltage at 4f0 and 5f0 is outside that set, so it may do better -- and must say so
+    from netgen.results.analysis import bound_warning
+    from netgen.synthesis import bound_for
+
+    from netgen.design.schema import NetworkSpec
+
+    design = Design(name="bench_b", topology="class_f_lumped", f0_hz=F0, vdd_v=VDD, network=NetworkSpec(harmonics=1))
+    bound = bound_for(design)
+    assert bound["efficiency"] == pytest.approx(0.9069, abs=1e-4)
+    assert "assumes" in bound["name"]
+    rows = [{"n": 1, "vd_v": 14.0}, {"n": 2, "vd_v": 0.07}, {"n": 3, "vd_v": 2.7}, {"n": 4, "vd_v": 0.24},
+            {"n": 5, "vd_v": 0.15}]
+    metrics = {"drain_efficiency": 0.9127, "bound": bound, "harmonics": rows,
+               "losses": {"device_conduction": 0.3, "device_switching": 0.0}}
+    text = bound_warning(metrics, "gm")
+    assert "exceeds the ideal bound" in text and "4f0" in text and "5f0" in text and "2f0" not in text
+    assert bound_warning(dict(metrics, drain_efficiency=0.88), "gm") == ""
+
+
+# ------------------------------------------------ switching loss from the simulator's points (defect 6)
+
+def test_discharge_loss_exact_on_the_simulators_points():
+    # A capacitor C charged to V discharging through R dissipates C V^2 / 2 whatever R
+    # (any circuit-theory textbook). The simulator puts its points densely in the spike; a
+    # uniform grid of the same period steps over most of it.
+    from netgen.results.analysis import device_loss_split
+
+    c, v0, ron, period = 10e-12, 20.0, 0.5, 1e-9
+    tau = ron * c
+    t_spike = 0.5 * period + tau * np.linspace(0.0, 12.0, 400)
+    t = np.concatenate(([0.0, 0.25 * period, 0.5 * period - 1e-15], t_spike, [0.75 * period, period]))
+    v = np.concatenate(([v0, v0, v0], v0 * np.exp(-(t_spike - t_spike[0]) / tau), [0.0, 0.0]))
+    v[-1] = v0  # the switch opens and the drain recharges at the period's end (off, no current)
+    i = np.where(t >= t_spike[0], v / ron, 0.0)
+    i[-1] = 0.0
+    out = device_loss_split(v, i, VDD, ron_ohm=ron, roff_ohm=1e6, t_s=t)
+    total = out["device_conduction"] + out["device_switching"]
+    assert total == pytest.approx(0.5 * c * v0**2 / period, rel=2e-3)
+    assert out["device_switching"] == pytest.approx(total, rel=0.05)  # the discharge is switching loss
