@@ -449,7 +449,7 @@ def test_cli_monte_carlo_summary_and_csv(tmp_path):
 
     with open(out / "sweep.csv", newline="") as fh:
         table = list(csv.DictReader(fh))
-    assert len(table) == 12 and "values.tank_c" in table[0]
+    assert len(table) == 12 and "values.tank_c [F]" in table[0]
     assert (out / "histograms.png").stat().st_size > 1000
     summary = json.loads((out / "summary.json").read_text())
     assert summary["passed"] == k

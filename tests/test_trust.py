@@ -294,3 +294,41 @@ def test_discharge_loss_exact_on_the_simulators_points():
     total = out["device_conduction"] + out["device_switching"]
     assert total == pytest.approx(0.5 * c * v0**2 / period, rel=2e-3)
     assert out["device_switching"] == pytest.approx(total, rel=0.05)  # the discharge is switching loss
+
+
+# ------------------------------------------------ what a sweep keeps (defect 11)
+
+def test_store_keeps_stress_and_drive_columns_and_upgrades_an_old_store(tmp_path):
+    import sqlite3
+
+    from netgen.studies.store import KEY_COLUMNS, SweepStore
+
+    for col in ("pae", "pin_w", "min_vd_v", "peak_vd_v", "peak_id_a", "device_dissipation_w"):
+        assert col in KEY_COLUMNS
+    old = tmp_path / "old.sqlite"
+    con = sqlite3.connect(old)
+    con.execute("CREATE TABLE points (id INTEGER PRIMARY KEY, sweep_id INTEGER NOT NULL, idx INTEGER NOT NULL, "
+                "inputs TEXT NOT NULL, status TEXT NOT NULL, metrics TEXT, drain_efficiency REAL, pout_w REAL, "
+                "pdc_w REAL, peak_vd_v REAL, peak_vd_over_vdd REAL, settled INTEGER, error TEXT, seconds REAL, "
+                "UNIQUE (sweep_id, idx))")
+    con.commit()
+    con.close()
+    with SweepStore(old) as st:
+        cols = {row[1] for row in st.con.execute("PRAGMA table_info(points)")}
+    assert set(KEY_COLUMNS) <= cols
+
+
+def test_diff_lists_the_inputs_that_differ():
+    import copy
+
+    from netgen.design import design_from_dict
+    from netgen.handoff.diff import input_differences
+
+    a = design_from_dict(copy.deepcopy(LUMPED_DOC))
+    doc = copy.deepcopy(LUMPED_DOC)
+    doc["device"].update({"ron": "0.4 ohm", "cout": "1 pF"})
+    doc["sim"]["points_per_cycle"] = 600
+    doc["network"]["capacitor_esr"] = "0.1 ohm"
+    keys = [k for k, _a, _b in input_differences(a, design_from_dict(doc))]
+    assert keys == ["device.ron", "device.cout", "network.capacitor_esr", "sim.points_per_cycle"]
+    assert input_differences(a, a) == ()

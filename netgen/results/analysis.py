@@ -425,6 +425,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "peak_vd_range_v": _range(peaks, "vd_max_lo_v", "vd_max_hi_v"),
         "peak_id_range_a": _range(peaks, "id_max_lo_a", "id_max_hi_a"),
         "harmonics": table,
+        "device_dissipation_w": _f(device_w),
         "losses": {k: _f(v) for k, v in losses.items()},
         "loss_balance_error": _f(balance),
         "bound": bound_for(sized),
