@@ -80,6 +80,7 @@ def test_sized_file_with_edited_load_reloads_with_the_same_circuit(tmp_path, loa
     # bench measurement); before the fix, loads near Ropt (~49.4 ohm) failed to load or flipped
     # the L-section's shunt element to the other side
     import copy
+
     import tomllib
 
     from netgen.design import design_from_dict
@@ -204,7 +205,7 @@ def test_judge_never_reports_an_infinite_prediction():
 def test_not_settled_hint_follows_the_cause():
     from netgen.periodic.settle import settle_hint
 
-    common = dict(max_cycles=400, warm=True, periodic=False)
+    common = {"max_cycles": 400, "warm": True, "periodic": False}
     drift = settle_hint("the DC power is still changing: ...", settle_tol=1e-3, bias_nulled=True, **common)
     assert "bias" in drift and "network.feed_l" in drift
     tight = settle_hint("the DC power is still changing: ...", settle_tol=1e-5, **common)
@@ -228,7 +229,7 @@ def test_not_settled_run_exits_3_with_outputs_written(tmp_path, netgen_cli):
     doc = copy.deepcopy(LUMPED_DOC)
     doc["sim"] = {"points_per_cycle": 200, "max_cycles": 5, "min_cycles": 4, "average_periods": 2}
     path = write_toml(tmp_path / "short.toml", doc)
-    code, out, err = netgen_cli("run", path, "-o", tmp_path / "out")
+    code, _out, err = netgen_cli("run", path, "-o", tmp_path / "out")
     assert code == 3  # its own code: 0 is settled, 2 a user error (docs/reliability.md)
     assert "too short to be judged" in err and "sim.max_cycles" in err
     assert (tmp_path / "out" / "metrics.json").exists()
@@ -256,10 +257,9 @@ def test_negative_pin_gives_no_pae_and_a_warning():
 def test_efficiency_above_its_bound_names_the_harmonics_the_bound_excludes():
     # Raab (2001): class F with voltage harmonics up to 3f0 and any current: 90.69 %; a waveform
     # with voltage at 4f0 and 5f0 is outside that set, so it may do better -- and must say so
+    from netgen.design.schema import NetworkSpec
     from netgen.results.analysis import bound_warning
     from netgen.synthesis import bound_for
-
-    from netgen.design.schema import NetworkSpec
 
     design = Design(name="bench_b", topology="class_f_lumped", f0_hz=F0, vdd_v=VDD, network=NetworkSpec(harmonics=1))
     bound = bound_for(design)

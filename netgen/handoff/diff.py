@@ -69,16 +69,19 @@ def input_differences(da, db) -> tuple[tuple[str, str, str], ...]:
             if va == vb:
                 continue
 
-            def text(v):
-                if isinstance(v, float) and spec.unit not in ("", "int"):
-                    try:
-                        return format_quantity(v, spec.unit)
-                    except (TypeError, ValueError):
-                        return repr(v)
-                return "-" if v is None else str(v)
-
-            out.append((f"{section}.{key}", text(va), text(vb)))
+            out.append((f"{section}.{key}", _input_text(va, spec.unit, format_quantity),
+                        _input_text(vb, spec.unit, format_quantity)))
     return tuple(out)
+
+
+def _input_text(value, unit: str, format_quantity) -> str:
+    """An input value for the diff table: a quantity with its unit, else as written."""
+    if isinstance(value, float) and unit not in ("", "int"):
+        try:
+            return format_quantity(value, unit)
+        except (TypeError, ValueError):
+            return repr(value)
+    return "-" if value is None else str(value)
 
 
 def load_design_spec(spec: str):

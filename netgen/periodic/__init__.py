@@ -13,7 +13,7 @@ from importlib import import_module
 
 # bound eagerly: the function ``fourier`` shares its name with the module defining it, and a later
 # ``import netgen.periodic.fourier`` (first load) would otherwise leave the module in its place
-from .fourier import fourier  # noqa: E402,F401
+from .fourier import fourier  # noqa: F401
 
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)

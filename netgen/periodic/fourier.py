@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-__all__ = ["fourier", "fourier_pwl", "periods_in", "pwl_mean_square", "pwl_mean_product", "pwl_point_energy"]
+__all__ = ["fourier", "fourier_pwl", "periods_in", "pwl_mean_product", "pwl_mean_square", "pwl_point_energy"]
 
 
 
