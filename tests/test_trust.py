@@ -332,3 +332,42 @@ def test_diff_lists_the_inputs_that_differ():
     keys = [k for k, _a, _b in input_differences(a, design_from_dict(doc))]
     assert keys == ["device.ron", "device.cout", "network.capacitor_esr", "sim.points_per_cycle"]
     assert input_differences(a, a) == ()
+
+
+# ------------------------------------------------ progress of long runs (defect 10)
+
+class _FakeTerminal:
+    def __init__(self, tty):
+        self.tty, self.text = tty, ""
+
+    def isatty(self):
+        return self.tty
+
+    def write(self, s):
+        self.text += s
+
+    def flush(self):
+        pass
+
+
+@pytest.mark.parametrize("tty", [True, False])
+def test_progress_after_two_seconds_on_a_terminal_only(monkeypatch, tty):
+    import sys
+    import time
+
+    from netgen.cli.root import _Progress
+
+    term = _FakeTerminal(tty)
+    monkeypatch.setattr(sys, "stderr", term)
+    p = _Progress("simulating x", enabled=True)
+    try:
+        p("cycle 4, change 3.0e-03: Pdc 17.4 W, Pload 11.8 W; ...")
+        assert term.text == ""  # a short run stays quiet
+        p.t0 = time.monotonic() - 5.0  # as if five seconds had passed
+        p("cycle 12, change 1.0e-04: Pdc 17.4 W, Pload 11.8 W; ...")
+    finally:
+        p.done()
+    if tty:
+        assert "cycle 12, change 1.0e-04" in term.text and " 5 s" in term.text
+    else:
+        assert term.text == ""  # never into a pipe or a log file

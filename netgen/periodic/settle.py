@@ -347,7 +347,8 @@ class SettleCheck:
         self.settled, self.reason = ok, why
         pdc = self.pdc_w[-1] if self.pdc_w else float("nan")
         pl = self.pload_w[-1] if self.pload_w else float("nan")
-        message = f"cycle {n}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
+        change = abs(self.pdc_w[-1] - self.pdc_w[-2]) / max(abs(self.pdc_w[-1]), 1e-30) if n >= 2 else float("nan")
+        message = f"cycle {n}, change {change:.1e}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
         if self.release is not None:
             action, self.release = self.release, None
             if not ok:
