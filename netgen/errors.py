@@ -7,6 +7,7 @@ into one ``Error: ...`` line on stderr and the exit code below.
 from __future__ import annotations
 
 __all__ = [
+    "NOT_SETTLED_EXIT_CODE",
     "NetgenError",
     "DesignError",
     "SizingError",
@@ -15,6 +16,11 @@ __all__ = [
     "SimulatorNotFoundError",
     "OutputError",
 ]
+
+
+#: exit code of ``netgen run`` / ``netgen demo`` when the run finished but did not reach periodic
+#: steady state (its outputs are written, marked provisional); 2 stays for user errors
+NOT_SETTLED_EXIT_CODE = 3
 
 
 class NetgenError(Exception):

@@ -92,8 +92,9 @@ def test_export_csv(tmp_path):
     with open(path, newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert [r["idx"] for r in rows] == ["0", "1"]
-    assert rows[0]["design.vdd"] == "10.0" and rows[0]["values.tank_c"] == "7.9 pF"
-    assert rows[0]["design.load_x"] == "5 ohm" and rows[1]["design.load_x"] == ""
+    # numeric SI cells, the unit in the header (issue 13)
+    assert rows[0]["design.vdd [V]"] == "10.0" and float(rows[0]["values.tank_c [F]"]) == pytest.approx(7.9e-12)
+    assert float(rows[0]["design.load_x [ohm]"]) == 5.0 and rows[1]["design.load_x [ohm]"] == ""
     assert float(rows[0]["drain_efficiency"]) == 0.785 and float(rows[0]["h2_dbc"]) == -42.5
     assert rows[1]["status"] == "failed" and rows[1]["error"] == "SizingError: no" and rows[1]["pout_w"] == ""
     with pytest.raises(OutputError, match="no such sweep store"):

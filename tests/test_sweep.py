@@ -170,12 +170,14 @@ def test_tolerance_patterns():
     assert parse_tolerance("tank_l=1%").matches("tank_l", "L")
     assert parse_tolerance("Z0*=3%").matches("line_z0", "Z0")
     assert not parse_tolerance("Z0*=3%").matches("line_td", "TD")
-    assert parse_tolerance("L_tank=1%").matches("tank_l", "L")
-    assert not parse_tolerance("C_tank=1%").matches("tank_l", "L")
-    assert parse_tolerance("T_line=1%").matches("line_td", "TD")  # the netlist element name
+    # one naming: the component names of [network.values] (issue 13), wildcards on them
+    assert parse_tolerance("*_l=1%").matches("tank_l", "L")
+    assert not parse_tolerance("*_c=1%").matches("tank_l", "L")
+    assert parse_tolerance("line_*=1%").matches("line_td", "TD")
+    assert not parse_tolerance("L_tank=1%").matches("tank_l", "L")  # the old kind-prefixed form is gone
     with pytest.raises(DesignError, match="with a % sign"):
         parse_tolerance("C*=5")
-    with pytest.raises(DesignError, match=r"'Q\*': matches no component; the components are L_feed"):
+    with pytest.raises(DesignError, match=r"'Q\*': matches no component; the components are feed_l"):
         make_plan(BASE, tolerance=["Q*=5%"], samples=3)
 
 
@@ -447,7 +449,7 @@ def test_cli_monte_carlo_summary_and_csv(tmp_path):
 
     with open(out / "sweep.csv", newline="") as fh:
         table = list(csv.DictReader(fh))
-    assert len(table) == 12 and "values.tank_c" in table[0]
+    assert len(table) == 12 and "values.tank_c [F]" in table[0]
     assert (out / "histograms.png").stat().st_size > 1000
     summary = json.loads((out / "summary.json").read_text())
     assert summary["passed"] == k

@@ -1,7 +1,8 @@
 """The ``netgen`` command line: parse, call the pipeline, print. No physics here.
 
 Every error a user can cause ends as one ``Error: ...`` line on stderr and exit
-code 2, with no traceback and no half-written output.
+code 2, with no traceback and no half-written output. A run that finished but did not reach
+periodic steady state exits with code 3 (``NOT_SETTLED_EXIT_CODE``), its outputs written.
 """
 
 from __future__ import annotations
@@ -15,7 +16,7 @@ from pathlib import Path
 import click
 
 from netgen import __version__
-from netgen.errors import NetgenError
+from netgen.errors import NOT_SETTLED_EXIT_CODE, NetgenError
 
 __all__ = ["cli", "main"]
 
@@ -34,29 +35,62 @@ def _load(path: Path):
 
 
 class _Progress:
-    """A one-line progress indicator on stderr while the simulator runs."""
+    """A one-line progress indicator on stderr while the simulator runs, on a terminal only.
+
+    Quiet for the first ``QUIET_S`` seconds (a short run prints nothing extra); after that the line
+    shows the last message from the run (cycles, powers, the change still seen) and the elapsed
+    time, redrawn every second even while the simulator is between messages.
+    """
+
+    QUIET_S = 2.0
 
     def __init__(self, label: str, enabled: bool):
+        import threading
+
         self.label = label
         self.enabled = enabled and sys.stderr.isatty()
         self.t0 = time.monotonic()
         self.shown = False
+        self.text = "starting"
+        self._lock = threading.Lock()
+        self._stop = threading.Event()
+        self._ticker = None
+        if self.enabled:
+            self._ticker = threading.Thread(target=self._tick, name="netgen-progress", daemon=True)
+            self._ticker.start()
+
+    def _tick(self) -> None:
+        while not self._stop.wait(1.0):
+            self._draw()
+
+    def _draw(self) -> None:
+        elapsed = time.monotonic() - self.t0
+        if not self.enabled or elapsed < self.QUIET_S:
+            return
+        with self._lock:
+            if self._stop.is_set():
+                return
+            msg = f"\r{self.label}: {self.text[:60]}, {elapsed:.0f} s"
+            click.echo(msg.ljust(79), nl=False, err=True)
+            self.shown = True
 
     def __call__(self, *args) -> None:
         # netgen.periodic.steady reports one message string; (cycles, change) is accepted too
         if not self.enabled:
             return
         if len(args) == 2 and not isinstance(args[0], str):
-            text = f"{args[0]} cycles simulated, last change {args[1]:.2e}"
+            self.text = f"{args[0]} cycles simulated, last change {args[1]:.2e}"
         else:
-            text = " ".join(str(a) for a in args)
-        msg = f"\r{self.label}: {text[:50]}, {time.monotonic() - self.t0:.1f} s"
-        click.echo(msg, nl=False, err=True)
-        self.shown = True
+            self.text = " ".join(str(a) for a in args)
+        self._draw()
 
     def done(self) -> None:
-        if self.shown:
-            click.echo("\r" + " " * 78 + "\r", nl=False, err=True)
+        self._stop.set()
+        if self._ticker is not None:
+            self._ticker.join(timeout=2.0)
+        with self._lock:
+            if self.shown:
+                click.echo("\r" + " " * 79 + "\r", nl=False, err=True)
 
 
 # Paths are checked by netgen itself (design.load_design, fileio, pipeline.atomic_folder), so
@@ -138,8 +172,11 @@ def _run_and_print(design, outdir: Path) -> None:
     click.echo(f"Report: {result.files['report']}")
     click.echo(f"Metrics: {result.files['metrics']}  Waveforms: {result.files['waveforms']}  Netlist: {result.files['netlist']}")
     if not result.metrics.get("settled", False):
-        click.echo("Warning: the simulation did NOT settle to periodic steady state; treat the numbers as provisional "
-                   "(raise sim.max_cycles, or check the bias network).", err=True)
+        note = (result.metrics.get("settle_note") or "").strip()
+        note = note[:1].upper() + note[1:]
+        click.echo("Warning: the simulation did NOT settle to periodic steady state; the outputs are written but "
+                   f"every number is provisional. {note}", err=True)
+        click.get_current_context().exit(NOT_SETTLED_EXIT_CODE)
 
 
 @cli.command()

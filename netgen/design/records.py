@@ -147,6 +147,13 @@ class Waveforms:
         netlist, netgen.periodic.estimator; ``"dc"``: the DC state of feed and block; ``"cold"``: from zero),
         ``reason`` (why not periodic, where it was not) and, for ``"periodic"``, the estimate's
         own ``pdc_w``, ``pout_w`` and ``pload_w`` (W), an independent check of ngspice's values.
+    points : dict[str, ndarray]
+        The simulator's own (non-uniform) time points over the averaged window, the same window
+        as ``fourier``: ``t_s`` (s, from the window start) and ``v:<node>`` / ``i:<name>`` with
+        the names and signs of ``v`` and ``i``. The analysis integrates powers and losses over
+        them exactly (piecewise-linear, netgen.periodic.fourier) so that Pdc, Pout and every
+        loss share one window and one quadrature. Empty when not available (the uniform grid
+        is used).
     """
 
     f0_hz: float
@@ -160,3 +167,4 @@ class Waveforms:
     peaks: dict = field(default_factory=dict)
     fourier: dict = field(default_factory=dict)
     start: dict = field(default_factory=dict)
+    points: dict = field(default_factory=dict)

@@ -94,7 +94,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "roff": Key("roff_ohm", "ohm", "1 Mohm", "Switch off-resistance.", lo=1.0, hi=1e15),
         "transition": Key("transition", "", 0.0, "Switch edge time as a fraction of the period; 0 is an abrupt switch. A finite edge is a real loss (the switch conducts while the voltage is high).", lo=0.0, hi=0.25),
         "duty": Key("duty", "", 0.5, "Fraction of the period the switch is on.", lo=0.05, hi=0.95),
-        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source).", lo=0.0, hi=1.0),
+        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source). switch and gm: sizing subtracts it from the class-E shunt C and the netlist adds it as COUT. spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing subtracts it (counted once).", lo=0.0, hi=1.0),
         "imax": Key("imax_a", "A", None, "gm device: peak drain current; default sized from the design (Raab/Cripps Fourier coefficients).", lo=0.0, hi=1e4, lo_open=True),
         "vknee": Key("vknee_v", "V", "0 V", "gm device: knee voltage (drain current = gm-limited current x tanh(vds/vknee)).", lo=0.0, hi=1e3),
         "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
@@ -117,6 +117,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "feed_l": Key("feed_l_h", "H", None, "DC-feed choke inductance (default: reactance 60 x Ropt at f0).", lo=0.0, hi=1.0, lo_open=True),
         "block_c": Key("block_c_f", "F", None, "DC-block capacitance (default: reactance Ropt/60 at f0).", lo=0.0, hi=1.0, lo_open=True),
         "match": Key("match", "str", "lowpass", "Ropt -> RL matching section where the topology needs one: lowpass or highpass L-section.", choices=("lowpass", "highpass")),
+        "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `netgen size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
         "values": Key("values", "values", {}, "Explicit component values by name (e.g. tank_l = \"2.4 nH\"); they override sizing."),
     },
     "sim": {
@@ -173,6 +174,7 @@ class NetworkSpec:
     feed_l_h: float | None = None
     block_c_f: float | None = None
     match: str = "lowpass"
+    match_shunt: str = "auto"
     #: explicit component values by component name, still as text (parsed by sizing,
     #: which knows each component's unit)
     values: dict[str, str] = field(default_factory=dict)

@@ -47,6 +47,41 @@ class DesignDiff:
     components: tuple[ComponentRow, ...]
     metrics: tuple[tuple[str, float | None, float | None], ...] = ()
     settled: tuple[bool, bool] | None = None
+    #: every input key (device, network options, supply, sim settings ...) whose value differs:
+    #: (dotted key, a as text, b as text)
+    inputs: tuple[tuple[str, str, str], ...] = ()
+
+
+def input_differences(da, db) -> tuple[tuple[str, str, str], ...]:
+    """The design keys (``device.vknee``, ``network.capacitor_esr``, ``sim.points_per_cycle`` ...)
+    whose validated values differ between two designs, in the order of the key reference; the
+    component values are compared separately (``[network.values]`` is left out here)."""
+    from netgen.design import SCHEMA, format_quantity
+
+    out = []
+    for section, keys in SCHEMA.items():
+        for key, spec in keys.items():
+            if key in ("values", "name"):
+                continue
+            owner_a = da if section == "design" else getattr(da, section, None)
+            owner_b = db if section == "design" else getattr(db, section, None)
+            va, vb = getattr(owner_a, spec.attr, None), getattr(owner_b, spec.attr, None)
+            if va == vb:
+                continue
+
+            out.append((f"{section}.{key}", _input_text(va, spec.unit, format_quantity),
+                        _input_text(vb, spec.unit, format_quantity)))
+    return tuple(out)
+
+
+def _input_text(value, unit: str, format_quantity) -> str:
+    """An input value for the diff table: a quantity with its unit, else as written."""
+    if isinstance(value, float) and unit not in ("", "int"):
+        try:
+            return format_quantity(value, unit)
+        except (TypeError, ValueError):
+            return repr(value)
+    return "-" if value is None else str(value)
 
 
 def load_design_spec(spec: str):
@@ -105,12 +140,15 @@ def diff_designs(a_spec: str, b_spec: str, *, run: bool = True) -> DesignDiff:
         keys = list(va) + [k for k in vb if k not in va]
         metrics = tuple((k, va.get(k), vb.get(k)) for k in keys)
         settled = (bool(ma.get("settled")), bool(mb.get("settled")))
-    return DesignDiff(a_spec, b_spec, (sa.ropt_ohm, sb.ropt_ohm), tuple(rows), metrics, settled)
+    return DesignDiff(a_spec, b_spec, (sa.ropt_ohm, sb.ropt_ohm), tuple(rows), metrics, settled,
+                      input_differences(da, db))
 
 
 def format_diff(diff: DesignDiff, *, changed_only: bool = False) -> str:
     """Text tables of a :class:`DesignDiff` (components, then metrics)."""
     lines = [f"a: {diff.a_label}", f"b: {diff.b_label}", ""]
+    if diff.inputs:
+        lines += _columns([("input", "a", "b"), *diff.inputs]) + [""]
     table = [("component", "unit", "a", "b", "change")]
     ra, rb = diff.ropt_ohm
     table.append(("Ropt", "ohm", f"{ra:.6g}", f"{rb:.6g}", f"{100 * (rb - ra) / ra:+.2f}%" if ra else "-"))

@@ -11,6 +11,10 @@ piecewise-linear waveforms used here and by the results.
 
 from importlib import import_module
 
+# bound eagerly: the function ``fourier`` shares its name with the module defining it, and a later
+# ``import netgen.periodic.fourier`` (first load) would otherwise leave the module in its place
+from .fourier import fourier  # noqa: F401
+
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
@@ -21,6 +25,8 @@ _EXPORTS = {
     "fourier_pwl": "fourier",
     "periods_in": "fourier",
     "pwl_mean_square": "fourier",
+    "pwl_mean_product": "fourier",
+    "pwl_point_energy": "fourier",
     "simulate": "steady",
     "simulate_netlist": "steady",
     "with_initial_state": "initial_state",

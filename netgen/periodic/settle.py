@@ -16,9 +16,9 @@ import numpy as np
 
 from netgen import simulator
 
-from .fourier import fourier_pwl, pwl_mean_square
+from .fourier import _clip_window, fourier_pwl, pwl_mean_product, pwl_mean_square
 
-__all__ = ["judge", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
+__all__ = ["judge", "settle_hint", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
            "Z_CHANGE_TOL", "Z_SCALE_FRACTION", "Z_CURRENT_FLOOR", "NOISE_FRACTION", "NOISE_SIGMAS",
            "PEAK_TOL", "ANCHOR_Z_TOL"]
 
@@ -78,7 +78,8 @@ def _scatter(x: np.ndarray) -> float:
 
 def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
           min_cycles: int, iwaves: np.ndarray | None = None,
-          anchor: Anchor | None = None, peaks: dict | None = None) -> tuple[bool, str]:
+          anchor: Anchor | None = None, peaks: dict | None = None,
+          pin_w: np.ndarray | None = None) -> tuple[bool, str]:
     """Decide from per-cycle values whether the run has settled.
 
     Parameters
@@ -118,6 +119,13 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         cycles, median 2.66, the smooth waveform 2.09) or only after ~100 cycles
         (class_f_feed.toml: 2.0-2.9 Vdd, then 1.98); the outputs give their range and a warning
         instead (netgen.results.analysis.design_warnings).
+    pin_w : ndarray, optional
+        Each cycle's drive power delivered into the device input, W (driven devices). A run whose
+        last window puts more power into the load than the supply and the drive deliver
+        (mean Pload > mean Pdc + mean Pin) is not settled, whatever the trends: in a periodic state
+        of a passive network energy is conserved (Tellegen's theorem, any circuit-theory
+        textbook), so the surplus is energy stored in the network still leaving it, and the
+        efficiency would read above 100 %.
 
     Returns
     -------
@@ -137,7 +145,7 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
     """
     n = min(len(v) for v in series.values()) if series else 0
     if n < max(min_cycles, 6):
-        return False, f"{n} cycles, fewer than the {max(min_cycles, 6)} needed to judge"
+        return False, f"only {n} cycles were simulated, fewer than the {max(min_cycles, 6)} needed to judge"
     w = max(2, n // 6)
     spread = NOISE_SIGMAS * math.sqrt(2.0 / w)  # standard errors of a difference of two w-cycle means
     predicted = {"pdc_w": anchor.pdc_w, "pload_w": anchor.pload_w} if anchor is not None else {}
@@ -169,8 +177,16 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         if rel > worst:
             worst_name, worst = name, rel
     if worst >= tol:
-        return False, (f"{worst_name} still changing: predicted remaining change {worst:.2g} "
-                       f"(relative) over windows of {w} cycles, tolerance {tol:g}")
+        return False, _still_changing(worst_name, worst, w, tol)
+    if "pdc_w" in series and "pload_w" in series:
+        supplied = float(np.mean(series["pdc_w"][-w:]))
+        if pin_w is not None and len(pin_w) >= w:
+            supplied += max(float(np.mean(pin_w[-w:])), 0.0)
+        surplus = float(np.mean(series["pload_w"][-w:])) - supplied
+        if surplus > 0.0:
+            return False, (f"the load took {surplus / max(abs(supplied), 1e-30):.2g} more power (relative) than "
+                           f"the supply delivered over the last {w} cycles, so energy stored in the network is "
+                           "still leaving it")
     if waves is not None and len(waves) >= 2 * w:
         # drain waveform judged on its first harmonics (DC..5f0), which do not jitter with
         # the position of the switching edges on the sampling grid
@@ -180,7 +196,7 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         change = float(np.sqrt(np.sum(np.abs(b - a) ** 2))) / scale
         allowed = max(tol, spread * _scatter(waves[-2 * w:]) / scale) if on_orbit else tol
         if change >= allowed:
-            return False, f"drain waveform still changing ({change:.2g} relative), tolerance {allowed:.2g}"
+            return False, f"the drain waveform is still changing ({change:.2g} relative, tolerance {allowed:.2g})"
         if iwaves is not None and len(iwaves) >= 2 * w:
             ia = iwaves[-2 * w:-w].mean(axis=0)
             ib = iwaves[-w:].mean(axis=0)
@@ -200,8 +216,8 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
                     if np.isfinite(sigma) and near:
                         ztol = max(ztol, spread * sigma / scale)
                 if zchange >= ztol:
-                    return False, (f"drain impedance at {k} f0 still changing ({zchange:.2g} relative "
-                                   f"between windows of {w} cycles), tolerance {ztol:.2g}")
+                    return False, (f"the drain impedance at {k} f0 is still changing ({zchange:.2g} relative "
+                                   f"between windows of {w} cycles, tolerance {ztol:.2g})")
     for name, values in (peaks or {}).items() if not on_orbit else ():
         x = np.asarray(values, dtype=float)
         if len(x) < 2 * w:
@@ -211,9 +227,23 @@ def judge(series: dict[str, np.ndarray], waves: np.ndarray | None, tol: float,
         if abs(pb - pa) <= PEAK_TOL * scale:
             continue
         what = "drain voltage" if name.startswith("vd") else "drain current"
-        return False, (f"peak {what} still changing ({(pb - pa) / scale:+.2g} relative between windows of "
-                       f"{w} cycles), tolerance {PEAK_TOL:g}")
+        return False, (f"the peak {what} is still changing ({(pb - pa) / scale:+.2g} relative between windows of "
+                       f"{w} cycles, tolerance {PEAK_TOL:g})")
     return True, f"settled after {n} cycles (predicted remaining change {worst:.1e} relative)"
+
+
+_WHAT = {"pdc_w": "DC power", "pload_w": "load power"}
+
+
+def _still_changing(name: str, worst: float, w: int, tol: float) -> str:
+    """The judge's reason for a power still changing, in words (an infinite prediction means the
+    windows did not decay geometrically: a drift too slow to extrapolate)."""
+    what = _WHAT.get(name, name)
+    if math.isfinite(worst):
+        return (f"the {what} is still changing: about {worst:.2g} (relative) of change is predicted to come, "
+                f"judged over windows of {w} cycles against a tolerance of {tol:g}")
+    return (f"the {what} is still changing: successive windows of {w} cycles keep moving one way, too slowly "
+            f"to predict where it ends (tolerance {tol:g})")
 
 
 @dataclass
@@ -233,6 +263,8 @@ class SettleCheck:
     points: int = 256  # unused since the cycle integrals became exact (fourier_pwl); kept for callers
     pdc_w: list = field(default_factory=list)
     pload_w: list = field(default_factory=list)
+    #: drive power into the device input per cycle, W (driven devices only)
+    pin_w: list = field(default_factory=list)
     idrain_a: list = field(default_factory=list)
     waves: list = field(default_factory=list)
     iwaves: list = field(default_factory=list)
@@ -258,7 +290,7 @@ class SettleCheck:
 
     def _append(self, vecs) -> None:
         names = {"time": "time", "drain": "drain", "load": "load", "supply": "vdd#branch",
-                 "idrain": "vidrain#branch"}
+                 "idrain": "vidrain#branch", "gate": "gate", "igate": "vdrive#branch"}
         names.update({f"x:{v}": v for v in self.extra})
         new = {k: np.asarray(vecs[v], dtype=float) for k, v in names.items() if v in vecs}
         if self._buf is None:
@@ -288,6 +320,9 @@ class SettleCheck:
             self.pdc_w.append(-self.vdd_v * float(c["supply"][0].real))
             self.pload_w.append(pwl_mean_square(tb, buf["load"], t_a, t_b) / self.rload_ohm)
             self.waves.append(c["drain"])
+            if "gate" in buf and "igate" in buf:
+                tg, xg = _clip_window(tb, np.array([buf["gate"], buf["igate"]]), t_a, t_b)
+                self.pin_w.append(-pwl_mean_product(tg, xg[0], xg[1]))
             cyc = window_peaks(tb, {"drain": buf["drain"], **({"vidrain#branch": buf["idrain"]} if "idrain" in buf else {})},
                                t_a, t_b)
             for key in ("vd_max_v", "id_max_a"):
@@ -309,13 +344,15 @@ class SettleCheck:
                         np.array(self.waves[j:]) if self.waves[j:] else None, self.tol,
                         max(self.min_cycles - j, self.judge_min_after) if j else self.min_cycles,
                         np.array(self.iwaves[j:]) if len(self.iwaves) == len(self.waves) and self.iwaves[j:] else None,
-                        self.anchor, {k: np.array(v[j:]) for k, v in self.peaks.items()})
+                        self.anchor, {k: np.array(v[j:]) for k, v in self.peaks.items()},
+                        np.array(self.pin_w[j:]) if len(self.pin_w) == len(self.pdc_w) and self.pin_w[j:] else None)
         if ok and j:
             why = f"settled after {n} cycles ({n - j} judged after the last bias correction; {why.split('(', 1)[-1]}"
         self.settled, self.reason = ok, why
         pdc = self.pdc_w[-1] if self.pdc_w else float("nan")
         pl = self.pload_w[-1] if self.pload_w else float("nan")
-        message = f"cycle {n}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
+        change = abs(self.pdc_w[-1] - self.pdc_w[-2]) / max(abs(self.pdc_w[-1]), 1e-30) if n >= 2 else float("nan")
+        message = f"cycle {n}, change {change:.1e}: Pdc {pdc:.5g} W, Pload {pl:.5g} W; {why}"
         if self.release is not None:
             action, self.release = self.release, None
             if not ok:
@@ -359,3 +396,35 @@ def window_peaks(t: np.ndarray, vecs, start_s: float, end_s: float) -> dict[str,
         peaks[f"{key}_max_{unit}"] = float(values.max())
         peaks[f"{key}_min_{unit}"] = float(values.min())
     return peaks
+
+
+def settle_hint(reason: str, *, settle_tol: float, max_cycles: int, warm: bool, periodic: bool,
+                bias_nulled: bool = False) -> str:
+    """What to change when a run did not settle, from the cause the judge saw (its ``reason``).
+
+    Returns one or two sentences naming the keys to change: the judge's reasons are written by
+    :func:`judge` in this module, so the classification below follows them.
+    """
+    tight = settle_tol < 1e-3
+    tol_note = (f" sim.settle_tol = {settle_tol:g} is tighter than the default 0.001; loosen it if that "
+                "precision is not needed.") if tight else ""
+    if "fewer than the" in reason:
+        return f"The run was too short to be judged: raise sim.max_cycles (now {max_cycles})."
+    if "energy stored in the network" in reason:
+        return ("A high-Q network was still giving back the energy of its start-up: raise sim.max_cycles "
+                f"(now {max_cycles}) or sim.min_cycles." + tol_note)
+    if "impedance at" in reason or "drain waveform" in reason or "peak drain" in reason:
+        return ("The harmonics scatter from cycle to cycle (narrow switching edges on a lightly damped line or "
+                "resonator): raise sim.average_periods and sim.max_cycles, or give the switch a finite "
+                "device.transition or device.cout." + tol_note)
+    if "power is still changing" in reason:
+        if not warm:
+            return ("A slow mode is still decaying from the cold start: set sim.warm_start = true, or raise "
+                    f"sim.max_cycles (now {max_cycles})." + tol_note)
+        if not periodic:
+            what = "the bias mode of the DC feed and block (nulled at the start)" if bias_nulled else \
+                "the bias mode of the DC feed and block"
+            return (f"A slow mode, most likely {what}, is still decaying: raise sim.max_cycles (now {max_cycles}), "
+                    "or give network.feed_l and network.block_c values with a faster bias resonance." + tol_note)
+        return (f"A slow mode is still decaying: raise sim.max_cycles (now {max_cycles})." + tol_note)
+    return f"Raise sim.max_cycles (now {max_cycles})." + tol_note

@@ -74,6 +74,7 @@ from .settle import (  # noqa: F401  (re-exported for callers and tests)
     Anchor,
     SettleCheck,
     judge,
+    settle_hint,
     window_peaks,
 )
 
@@ -81,7 +82,7 @@ from .settle import (  # noqa: F401  (re-exported for callers and tests)
 # re-exported: callers and tests reach them as netgen.periodic.steady.*
 __all__ = ["simulate", "simulate_netlist", "SettleCheck", "Anchor", "BiasNulling", "AuxSource", "with_aux_sources", "judge",
            "dc_initial_conditions",
-           "netlist_elements", "window_peaks", "window_fourier", "FOURIER_VECTORS"]
+           "netlist_elements", "window_peaks", "window_fourier", "window_points", "FOURIER_VECTORS"]
 
 #: cycles per chunk (ngspice stop/resume); small chunks stop sooner, large ones cost less overhead
 CHUNK_CYCLES = 5
@@ -187,6 +188,38 @@ def window_fourier(t: np.ndarray, vecs, start_s: float, period_s: float, periods
     return dict(zip(keys, coeffs))
 
 
+#: Waveforms.i key -> (saved branch vector, sign)
+_CURRENTS = {"drain": ("vidrain#branch", 1.0), "switch": ("visw#branch", 1.0),
+             "supply": ("vdd#branch", -1.0), "gate": ("vdrive#branch", -1.0)}
+
+
+def window_points(t: np.ndarray, vecs, nodes: list[str], start_s: float, end_s: float) -> dict:
+    """The simulator's own points over [start_s, end_s] (both ends interpolated), for exact integrals.
+
+    Returns ``t_s`` (s, from ``start_s``), ``v:<node>`` for every saved node and ``i:<name>``
+    for the currents of :class:`netgen.design.records.Waveforms` (same signs), or ``{}`` when the
+    points do not cover the window.
+    """
+    t = np.asarray(t, dtype=float)
+    if t.size < 2 or t[0] > start_s + 1e-4 * (end_s - start_s) or t[-1] < end_s * (1 - 1e-12):
+        return {}
+    inside = (t > start_s) & (t < end_s)
+    tw = np.concatenate(([start_s], t[inside], [end_s]))
+
+    def cut(y) -> np.ndarray:
+        y = np.asarray(y, dtype=float)
+        return np.concatenate((np.interp([start_s], t, y), y[inside], np.interp([end_s], t, y)))
+
+    out = {"t_s": tw - start_s}
+    for n in nodes:
+        if n in vecs:
+            out[f"v:{n}"] = cut(vecs[n])
+    for key, (name, sign) in _CURRENTS.items():
+        if name in vecs:
+            out[f"i:{key}"] = sign * cut(vecs[name])
+    return out
+
+
 def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: float, vdd_v: float,
                      sim: SimSpec | None = None, make_op: Callable[[float], str] | None = None,
                      idc_est_a: float | None = None, progress: Callable[[str], None] | None = None,
@@ -286,6 +319,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     k_avail = int(math.floor((end_cycles * T - t_all[0]) / T * (1 + 1e-9)))
     k_f = max(2, min(sim.average_periods, k_avail - k_avail % 2))
     coeffs = window_fourier(t_all, vecs, (end_cycles - k_f) * T, T, k_f, int(sim.harmonics))
+    points = window_points(t_all, vecs, nodes, (end_cycles - k_f) * T, end_cycles * T)
     settled = bool(check.settled)
     if state is not None:
         vl = state.series["load"]
@@ -306,11 +340,12 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     if settled:
         note = check.reason + how
     else:
-        note = (f"not settled within sim.max_cycles = {sim.max_cycles}: {check.reason}{how}; "
-                "raise sim.max_cycles" + ("" if warm else " or set sim.warm_start = true"))
+        hint = settle_hint(check.reason, settle_tol=sim.settle_tol, max_cycles=sim.max_cycles, warm=warm,
+                           periodic=state is not None, bias_nulled=bool(sources))
+        note = f"not settled within sim.max_cycles = {sim.max_cycles}{how}; {check.reason}. {hint}"
     return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
                      history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
-                     note=note, peaks=peaks, fourier=coeffs, start=start)
+                     note=note, peaks=peaks, fourier=coeffs, start=start, points=points)
 
 
 def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = None,

@@ -23,7 +23,7 @@ import numpy as np
 
 from netgen.errors import SimulationError
 from netgen.netlist import parse_spice_number
-from netgen.periodic import fourier, periods_in
+from netgen.periodic import fourier, periods_in, pwl_mean_product, pwl_point_energy
 from netgen.synthesis import bound_for
 
 __all__ = [
@@ -32,6 +32,7 @@ __all__ = [
     "harmonic_impedance",
     "waveform_efficiency",
     "device_loss_split",
+    "bound_warning",
     "analyse",
     "Z_CURRENT_FLOOR",
 ]
@@ -111,18 +112,6 @@ def load_resistance(netlist_text: str, default_ohm: float) -> float:
     return default_ohm
 
 
-def _node_voltage(wf, node: str, element: str) -> np.ndarray:
-    if node in ("0", "gnd", "GND"):
-        return np.zeros_like(wf.t_s, dtype=float)
-    for key in (node, node.lower()):
-        if key in wf.v:
-            return np.asarray(wf.v[key], dtype=float)
-    raise SimulationError(
-        f"The waveforms have no voltage of node '{node}' of {element}, so its loss cannot be computed.",
-        hint="save every node of the RLOSS_* resistors in the transient run (netgen.periodic.steady does this for built-in templates; check the node names of a user template).",
-    )
-
-
 # ------------------------------------------------------------- device loss
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
@@ -141,7 +130,7 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 
 
 def device_loss_split(v_v: np.ndarray, i_sw_a: np.ndarray, vdd_v: float, *, model: str = "switch",
-                      ron_ohm: float = 0.2, roff_ohm: float = 1e6) -> dict:
+                      ron_ohm: float = 0.2, roff_ohm: float = 1e6, t_s: np.ndarray | None = None) -> dict:
     """Split the device dissipation mean(v x i_switch) into conduction and switching.
 
     Parameters
@@ -153,6 +142,12 @@ def device_loss_split(v_v: np.ndarray, i_sw_a: np.ndarray, vdd_v: float, *, mode
     vdd_v : float
     model, ron_ohm, roff_ohm
         The device model; the on/off test uses the switch resistances.
+    t_s : ndarray, optional
+        Time points of ``v_v`` and ``i_sw_a`` (the simulator's own, non-uniform, s). With them
+        the dissipation is the exact integral of the straight lines between the points
+        (:func:`netgen.periodic.pwl_point_energy`), so a capacitor-discharge spike a few
+        picoseconds wide counts in full at any ``sim.points_per_cycle``; without them the samples
+        are taken as a uniform grid (end excluded).
 
     Returns
     -------
@@ -175,8 +170,12 @@ def device_loss_split(v_v: np.ndarray, i_sw_a: np.ndarray, vdd_v: float, *, mode
     """
     v = np.asarray(v_v, dtype=float)
     i = np.asarray(i_sw_a, dtype=float)
-    p = v * i
-    total = float(np.mean(p))
+    if t_s is None:
+        p = v * i / v.size          # each sample's share of the mean
+    else:
+        t = np.asarray(t_s, dtype=float)
+        p = pwl_point_energy(t, v, i) / (t[-1] - t[0])
+    total = float(np.sum(p))
     if model != "switch":
         return {"device_conduction": total, "device_switching": 0.0}
     r_th = math.sqrt(ron_ohm * roff_ohm)
@@ -197,7 +196,7 @@ def device_loss_split(v_v: np.ndarray, i_sw_a: np.ndarray, vdd_v: float, *, mode
             while lead + 1 < length and seg[lead + 1] < seg[lead]:
                 lead += 1
         switching[idx[:lead]] = True
-    sw = float(np.sum(p[switching]) / n)
+    sw = float(np.sum(p[switching]))
     return {"device_conduction": total - sw, "device_switching": sw}
 
 
@@ -267,17 +266,46 @@ def _harmonic_table(V: np.ndarray, I: np.ndarray, pload_n: np.ndarray, n_h: int)
     return table
 
 
-def _loss_budget(wf, design, netlist_text: str, vd: np.ndarray, isw: np.ndarray, load_harmonics_w: float) -> dict:
+class _Window:
+    """Means over the averaged window: exact integrals of the simulator's own points
+    (``wf.points``) where the run kept them, else plain means of the uniform grid."""
+
+    def __init__(self, wf):
+        pts = getattr(wf, "points", None) or {}
+        self.exact = "t_s" in pts and len(pts["t_s"]) >= 2
+        self.t = np.asarray(pts["t_s"], dtype=float) if self.exact else None
+        self.v = {k[2:]: np.asarray(x, float) for k, x in pts.items() if k.startswith("v:")} if self.exact else wf.v
+        self.i = {k[2:]: np.asarray(x, float) for k, x in pts.items() if k.startswith("i:")} if self.exact else wf.i
+        self.t_grid = wf.t_s
+
+    def mean_product(self, x: np.ndarray, y: np.ndarray) -> float:
+        return pwl_mean_product(self.t, x, y) if self.exact else float(np.mean(x * y))
+
+    def node(self, node: str, element: str) -> np.ndarray:
+        if node in ("0", "gnd", "GND"):
+            return np.zeros_like(self.t if self.exact else self.t_grid, dtype=float)
+        for key in (node, node.lower()):
+            if key in self.v:
+                return np.asarray(self.v[key], dtype=float)
+        raise SimulationError(
+            f"The waveforms have no voltage of node '{node}' of {element}, so its loss cannot be computed.",
+            hint="save every node of the RLOSS_* resistors in the transient run (netgen.periodic.steady does this for built-in templates; check the node names of a user template).",
+        )
+
+
+def _loss_budget(win: _Window, design, netlist_text: str, load_harmonics_w: float) -> dict:
     """Every watt drawn from Vdd, by where it goes: the device (conduction, switching), each
-    ``RLOSS_*`` resistor, and the load power outside the fundamental (W)."""
+    ``RLOSS_*`` resistor, and the load power outside the fundamental (W), all over the window
+    and with the quadrature of Pdc and Pout (:class:`_Window`)."""
     dev = design.device
+    vd = win.v["drain"]
+    isw = win.i.get("switch", win.i["drain"])
     losses = device_loss_split(vd, isw, float(design.vdd_v), model=dev.model, ron_ohm=dev.ron_ohm,
-                               roff_ohm=dev.roff_ohm)
+                               roff_ohm=dev.roff_ohm, t_s=win.t)
     for name, a, b, r in _loss_elements(netlist_text):
-        va = _node_voltage(wf, a, name)
-        vb = _node_voltage(wf, b, name)
+        dv = win.node(a, name) - win.node(b, name)
         key = name[6:] if name.upper().startswith("RLOSS_") else name
-        losses[key] = float(np.mean((va - vb) ** 2) / r)
+        losses[key] = win.mean_product(dv, dv) / r
     losses["load_harmonics"] = load_harmonics_w  # load power outside the fundamental (n >= 2, DC)
     return losses
 
@@ -318,7 +346,6 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
 
     vd = np.asarray(wf.v["drain"], dtype=float)
     idr = np.asarray(wf.i["drain"], dtype=float)
-    isw = np.asarray(wf.i.get("switch", idr), dtype=float)
     vl = np.asarray(wf.v["load"], dtype=float)
     isup = np.asarray(wf.i["supply"], dtype=float)
 
@@ -336,19 +363,29 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     pload_n = np.abs(VL) ** 2 / (2.0 * rl)
     pload_n[0] = VL[0].real ** 2 / rl  # DC in the load (normally 0)
     pout = float(pload_n[1])
-    pload_total = float(np.mean(vl**2) / rl)
+    win = _Window(wf)
+    vl_w = win.v.get("load", vl)
+    pload_total = win.mean_product(vl_w, vl_w) / rl
     p1_drain = float(-0.5 * (V[1] * np.conj(I[1])).real)
 
     pin = None
-    if "gate" in wf.v and "gate" in wf.i:
-        pin = float(np.mean(np.asarray(wf.v["gate"], float) * np.asarray(wf.i["gate"], float)))
+    if "gate" in win.v and "gate" in win.i:
+        pin = win.mean_product(win.v["gate"], win.i["gate"])
 
     eff = pout / pdc if pdc > 0 else None
     pae = (pout - pin) / pdc if (pin is not None and pdc > 0) else None
-
+    if pin is not None and pin < 0:
+        pae = None  # the drive source absorbs power: no added-power figure (design_warnings says why)
     table = _harmonic_table(V, I, pload_n, n_h)
 
-    losses = _loss_budget(wf, design, netlist_text, vd, isw, pload_total - pout)
+    losses = _loss_budget(win, design, netlist_text, pload_total - pout)
+    device_w = losses["device_conduction"] + losses["device_switching"]
+    coupled_pin = pin if design.device.model == "spice" else None  # a gm gate feeds only RGIN
+    impossible = _impossible(pout, pdc, coupled_pin, device_w)
+    if impossible:
+        eff = pae = None  # never printed as a result (design_warnings says why)
+    elif eff is not None and eff > 1.0:
+        eff = 1.0  # within ROUNDING of 1: the arithmetic's own error, not a result above 1
     balance = (pdc - pout - sum(losses.values())) / pdc if pdc > 0 else None
 
     # extremes from the simulator's own time points when steady.py supplied them (the uniform
@@ -368,9 +405,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
             "load_ohm": float(rl),
             "ropt_ohm": _f(sized.ropt_ohm),
         },
-        "settled": bool(wf.settled),
+        "settled": bool(wf.settled) and not (impossible and device_w >= 0),  # energy still leaving: not settled
         "cycles": int(wf.cycles),
-        "settle_note": wf.note,
+        "settle_note": wf.note if not impossible else f"{impossible}; {wf.note}",
         "start": _start(getattr(wf, "start", None) or {}, pdc, pout),
         "pdc_w": _f(pdc),
         "idc_a": _f(idc),
@@ -388,14 +425,80 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "peak_vd_range_v": _range(peaks, "vd_max_lo_v", "vd_max_hi_v"),
         "peak_id_range_a": _range(peaks, "id_max_lo_a", "id_max_hi_a"),
         "harmonics": table,
+        "device_dissipation_w": _f(device_w),
         "losses": {k: _f(v) for k, v in losses.items()},
         "loss_balance_error": _f(balance),
         "bound": bound_for(sized),
     }
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
-    metrics["warnings"] = design_warnings(sized, metrics)
+    metrics["warnings"] = ([impossible] if impossible else []) + design_warnings(sized, metrics)
     return metrics
+
+
+#: relative surplus of load power over the supplied power taken as floating-point rounding
+ROUNDING = 1e-6
+
+
+def _impossible(pout_w: float, pdc_w: float, pin_w: float | None, device_w: float) -> str:
+    """Why the powers cannot be a periodic steady state of a real amplifier ('' when they can).
+
+    In a periodic state of a passive network fed by the supply and the drive, energy is conserved
+    (Tellegen's theorem, any circuit-theory textbook): the load cannot take more than
+    Pdc + Pin. A surplus is either a device model that delivers power (negative dissipation: an
+    ideal controlled current flowing against the voltage) or stored energy still leaving the
+    network (the run is not settled to that precision); either way the efficiency is withheld.
+    """
+    supplied = pdc_w + max(pin_w or 0.0, 0.0)
+    if pout_w <= supplied * (1.0 + ROUNDING):
+        return ""
+    eff = f" (drain efficiency would read {pout_w / pdc_w:.2%})" if pdc_w > 0 else ""
+    head = (f"the load received more power ({pout_w:.4g} W) than the supply and drive delivered "
+            f"({supplied:.4g} W){eff}, which no real amplifier does")
+    if device_w < 0:
+        return (f"{head}: the device model delivers {-device_w:.3g} W (its dissipation is negative: current "
+                "flows while the drain voltage is below zero), so the efficiency is not reported; give a "
+                "gm device a knee (device.vknee) or lower device.drive")
+    return (f"{head}: energy stored in the network was still leaving it during the averaged periods, so the "
+            "efficiency is not reported; raise sim.min_cycles or tighten sim.settle_tol")
+
+
+def bound_warning(metrics: dict, model: str) -> str:
+    """Why a simulated drain efficiency exceeds its ideal bound ('' when it does not).
+
+    The bound (netgen.synthesis.theory.bound_for) assumes an ideal device and the harmonics it
+    lists; a simulation can beat it only by breaking an assumption, and the sentence names which:
+    a device that delivers power (negative dissipation), voltage at harmonics the bound takes as
+    shorted (the real network's finite impedance there), or drive power reaching the output.
+    """
+    eff = metrics.get("drain_efficiency")
+    bound = metrics.get("bound") or {}
+    limit = bound.get("efficiency")
+    if eff is None or limit is None or eff <= limit * (1.0 + 1e-4):
+        return ""
+    why = []
+    losses = metrics.get("losses") or {}
+    device_w = (losses.get("device_conduction") or 0.0) + (losses.get("device_switching") or 0.0)
+    if device_w < 0:
+        why.append(f"the device model delivers {-device_w:.3g} W (current flows while the drain voltage is "
+                   f"{metrics.get('min_vd_v') or 0.0:.3g} V at its lowest): an ideal current source without a knee; "
+                   "set device.vknee")
+    allowed = bound.get("voltage_harmonics")
+    rows = metrics.get("harmonics") or []
+    if allowed and rows:
+        v1 = rows[0].get("vd_v") or 0.0
+        extra = [f"{r['n']}f0 ({(r.get('vd_v') or 0.0) / v1:.1%} of V1)" for r in rows[1:]
+                 if r["n"] not in allowed and v1 > 0 and (r.get("vd_v") or 0.0) > 0.01 * v1]
+        if extra:
+            why.append("the drain voltage has harmonics the bound assumes shorted, " + ", ".join(extra)
+                       + ": the real network's impedance there is not zero, so the waveform is flatter than the "
+                       "bound allows")
+    pin = metrics.get("pin_w")
+    if model == "spice" and pin:
+        why.append(f"drive power ({pin:.3g} W) reaches the output through the device")
+    reason = "; ".join(why) if why else "the simulated waveforms use freedoms the bound's assumptions exclude"
+    return (f"the drain efficiency {eff:.2%} exceeds the ideal bound {limit:.2%} ({bound.get('name', '')}) because "
+            f"{reason}")
 
 
 #: per-period drain peaks spreading by more than this fraction over the averaged periods are said
@@ -411,6 +514,15 @@ def design_warnings(sized, metrics: dict) -> list[str]:
         out.append("an abrupt switch with no output capacitance interrupts current into a transmission line: "
                    "the drain peak includes edge spikes the time step does not resolve; set device.cout "
                    "(or device.transition) for a trustworthy peak voltage")
+    beat = bound_warning(metrics, d.device.model)
+    if beat:
+        out.append(beat)
+    pin = metrics.get("pin_w")
+    if pin is not None and pin < 0:
+        out.append(f"the drive power Pin is negative ({pin:.3g} W): over a period the drive source absorbs power fed "
+                   "back from the drain through the device's gate-drain coupling, so PAE is not reported (it would "
+                   "exceed the drain efficiency); drive the gate through a source resistance or a matching network "
+                   "to measure a real input power")
     balance = metrics.get("loss_balance_error")
     if balance is not None and abs(balance) > 0.01:
         out.append(f"the loss budget misses {balance:+.1%} of Pdc: raise sim.points_per_cycle for a closer balance")

@@ -285,9 +285,11 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                  f"f0 {_e(_si(design.f0_hz, 'Hz'))} &middot; Vdd {_e(_si(design.vdd_v, 'V'))} &middot; "
                  f"load {_e(_si(d.get('load_ohm', design.load_ohm), 'ohm'))} &middot; Ropt {_e(_si(sized.ropt_ohm, 'ohm'))}</p>")
     if not settled:
+        note = (metrics.get("settle_note") or "").strip()
+        note = note[:1].upper() + note[1:]
         parts.append(f"<div class=banner id=not-settled>NOT SETTLED<small>The simulation stopped after "
-                     f"{_e(metrics.get('cycles'))} cycles before reaching periodic steady state; every number below "
-                     f"describes a transient, not the amplifier. {_e(metrics.get('settle_note') or '')}</small></div>")
+                     f"{_e(metrics.get('cycles'))} cycles, before reaching periodic steady state, so every number below "
+                     f"describes a transient, not the amplifier. {_e(note)}</small></div>")
     else:
         note = metrics.get("settle_note") or ""
         lead = "" if note.lower().startswith("settled") else f"Settled after {_e(metrics.get('cycles'))} cycles. "

@@ -20,7 +20,7 @@ from netgen.design import COMPONENT_UNITS, design_from_dict, set_dotted
 from netgen.errors import DesignError, NetgenError
 
 from .grammar import format_value
-from .plan import Evaluator, ProgressFn, SweepPlan
+from .plan import Evaluator, ProgressFn, SweepPlan, tolerance_key_value
 
 __all__ = ["run_point", "run_sweep"]
 
@@ -40,6 +40,12 @@ def _point_design(base_doc: dict, source: Path | None, point: dict, sizer: Calla
             from netgen.synthesis import size as sizer
         sized = sizer(design)
         for name, factor in point["scale"].items():
+            if "." in name:  # a design key (device.ron, design.vdd): scaled from this point's value
+                value, unit = tolerance_key_value(design, name)
+                text = format_value(value * factor, unit)
+                applied[name] = text
+                doc = set_dotted(doc, name, text)
+                continue
             if name not in sized.components:
                 raise DesignError(f"network.values.{name}: this point's design has no component '{name}' to vary.")
             comp = sized.components[name]

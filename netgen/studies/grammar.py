@@ -251,29 +251,39 @@ def parse_vswr(text: str, rl_ohm: float) -> Variation:
 
 @dataclass(frozen=True)
 class Tolerance:
-    """``pattern=pct%``: components whose kind-prefixed name (``C_tank``), element name or name (``tank_c``) match."""
+    """``pattern=pct%``.
+
+    The pattern names what varies, in the names the user sees elsewhere: a component name of
+    ``[network.values]`` (``tank_c``, ``line_z0``, ``line_td``; shell wildcards: ``*_c``,
+    ``res*``), a kind selector (``C*``, ``L*``, ``R*``, ``Z0*``, ``TD*``: every component of that
+    kind) or a numeric design key (``device.ron``, ``device.cout``, ``design.vdd``, ``design.f0``).
+    """
 
     pattern: str
     fraction: float
 
+    @property
+    def is_key(self) -> bool:
+        """Whether the pattern is a dotted design key (``device.ron``) rather than components."""
+        return "." in self.pattern
+
     def matches(self, name: str, kind: str) -> bool:
-        return any(fnmatch.fnmatchcase(form, self.pattern) for form in _name_forms(name, kind))
+        if self.is_key:
+            return False
+        if self.pattern in _KIND_SELECTORS:
+            return _KIND_SELECTORS[self.pattern] == kind
+        return fnmatch.fnmatchcase(name, self.pattern)
 
 
-def _name_forms(name: str, kind: str) -> set[str]:
-    """The names a tolerance pattern may use for a component: ``tank_l``, ``L_tank`` (kind + base),
-    and the netlist element name (``T_line`` for ``line_z0`` and ``line_td``)."""
-    base, _, suffix = name.rpartition("_")
-    base = base or name
-    forms = {name, f"{kind}_{base}"}
-    element = {"l": "L", "c": "C", "z0": "T", "td": "T"}.get(suffix)
-    if element:
-        forms.add(f"{element}_{base}")
-    return forms
+#: kind selectors of a tolerance pattern (every component of one kind)
+_KIND_SELECTORS = {"C*": "C", "L*": "L", "R*": "R", "Z0*": "Z0", "TD*": "TD"}
+
+#: design keys a tolerance may vary (numeric keys with a unit; the network is fixed by its values)
+TOLERANCE_SECTIONS = ("design", "device")
 
 
 def parse_tolerance(text: str) -> Tolerance:
-    """Parse ``--tolerance PATTERN=PCT%`` (e.g. ``C*=5%``, ``tank_l=1%``)."""
+    """Parse ``--tolerance PATTERN=PCT%`` (e.g. ``C*=5%``, ``tank_l=1%``, ``device.ron=10%``)."""
     if "=" not in text:
         raise DesignError(f"--tolerance {text!r}: write PATTERN=PERCENT, e.g. \"C*=5%\".")
     pattern, pct = (s.strip() for s in text.split("=", 1))

@@ -34,6 +34,7 @@ from netgen.design import (
 from netgen.errors import DesignError
 
 from .grammar import (
+    TOLERANCE_SECTIONS,
     Spec,
     Tolerance,
     Variation,
@@ -44,7 +45,7 @@ from .grammar import (
     yield_interval,
 )
 
-__all__ = ["SweepPlan", "make_plan", "pin_network", "summarize", "SIZING_INPUTS", "Evaluator", "ProgressFn"]
+__all__ = ["SweepPlan", "make_plan", "pin_network", "tolerance_key_value", "summarize", "SIZING_INPUTS", "Evaluator", "ProgressFn"]
 
 #: swept keys that are inputs of the sizing: sweeping them re-sizes the network at every point
 SIZING_INPUTS = ("design.pout", "design.ropt")
@@ -197,10 +198,17 @@ def make_plan(
                     frac = t.fraction
             if frac is not None:
                 comps.append((comp.name, comp.kind, frac))
+        keys = {}
         for t in tols:
-            if not any(t.matches(c.name, c.kind) for c in sized.components.values()):
-                listing = ", ".join(f"{c.kind}_{c.name}" for c in sized.components.values())
-                raise DesignError(f"--tolerance {t.pattern!r}: matches no component; the components are {listing}.")
+            if t.is_key:
+                tolerance_key_value(base, t.pattern)  # checks the key
+                keys[t.pattern] = t.fraction  # the last one given wins
+            elif not any(t.matches(c.name, c.kind) for c in sized.components.values()):
+                listing = ", ".join(c.name for c in sized.components.values())
+                raise DesignError(f"--tolerance {t.pattern!r}: matches no component; the components are {listing} "
+                                  "(kind selectors C*, L*, Z0*, TD*; design keys such as device.ron, device.cout, "
+                                  "design.vdd, design.f0).")
+        comps += [(path, "key", frac) for path, frac in keys.items()]
         rng = np.random.default_rng(int(seed))
         frac = np.array([c[2] for c in comps])
         if dist == "normal":  # the percentage is 3 sigma
@@ -230,11 +238,40 @@ def pin_network(base_doc: dict, base, sizer: Callable | None = None) -> dict:
     sized = size_fn(base)
     user = dict(base.network.values)
     doc = base_doc
+    if base.network.match_shunt == "auto":
+        # the L-section keeps the nominal orientation at every point (which side the shunt
+        # element is on would otherwise follow each point's Ropt against RL)
+        from netgen.synthesis import match_orientation
+
+        doc = set_dotted(doc, "network.match_shunt", match_orientation(sized.components))
     for comp in sized.components.values():
         if comp.name in user or comp.role == "load":
             continue
         doc = set_dotted(doc, f"network.values.{comp.name}", f"{comp.value:.12g} {COMPONENT_UNITS[comp.kind]}")
     return doc
+
+
+def tolerance_key_value(design, path: str) -> tuple[float, str]:
+    """The value (SI) and unit of the numeric design key ``path`` a tolerance varies.
+
+    Raises
+    ------
+    DesignError
+        When ``path`` is not a numeric key with a unit of ``[design]`` or ``[device]``, or has no
+        value in this design.
+    """
+    from netgen.design import SCHEMA
+
+    section, _, key = path.partition(".")
+    spec = SCHEMA.get(section, {}).get(key) if section in TOLERANCE_SECTIONS else None
+    if spec is None or spec.unit in ("str", "bool", "int", "values", "pins", "") or key in ("pout", "ropt"):
+        raise DesignError(f"--tolerance {path!r}: not a design key a tolerance can vary; use a numeric key with a "
+                          "unit of [design] or [device] (design.vdd, design.f0, design.load, device.ron, device.cout, "
+                          "...) or a component name of [network.values].")
+    value = getattr(design if section == "design" else getattr(design, section), spec.attr)
+    if value is None or not isinstance(value, (int, float)):
+        raise DesignError(f"--tolerance {path!r}: this design has no value for {path}; set it in the design file first.")
+    return float(value), spec.unit
 
 
 # ---------------------------------------------------------------- summary

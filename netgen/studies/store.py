@@ -32,13 +32,14 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Iterator
 
-from netgen.errors import OutputError
+from netgen.errors import NetgenError, OutputError
 
 __all__ = ["SweepStore", "export_csv", "KEY_COLUMNS", "STORE_NAME"]
 
 STORE_NAME = "sweep.sqlite"
 #: metrics copied into their own columns
-KEY_COLUMNS = ("drain_efficiency", "pout_w", "pdc_w", "peak_vd_v", "peak_vd_over_vdd")
+KEY_COLUMNS = ("drain_efficiency", "pae", "pout_w", "pdc_w", "pin_w", "peak_vd_v", "peak_vd_over_vdd", "min_vd_v",
+               "peak_id_a", "device_dissipation_w")
 STATUSES = ("ok", "not_settled", "failed")
 
 _SCHEMA = f"""
@@ -82,6 +83,11 @@ class SweepStore:
             self.con.execute("PRAGMA journal_mode=WAL")
             self.con.execute("PRAGMA synchronous=NORMAL")
             self.con.executescript(_SCHEMA)
+            # a store written before a key column existed gets it (NULL for its points; the metrics JSON has them)
+            have = {row[1] for row in self.con.execute("PRAGMA table_info(points)")}
+            for col in KEY_COLUMNS:
+                if col not in have:
+                    self.con.execute(f"ALTER TABLE points ADD COLUMN {col} REAL")
             self.con.commit()
         except sqlite3.DatabaseError as exc:
             raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another output folder.") from None
@@ -204,7 +210,9 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
     Columns: ``idx``, ``status``, one column per varied input (axis values,
     keys set as written when they are not an axis, e.g. ``design.load`` of a
     load circle, sample number, component overrides ``values.<name>``), the key metrics,
-    ``h1_dbc`` .. ``hN_dbc``, ``settled``, ``seconds``, ``error``.
+    ``h1_dbc`` .. ``hN_dbc``, ``z1_re_ohm``, ``z1_im_ohm`` .. (Z_n presented to the device),
+    ``settled``, ``seconds``, ``error``. Inputs are plain SI numbers with the unit in the header
+    (``values.tank_c [F]``, ``design.load [ohm]``).
     """
     from netgen.fileio import atomic_write_text
 
@@ -230,8 +238,13 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
                 value_cols.append(k)
         if r["metrics"]:
             n_harm = max(n_harm, len(r["metrics"].get("harmonics") or []))
-    header = (["idx", "status", *axis_cols, *set_cols, "sample", *(f"values.{k}" for k in value_cols),
-               *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)), "settled", "seconds", "error"])
+    units = {k: _unit_of(k, [r["inputs"].get("set", {}).get(k) for r in rows]) for k in (*axis_cols, *set_cols)}
+    vunits = {k: _unit_of("", [r["inputs"].get("values", {}).get(k) for r in rows]) for k in value_cols}
+    header = (["idx", "status", *(_head(k, units[k]) for k in (*axis_cols, *set_cols)), "sample",
+               *(_head(f"values.{k}", vunits[k]) for k in value_cols),
+               *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)),
+               *(f"z{n}_{part}_ohm" for n in range(1, n_harm + 1) for part in ("re", "im")),
+               "settled", "seconds", "error"])
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(header)
@@ -240,16 +253,65 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
         harm = m.get("harmonics") or []
         w.writerow([
             r["idx"], r["status"],
-            *(r["inputs"].get("axes", {}).get(k, "") for k in axis_cols),
-            *(r["inputs"].get("set", {}).get(k, "") for k in set_cols),
+            *(_si_cell(r["inputs"].get("axes", {}).get(k, ""), units[k]) for k in axis_cols),
+            *(_si_cell(r["inputs"].get("set", {}).get(k, ""), units[k]) for k in set_cols),
             "" if r["inputs"].get("sample") is None else r["inputs"]["sample"],
-            *(r["inputs"].get("values", {}).get(k, "") for k in value_cols),
+            *(_si_cell(r["inputs"].get("values", {}).get(k, ""), vunits[k]) for k in value_cols),
             *(_cell(m.get(c)) for c in KEY_COLUMNS),
             *(_cell(harm[n]["pload_dbc"]) if n < len(harm) else "" for n in range(n_harm)),
+            *(_cell(harm[n].get(f"z_{part}_ohm")) if n < len(harm) else ""
+              for n in range(n_harm) for part in ("re", "im")),
             "" if not r["metrics"] else int(bool(m.get("settled"))),
             f"{r['seconds']:.3f}", r["error"] or "",
         ])
     return atomic_write_text(path, buf.getvalue())
+
+
+#: units a stored input may be written in (the design keys' and the components')
+_UNITS = ("H", "F", "ohm", "s", "V", "A", "Hz", "W", "deg", "dB")
+
+
+def _unit_of(key: str, texts: list) -> str:
+    """The SI unit of an input column: from the design key's schema entry, else from its texts."""
+    from netgen.design import SCHEMA
+
+    section, _, name = key.partition(".")
+    spec = SCHEMA.get(section, {}).get(name)
+    if spec is not None and spec.unit not in ("str", "bool", "int", "values", "pins", ""):
+        return spec.unit
+    for text in texts:
+        if isinstance(text, str):
+            for unit in _UNITS:
+                if _parse(text, unit) is not None:
+                    return unit
+    return ""
+
+
+def _parse(text, unit: str) -> float | None:
+    from netgen.design import parse_quantity
+
+    try:
+        return parse_quantity(text, unit, "sweep input")
+    except (ValueError, NetgenError):
+        return None
+
+
+def _head(name: str, unit: str) -> str:
+    """A column header with its unit: ``values.tank_c [F]`` (cells are plain SI numbers)."""
+    return f"{name} [{unit}]" if unit else name
+
+
+def _si_cell(value, unit: str) -> str:
+    """An input as a plain SI number (text with a unit parsed, ``7.9 pF`` -> ``7.9e-12``)."""
+    if value is None or value == "":
+        return ""
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return repr(float(value))
+    if unit:
+        f = _parse(value, unit)
+        if f is not None:
+            return repr(f)
+    return str(value)
 
 
 def _cell(v) -> str:

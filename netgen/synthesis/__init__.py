@@ -22,6 +22,7 @@ _EXPORTS = {
     "get_topology": "topologies",
     "line_plan": "network",
     "loss_ohm": "network",
+    "match_orientation": "builder",
     "resolve_topology": "topologies",
     "size": "sizing",
     "sized_toml_text": "sizing",

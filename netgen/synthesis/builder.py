@@ -17,7 +17,7 @@ import math
 from netgen.design import Component, Design
 from netgen.errors import SizingError
 
-__all__ = ["Builder", "element_name", "ropt_from_power", "l_section", "add_series", "add_shunt", "add_load_reactance",
+__all__ = ["Builder", "element_name", "ropt_from_power", "l_section", "match_orientation", "UNSIZED", "add_series", "add_shunt", "add_load_reactance",
            "even_reactance_factor", "lumped_resonator_z", "resonator_z", "conduction_fourier", "CLASS_COEFF",
            "CLASS_SOURCE", "E_SHUNT_K", "E_EXCESS_K", "FEED_X_RATIO", "E_FEED_X_RATIO", "RESONATOR_Q_TOL", "PI",
            "C0_M_S"]
@@ -66,6 +66,10 @@ class Builder:
                 f"check the design values (set it in [network.values] to override)."
             )
         self.items.append(Component(name, kind, float(value), how, role, lossy))
+
+    def add_unsized(self, name: str, kind: str, how: str, role: str) -> None:
+        """A component the formulas cannot value (:data:`UNSIZED`); [network.values] must give it."""
+        self.items.append(Component(name, kind, UNSIZED, how, role, True))
 
     def inductor_x(self, name: str, x_ohm: float, how: str, role: str, lossy: bool = True) -> None:
         """An inductor of reactance ``x_ohm`` at f0: L = X / omega0."""
@@ -157,6 +161,21 @@ def ropt_from_power(design: Design, cls: str) -> tuple[float, float, str]:
     return a * veff**2 / design.pout_w, veff, CLASS_SOURCE[cls]
 
 
+#: a value the formulas cannot give for a fixed L-section orientation (network.match_shunt);
+#: it must come from [network.values] (netgen.synthesis.sizing checks)
+UNSIZED = math.nan
+
+
+def match_orientation(components) -> str:
+    """Where the shunt element of a sized L-section sits: ``input``, ``load`` or ``none``
+    (components in circuit order, as ``SizedDesign.components``)."""
+    names = [n for n in components if n.startswith(("match_series", "match_shunt"))]
+    shunt = [i for i, n in enumerate(names) if n.startswith("match_shunt")]
+    if not shunt:
+        return "none"
+    return "input" if shunt[0] == 0 else "load"
+
+
 def l_section(b: Builder, r_target: float, x_target: float, r_load: float, how_target: str,
               force: bool = False) -> None:
     """L-section from the load ``r_load`` to ``r_target + j x_target`` at the input (f0).
@@ -168,50 +187,70 @@ def l_section(b: Builder, r_target: float, x_target: float, r_load: float, how_t
     series element (shunt at the load) or the shunt element (shunt at the input).
     Nothing is added when the resistances agree within 1 % and ``x_target`` is zero.
     Components are added input side first (circuit order).
+
+    ``network.match_shunt`` other than ``auto`` fixes the orientation (a sized design keeps its
+    circuit whatever Ropt and RL of a sweep point); where the formulas cannot reach the target
+    with it the value is :data:`UNSIZED` and must be given in ``[network.values]``.
     """
     low = b.design.network.match == "lowpass"
     sign = 1.0 if low else -1.0
     src = f"L-section {'lowpass' if low else 'highpass'} {how_target} -> RL = {r_load:.6g} ohm (Pozar, L-section matching)"
-    if abs(r_target - r_load) <= 0.01 * r_load and not force:
-        if x_target == 0.0:
-            return
-    if abs(r_target - r_load) <= 0.01 * r_load:
-        # resistances agree: only a series element cancelling the reactance
-        xs = x_target
-        if abs(xs) > 0:
-            add_series(b, "match_series", xs, src + ", series only (R already matched)")
+    where = b.design.network.match_shunt
+    if where == "auto":
+        if abs(r_target - r_load) <= 0.01 * r_load:
+            where = "none" if (force or x_target != 0.0) else ""
+        else:
+            where = "load" if r_target < r_load else "input"
+    if not where:
         return
-    if r_target < r_load:
+    if where == "none":
+        # resistances agree: only a series element cancelling the reactance
+        if x_target != 0.0:
+            add_series(b, "match_series", x_target, src + ", series only (R already matched)")
+        return
+    if where == "load":
         # series at the input, shunt across the load
         g = 1.0 / r_load
-        q = math.sqrt(r_load / r_target - 1.0)
+        q = math.sqrt(r_load / r_target - 1.0) if r_target < r_load else UNSIZED
         bsh = sign * q / r_load  # Re{1/(G + jB)} = r_target  <=>  B = +-sqrt(G/Rt - G^2)
         im_z = -bsh / (g**2 + bsh**2)
         xs = x_target - im_z
         add_series(b, "match_series", xs, src + f", Q = {q:.4g}")
-        add_shunt(b, "match_shunt", bsh, src + f", Q = {q:.4g}")
+        add_shunt(b, "match_shunt", bsh, src + f", Q = {q:.4g}", kind="C" if low else "L")
     else:
         yt = 1.0 / complex(r_target, x_target)
         gt, bt = yt.real, yt.imag
         if 1.0 / gt < r_load:
-            raise SizingError(f"network.match: cannot reach {how_target} from RL = {r_load:g} ohm with an L-section; set the match values in [network.values].")
-        q = math.sqrt(1.0 / (gt * r_load) - 1.0)
+            if b.design.network.match_shunt == "auto":
+                raise SizingError(f"network.match: cannot reach {how_target} from RL = {r_load:g} ohm with an L-section; set the match values in [network.values].")
+            q = UNSIZED
+        else:
+            q = math.sqrt(1.0 / (gt * r_load) - 1.0)
         xs = sign * q * r_load
-        y1 = 1.0 / complex(r_load, xs)
+        y1 = 1.0 / complex(r_load, xs) if math.isfinite(xs) else complex(UNSIZED, UNSIZED)
         bsh = bt - y1.imag
         add_shunt(b, "match_shunt", bsh, src + f", Q = {q:.4g}")
-        add_series(b, "match_series", xs, src + f", Q = {q:.4g}")
+        add_series(b, "match_series", xs, src + f", Q = {q:.4g}", kind="L" if low else "C")
 
 
-def add_series(b: Builder, base: str, x_ohm: float, how: str, role: str = "match") -> None:
-    if x_ohm > 0:
+def add_series(b: Builder, base: str, x_ohm: float, how: str, role: str = "match",
+               kind: str | None = None) -> None:
+    """A series L (X > 0) or C (X < 0) of reactance ``x_ohm`` at f0; ``kind`` fixes the element where
+    X may be unknown (NaN: :data:`UNSIZED`) or of either sign."""
+    if not math.isfinite(x_ohm) or (kind is not None and (x_ohm > 0) != (kind == "L")):
+        b.add_unsized(f"{base}_{kind.lower() if kind else 'l'}", kind or "L", f"{how}: not reachable with this orientation; give it in [network.values]", role)
+    elif x_ohm > 0:
         b.add(f"{base}_l", "L", x_ohm / b.w0, f"{how}: series X = {x_ohm:.6g} ohm, L = X/omega0", role)
     else:
         b.add(f"{base}_c", "C", 1.0 / (b.w0 * -x_ohm), f"{how}: series X = {x_ohm:.6g} ohm, C = -1/(omega0 X)", role)
 
 
-def add_shunt(b: Builder, base: str, b_s: float, how: str, role: str = "match") -> None:
-    if b_s > 0:
+def add_shunt(b: Builder, base: str, b_s: float, how: str, role: str = "match",
+              kind: str | None = None) -> None:
+    """A shunt C (B > 0) or L (B < 0) of susceptance ``b_s`` at f0 (``kind`` as in :func:`add_series`)."""
+    if not math.isfinite(b_s) or b_s == 0.0 or (kind is not None and (b_s > 0) != (kind == "C")):
+        b.add_unsized(f"{base}_{kind.lower() if kind else 'c'}", kind or "C", f"{how}: not reachable with this orientation; give it in [network.values]", role)
+    elif b_s > 0:
         b.add(f"{base}_c", "C", b_s / b.w0, f"{how}: shunt B = {b_s:.6g} S, C = B/omega0", role)
     else:
         b.add(f"{base}_l", "L", 1.0 / (b.w0 * -b_s), f"{how}: shunt B = {b_s:.6g} S, L = -1/(omega0 B)", role)

@@ -42,13 +42,14 @@ import math
 from pathlib import Path
 
 from netgen.design import (
+    COMPONENT_UNITS,
     Component,
     Design,
     SizedDesign,
     format_quantity,
     parse_quantity,
 )
-from netgen.errors import DesignError
+from netgen.errors import DesignError, SizingError
 
 from .builder import (
     C0_M_S,
@@ -56,6 +57,7 @@ from .builder import (
     PI,
     Builder,
     conduction_fourier,
+    match_orientation,
     ropt_from_power,
 )
 from .network import z_drain
@@ -246,10 +248,52 @@ def _veff_how(design: Design) -> str:
     return "Vdd_eff = Vdd (user device: no drop assumed)"
 
 
+def _sibling(name: str, comps: dict[str, Component]) -> str | None:
+    """The sized component that ``name`` replaces by its other kind (``match_series_l`` for a given
+    ``match_series_c``): a reactance that changed sign when the design was re-sized keeps the
+    element the user (or the pinned network of a sweep) chose."""
+    if len(name) > 2 and name[-2:] in ("_l", "_c"):
+        other = name[:-2] + ("_c" if name.endswith("_l") else "_l")
+        if other in comps and name not in comps:
+            return other
+    return None
+
+
+def _swap_siblings(design: Design, comps: dict[str, Component]) -> dict[str, Component]:
+    """``comps`` (circuit order kept) with each sibling of a ``[network.values]`` name replaced by
+    the named kind (:func:`_sibling`)."""
+    swaps = {_sibling(n, comps): n for n in design.network.values if _sibling(n, comps)}
+    if not swaps:
+        return comps
+    out = {}
+    for name, comp in comps.items():
+        if name in swaps:
+            new = swaps[name]
+            kind = "L" if new.endswith("_l") else "C"
+            out[new] = Component(new, kind, comp.value, comp.how, comp.role, comp.lossy)
+        else:
+            out[name] = comp
+    return out
+
+
+#: name ending -> kind of a component a user template adds through [network.values]
+_USER_KINDS = {"_l": "L", "_c": "C", "_r": "R"}
+
+
 def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> dict[str, Component]:
+    comps = _swap_siblings(design, comps)
     out = dict(comps)
     for name, text in design.network.values.items():
         key = f"network.values.{name}"
+        if name not in comps and design.topology.endswith(".j2") and name[-2:] in _USER_KINDS:
+            # a component the user template adds: its kind from the name, its value from here
+            kind = _USER_KINDS[name[-2:]]
+            value = parse_quantity(text, COMPONENT_UNITS[kind], key)
+            if not (value > 0 and math.isfinite(value)):
+                raise DesignError(f"{key}: {value:g} {COMPONENT_UNITS[kind]} is not positive; give a value > 0.")
+            out[name] = Component(name, kind, value, "set in [network.values] (a component of the user template)",
+                                  "user", kind != "R")
+            continue
         if name not in comps:
             close = difflib.get_close_matches(name, list(comps), n=1, cutoff=0.4)
             hint = f"did you mean '{close[0]}'?" if close else "valid names: " + ", ".join(comps)
@@ -259,6 +303,11 @@ def _apply_overrides(design: Design, comps: dict[str, Component], topo: str) -> 
         if not (value > 0):
             raise DesignError(f"{key}: {value:g} {comp.unit} is not positive; give a value > 0.")
         out[name] = Component(name, comp.kind, value, "set in [network.values]", comp.role, comp.lossy)
+    for name, comp in out.items():
+        if not math.isfinite(comp.value):
+            raise SizingError(f"network.values.{name}: the L-section with network.match_shunt = "
+                              f"'{design.network.match_shunt}' cannot reach Ropt from RL = {design.load_ohm:g} ohm by "
+                              f"formula; give {name} in [network.values] or set network.match_shunt = 'auto'.")
     return out
 
 
@@ -281,17 +330,24 @@ def sized_toml_text(sized: SizedDesign) -> str:
             continue
         t = tomlkit.table()
         for key, value in table.items():
-            if section == "network" and key == "values":
+            if section == "network" and key in ("values", "match_shunt"):
                 continue
             t.add(key, value)
         if section == "network":
-            t.add("values", _values_table(sized))
+            _add_fixed_circuit(t, sized)
         doc.add(section, t)
     if "network" not in raw:
         t = tomlkit.table()
-        t.add("values", _values_table(sized))
+        _add_fixed_circuit(t, sized)
         doc.add("network", t)
     return tomlkit.dumps(doc)
+
+
+def _add_fixed_circuit(t, sized: SizedDesign) -> None:
+    """``match_shunt`` (the L-section's orientation as sized) and ``values``: what a loaded sized
+    file needs to give back this circuit, whatever its supply or load are edited to."""
+    t.add("match_shunt", match_orientation(sized.components))
+    t.add("values", _values_table(sized))
 
 
 def _values_table(sized: SizedDesign):

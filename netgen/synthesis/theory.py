@@ -245,7 +245,9 @@ def bound_for(sized) -> dict:
     Returns
     -------
     dict
-        ``efficiency`` (0..1 or None), ``name``, ``source``.
+        ``efficiency`` (0..1 or None), ``name`` (saying what it assumes), ``source``; where the
+        bound allows only some voltage harmonics, ``voltage_harmonics`` lists them (a simulation
+        with voltage elsewhere may beat the bound, and the analysis says so).
     """
     design = getattr(sized, "design", sized)
     topo = design.topology
@@ -259,11 +261,14 @@ def bound_for(sized) -> dict:
         n_res = int(design.network.harmonics)
         n = 2 * n_res + 1
         return {"efficiency": raab_max_efficiency(n, math.inf),
-                "name": f"class F with voltage harmonics up to {n}f0, half-sine current",
-                "source": _SRC_RAAB01 + f", n = {n}, m = infinity (linear programme)"}
+                "name": f"class F with voltage harmonics up to {n}f0, half-sine current; it assumes an ideal device and "
+                        f"zero drain impedance at every even harmonic and above {n}f0",
+                "source": _SRC_RAAB01 + f", n = {n}, m = infinity (linear programme)",
+                "voltage_harmonics": list(range(1, n + 1, 2))}
     if topo == "class_b_tuned":
-        return {"efficiency": CLASS_B_EFFICIENCY, "name": "tuned-load class B (sine voltage, half-sine current)",
-                "source": _SRC_CRIPPS}
+        return {"efficiency": CLASS_B_EFFICIENCY, "name": "tuned-load class B (sine voltage, half-sine current); it "
+                "assumes an ideal device and every harmonic shorted",
+                "source": _SRC_CRIPPS, "voltage_harmonics": [1]}
     if topo == "class_e":
         return {"efficiency": 1.0, "name": "ideal class E (zero-voltage, zero-slope switching)",
                 "source": _SRC_SOKAL}
