@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from netgen.results.analysis import analyse, device_loss_split, fourier, harmonic_impedance, parse_loss_elements, parse_spice_number, periods_in, waveform_efficiency
-from netgen.periodic.fourier import fourier_pwl, pwl_mean_square
+from netgen.periodic.pwl_fourier import fourier_pwl, pwl_mean_square
 from netgen.design.schema import Design, DeviceSpec, SimSpec
 from netgen.errors import SimulationError
 from netgen.design.records import SizedDesign, Waveforms

@@ -186,6 +186,15 @@ def test_every_room_says_what_it_takes_and_gives():
                 assert getattr(mod, name) is not None, (room, name)
 
 
+def test_no_public_name_is_also_a_module_name():
+    # importing a submodule binds its name on the package, so an exported function named like a
+    # module of its room would be replaced by that module depending on import order
+    for room in RANK:
+        if (PACKAGE / room).is_dir():
+            modules = {p.stem for p in (PACKAGE / room).glob("*.py")}
+            assert not modules & set(_exports(PACKAGE, room)), room
+
+
 def test_cli_import_pulls_in_no_heavy_library():
     # the command line starts without the simulator, plotting, cluster or scipy stacks
     code = ("import sys, netgen.cli; heavy = [m for m in ('PySpice', 'matplotlib', 'dask', 'distributed', 'scipy') "

@@ -24,7 +24,7 @@ import pytest
 from netgen.periodic import initial_state
 from netgen.netlist import cards as netlist_cards
 from netgen.periodic import estimator as pss
-from netgen.periodic.fourier import fourier_pwl
+from netgen.periodic.pwl_fourier import fourier_pwl
 from netgen.design.schema import design_from_dict, load_design
 from netgen.netlist.renderer import render
 from netgen.synthesis.sizing import size

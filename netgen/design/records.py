@@ -151,7 +151,7 @@ class Waveforms:
         The simulator's own (non-uniform) time points over the averaged window, the same window
         as ``fourier``: ``t_s`` (s, from the window start) and ``v:<node>`` / ``i:<name>`` with
         the names and signs of ``v`` and ``i``. The analysis integrates powers and losses over
-        them exactly (piecewise-linear, netgen.periodic.fourier) so that Pdc, Pout and every
+        them exactly (piecewise-linear, netgen.periodic.pwl_fourier) so that Pdc, Pout and every
         loss share one window and one quadrature. Empty when not available (the uniform grid
         is used).
     """

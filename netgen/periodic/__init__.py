@@ -5,15 +5,15 @@ periods with the settled flag, the judge's history and how the run started. ``si
 one entry point: it computes the periodic state directly (``estimator``), writes it back into the
 netlist as initial conditions (``initial_state``), runs ngspice in chunks while the judge
 (``settle``) decides, and falls back to a DC start with bias-mode nulling (``bias_nulling``)
-where the estimate does not apply. ``fourier`` holds the exact Fourier integrals of
+where the estimate does not apply. ``pwl_fourier`` holds the exact Fourier integrals of
 piecewise-linear waveforms used here and by the results.
 """
 
 from importlib import import_module
 
 # bound eagerly: the function ``fourier`` shares its name with the module defining it, and a later
-# ``import netgen.periodic.fourier`` (first load) would otherwise leave the module in its place
-from .fourier import fourier  # noqa: F401
+# ``import netgen.periodic.pwl_fourier`` (first load) would otherwise leave the module in its place
+from .pwl_fourier import fourier  # noqa: F401
 
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
@@ -21,12 +21,12 @@ _EXPORTS = {
     "PeriodicState": "estimator",
     "dc_initial_conditions": "bias_nulling",
     "estimate": "estimator",
-    "fourier": "fourier",
-    "fourier_pwl": "fourier",
-    "periods_in": "fourier",
-    "pwl_mean_square": "fourier",
-    "pwl_mean_product": "fourier",
-    "pwl_point_energy": "fourier",
+    "fourier": "pwl_fourier",
+    "fourier_pwl": "pwl_fourier",
+    "periods_in": "pwl_fourier",
+    "pwl_mean_square": "pwl_fourier",
+    "pwl_mean_product": "pwl_fourier",
+    "pwl_point_energy": "pwl_fourier",
     "simulate": "steady",
     "simulate_netlist": "steady",
     "with_initial_state": "initial_state",

@@ -16,7 +16,7 @@ import numpy as np
 
 from netgen import simulator
 
-from .fourier import _clip_window, fourier_pwl, pwl_mean_product, pwl_mean_square
+from .pwl_fourier import _clip_window, fourier_pwl, pwl_mean_product, pwl_mean_square
 
 __all__ = ["judge", "settle_hint", "SettleCheck", "Anchor", "window_peaks", "HARMONICS_JUDGED", "LATE_CHUNK_CYCLES",
            "Z_CHANGE_TOL", "Z_SCALE_FRACTION", "Z_CURRENT_FLOOR", "NOISE_FRACTION", "NOISE_SIGMAS",

@@ -60,7 +60,7 @@ from .bias_nulling import (
     dc_initial_conditions,
     with_aux_sources,
 )
-from .fourier import fourier_pwl
+from .pwl_fourier import fourier_pwl
 from .settle import (  # noqa: F401  (re-exported for callers and tests)
     ANCHOR_Z_TOL,
     HARMONICS_JUDGED,
