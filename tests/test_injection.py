@@ -507,3 +507,58 @@ def test_spiceinit_in_working_or_home_folder_is_not_run(backend, tmp_path, monke
         engine.shutdown()
     assert abs(res["out"] - 5.0) < 1e-9  # the run itself works (Ohm's law: 10 V halved)
     assert not any(m.exists() for m in markers)
+
+
+# ------------------------------------------------------------ bounded work of templates
+
+RUNAWAY_TEMPLATES = {
+    "loop_1e10": "{% for i in range(100000) %}{% for j in range(100000) %}{% endfor %}{% endfor %}",
+    "loop_over_list": "{% set a = [0] * 100000 %}{% for i in a %}{% for j in a %}{% endfor %}{% endfor %}",
+    "string_times_1e10": "{{ 'x' * 10**10 }}",
+    "list_times_1e9": "{{ ([1] * 10**9) | length }}",
+    "huge_power": "{{ 10 ** (10 ** 10) }}",
+    "power_of_power": "{% set x = 2 ** 4000 %}{{ x ** 4000 }}",
+    "squaring_loop": "{% set ns = namespace(x=3) %}{% for i in range(100) %}{% set ns.x = ns.x * ns.x %}{% endfor %}",
+    "doubling_with_tilde": ("{% set ns = namespace(s='x') %}{% for i in range(60) %}{% set ns.s = ns.s ~ ns.s %}"
+                            "{% endfor %}{{ ns.s | length }}"),
+    "doubling_with_plus": "{% set ns = namespace(s='x') %}{% for i in range(60) %}{% set ns.s = ns.s + ns.s %}{% endfor %}",
+    "center_filter": "{{ 'x' | center(10**9) }}",
+    "center_method": "{{ 'x'.center(10**9) }}",
+    "format_width": "{{ '{:>9999999999}'.format(1) }}",
+    "percent_width": "{{ '%9999999999d' % 1 }}",
+    "format_filter_width": "{{ '%9999999999d' | format(1) }}",
+    "replace_blowup": "{% set s = 'x' * 1000000 %}{{ s.replace('x', s) }}",
+    "join_blowup": "{% set s = 'x' * 1000000 %}{{ ([s] * 1000) | join }}",
+    "output_flood": "{% set s = 'x' * 1000000 %}{% for i in range(100000) %}{{ s }}{% endfor %}",
+    "flood_into_a_block": "{% set s = 'x' * 1000000 %}{% set b %}{% for i in range(100000) %}{{ s }}{% endfor %}{% endset %}",
+    "literal_text_flood": "{% for i in range(100000) %}" + "y" * 5000 + "{% endfor %}",
+    "macro_recursion": "{% macro f(n) %}{{ f(n + 1) }}{% endmacro %}{{ f(0) }}",
+    "recursive_loop": "{% for x in [1, 1] recursive %}{{ loop([1, 1]) }}{% endfor %}",
+}
+
+
+@pytest.mark.parametrize("case", list(RUNAWAY_TEMPLATES))
+def test_runaway_template_stops_with_one_line(case, tmp_path):
+    # Protection: netgen/netlist/sandbox.py (work budget, size limits checked before the value
+    # is built, output limit) and the renderer's MemoryError/RecursionError mapping.
+    design = load_design(user_template(tmp_path, RUNAWAY_TEMPLATES[case]))
+    with pytest.raises(RenderError, match=r"^template user\.j2: .*exceeded") as err:
+        render(size(design), mode="tran")
+    assert "\n" not in str(err.value)
+
+
+def test_runaway_template_through_the_cli(tmp_path, netgen_cli):
+    code, out, err = netgen_cli("run", user_template(tmp_path, RUNAWAY_TEMPLATES["loop_1e10"]), "-o", tmp_path / "o")
+    assert code == 2 and err.count("\n") == 1 and err.startswith("Error: template user.j2: work limit")
+    assert not (tmp_path / "o").exists()
+
+
+def test_bounded_sandbox_keeps_ordinary_template_features(tmp_path):
+    # Positive control: loops, macros, '~', '*', '**', format and filters of ordinary size work,
+    # and the operators give Python's results (10 ** 3 = 1000, 'ab' * 2 = 'abab').
+    body = ("{% macro r(name, a, b, v) %}R{{ name }} {{ a }} {{ b }} {{ v | n }}{% endmacro %}"
+            "{% for k in range(3) %}{{ r('x' ~ k, 'n' ~ k, 0, 10 ** 3 * (k + 1)) }}\n{% endfor %}"
+            "* {{ 'ab' * 2 }} {{ '%05.1f' % 2.5 }} {{ '{:>4}'.format('z') }} {{ [3, 1, 2] | sort | join(',') }}\n")
+    text = render(size(load_design(user_template(tmp_path, body))), mode="tran")
+    assert "Rx0 n0 0 1000" in text and "Rx2 n2 0 3000" in text
+    assert "* abab 002.5    z 1,2,3" in text

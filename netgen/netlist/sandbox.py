@@ -43,7 +43,9 @@ MAX_INT_BITS = 4096
 #: largest output of one render, characters
 MAX_OUTPUT_CHARS = 10_000_000
 
-_WIDTH = re.compile(r"(\d{7,})")
+#: a width or precision of a million or more in a str.format field / a %-format (or a '*' one)
+_FMT_WIDTH = re.compile(r"\{[^{}]*:[^{}]*\d{7,}[^{}]*\}")
+_PCT_WIDTH = re.compile(r"%[-+ #0]*(\d{7,}|\*)|%[-+ #0]*\d*\.(\d{7,}|\*)")
 
 
 class LimitExceeded(Exception):
@@ -116,7 +118,7 @@ def _check_args(args, kwargs) -> None:
     for a in list(args) + list(kwargs.values()):
         if isinstance(a, int) and not isinstance(a, bool) and abs(a) > MAX_ITEMS:
             raise LimitExceeded(f"argument limit of {MAX_ITEMS} exceeded (a width or count of {a})")
-        if isinstance(a, str) and "{" in a and _WIDTH.search(a):
+        if isinstance(a, str) and "{" in a and _FMT_WIDTH.search(a):
             raise LimitExceeded(f"argument limit of {MAX_ITEMS} exceeded (a format width)")
 
 
@@ -135,7 +137,7 @@ def _binop_estimate(op: str, left, right) -> None:
     if op == "+" and not ints and _size(left) + _size(right) > MAX_ITEMS:
         raise LimitExceeded(f"size limit of {MAX_ITEMS} items exceeded (a concatenation)")
     if op == "%" and isinstance(left, str):
-        if "*" in left or _WIDTH.search(left):
+        if _PCT_WIDTH.search(left):
             raise LimitExceeded(f"argument limit of {MAX_ITEMS} exceeded (a '%' format width)")
 
 
@@ -190,9 +192,16 @@ def _wrap_filter(func):
 
     skip = 2 if getattr(func, "jinja_pass_arg", None) is not None else 1  # context/environment, value
 
+    name = getattr(func, "__name__", "")
+
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         _check_args(args[skip:], kwargs)
+        value = args[skip - 1] if len(args) >= skip else None
+        if name == "do_format" and isinstance(value, str):
+            _binop_estimate("%", value, None)
+        if name == "do_join" and isinstance(value, (list, tuple)) and sum(_size(x) for x in value) > MAX_ITEMS:
+            raise LimitExceeded(f"size limit of {MAX_ITEMS} items exceeded (a join)")
         _budget().charge(ITERATION_COST)
         return _check_value(func(*args, **kwargs))
 
@@ -213,6 +222,12 @@ class BoundedEnvironment(SandboxedEnvironment):
 
     def _parse(self, source, name, filename):
         return _Rewrite().visit(super()._parse(source, name, filename))
+
+    def wrap_str_format(self, value):
+        f_self = getattr(value, "__self__", None)
+        if isinstance(f_self, str) and getattr(value, "__name__", "") in ("format", "format_map"):
+            _check_args([f_self], {})  # a huge field width would build the string first
+        return super().wrap_str_format(value)
 
     def call_binop(self, context, operator, left, right):
         _budget().charge(ITERATION_COST)
