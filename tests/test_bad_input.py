@@ -188,7 +188,34 @@ def gen_spice_include_name_too_long(tmp):
     return p, ["device.include"]
 
 
-GENERATED = [gen_empty, gen_whitespace_only, gen_not_utf8, gen_utf16, gen_nul_byte, gen_huge, gen_missing,
+def gen_100k_keys(tmp):
+    # 10^5 keys in a free-form section (0.9 MB, under the size limit): today a 60 s+ hang
+    p = tmp / "many_keys.toml"
+    p.write_text(_valid_text() + "[meta]\n" + "".join(f"k{i}=1\n" for i in range(100_000)))
+    return p, ["many_keys.toml", "more than 5000 keys", "limit exceeded"]
+
+
+def gen_deep_tables(tmp):
+    # a dotted table header 3000 levels deep: was a RecursionError ("Internal error")
+    p = tmp / "deep_tables.toml"
+    p.write_text(_valid_text() + "[meta." + ".".join(f"t{i}" for i in range(3000)) + "]\n")
+    return p, ["deep_tables.toml", "nested deeper than 8 levels", "limit exceeded"]
+
+
+def gen_deep_arrays(tmp):
+    # arrays nested 5000 deep: the TOML parser itself would recurse past Python's limit
+    p = tmp / "deep_arrays.toml"
+    p.write_text(_valid_text() + "[meta]\na = " + "[" * 5000 + "]" * 5000 + "\n")
+    return p, ["deep_arrays.toml", "brackets nested", "limit", "exceeded"]
+
+
+def gen_deep_inline_tables(tmp):
+    p = tmp / "deep_inline.toml"
+    p.write_text(_valid_text() + "[meta]\na = " + "{b = " * 3000 + "1" + "}" * 3000 + "\n")
+    return p, ["deep_inline.toml", "brackets nested", "exceeded"]
+
+
+GENERATED = [gen_100k_keys, gen_deep_tables, gen_deep_arrays, gen_deep_inline_tables, gen_empty, gen_whitespace_only, gen_not_utf8, gen_utf16, gen_nul_byte, gen_huge, gen_missing,
              gen_folder, gen_fifo, gen_name_too_long, gen_newline_in_file_name, gen_symlink_loop,
              gen_spice_include_is_folder, gen_spice_include_name_too_long]
 
