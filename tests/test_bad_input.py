@@ -287,3 +287,116 @@ def test_real_process_prints_one_line(stem, tmp_path):
                           env={**os.environ, "NETGEN_DEBUG": ""})
     assert_clean_error(proc.returncode, proc.stdout, proc.stderr, expected_fragments(case))
     assert not (tmp_path / "o").exists()
+
+
+# ------------------------------------------------------------ every corpus case, every command
+
+@pytest.mark.parametrize("command", ["render", "run", "sweep"])
+def test_every_bad_case_exits_2_without_internal_error(command, tmp_path, netgen_cli):
+    # An internal error is a bug: each file of tests/data/bad gives exit code 2 and one
+    # 'Error:' line through every command that reads a design.
+    extra = ["--vary", "design.vdd=20V:28V:3", "--list"] if command == "sweep" else []
+    for case in CORPUS:
+        out_dir = tmp_path / case.stem
+        code, out, err = netgen_cli(command, case, *extra, "-o", out_dir)
+        assert "Internal error" not in err, (case.name, err)
+        assert_clean_error(code, out, err, [])
+        assert not out_dir.exists(), case.name
+
+
+# ------------------------------------------------------------ studies: options and stores
+
+STUDY_DOC = {"design": {"name": "bench_b", "topology": "class_b_tuned", "f0": "915 MHz", "vdd": "24 V",
+                        "ropt": "36 ohm"}, "device": {"model": "gm"}}
+#: the closed-form evaluator of tests/test_sweep.py (no simulator)
+FAKE = ["--evaluator", "test_sweep:tuned_b_eval", "--quiet", "--no-plots", "--workers", "1"]
+
+
+@pytest.mark.parametrize("args, fragments", [
+    (["--tolerance", "C*=5%", "--seed", "-1"], ["--seed -1", "0 to 9223372036854775807"]),
+    (["--tolerance", "C*=5%", "--seed", str(10**24)], ["--seed 1000000000000000000000000"]),
+    (["--tolerance", "C*=5%", "--samples", str(10**12)], ["--samples 1000000000000", "limit of 1000000"]),
+    (["--vary", "design.vdd=20V:28V:1000000"], ["design.vdd", "1000000 points", "limit of 10000"]),
+    (["--vary", "design.vdd=20V:28V:5000", "--vary", "design.f0=800MHz:900MHz:5000"],
+     ["25000000 points", "limit of 1000000"]),
+    (["--vswr", "2:100000"], ["--vswr", "limit of 10000"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "drain_efficiency>=nan"], ["--spec", "not a finite number"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "pout_w>=inf"], ["--spec", "not a finite number"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "drain_efficiency>=nan%"], ["--spec", "not a finite number"]),
+])
+def test_bad_study_options(args, fragments, tmp_path, netgen_cli):
+    # Each was an internal error (ValueError, OverflowError, MemoryError) or a hang before.
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, *args, *FAKE, "-o", tmp_path / "o")
+    assert_clean_error(code, out, err, fragments)
+    assert not (tmp_path / "o").exists()
+
+
+def _stored_sweep(tmp_path, netgen_cli):
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    args = [design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o"]
+    code, out, err = netgen_cli("sweep", *args)
+    assert code == 0, err
+    return args, tmp_path / "o" / "sweep.sqlite"
+
+
+@pytest.mark.parametrize("damage, fragments", [
+    ("UPDATE points SET inputs = '{not json' WHERE idx = 1", ["point 1", "not JSON"]),
+    ("UPDATE points SET metrics = '[1, 2]' WHERE idx = 0", ["point 0", "wrong kind"]),
+    ("UPDATE points SET inputs = '42' WHERE idx = 2", ["point 2", "wrong kind"]),
+    ("UPDATE points SET seconds = 'slow' WHERE idx = 0", ["point 0", "run time"]),
+    ("UPDATE points SET error = x'00ff' WHERE idx = 0", ["point 0", "wrong kind"]),
+])
+def test_damaged_store_rows(damage, fragments, tmp_path, netgen_cli):
+    import sqlite3
+
+    args, db = _stored_sweep(tmp_path, netgen_cli)
+    con = sqlite3.connect(db)
+    con.execute(damage)
+    con.commit()
+    con.close()
+    code, out, err = netgen_cli("sweep", *args)  # resumes: every point stored, then reads them back
+    assert_clean_error(code, out, err, ["sweep.sqlite", *fragments])
+
+
+def test_store_rows_with_null_inputs(tmp_path, netgen_cli):
+    # A store whose points table allows NULL inputs (another writer's schema, same columns).
+    import sqlite3
+
+    args, db = _stored_sweep(tmp_path, netgen_cli)
+    con = sqlite3.connect(db)
+    cols = "sweep_id, idx, inputs, status, metrics, drain_efficiency, pout_w, pdc_w, peak_vd_v, peak_vd_over_vdd, settled, error, seconds"
+    con.executescript(f"CREATE TABLE p2 AS SELECT {cols} FROM points; DROP TABLE points; ALTER TABLE p2 RENAME TO points;"
+                      "UPDATE points SET inputs = NULL WHERE idx = 0;")
+    con.commit()
+    con.close()
+    code, out, err = netgen_cli("sweep", *args)
+    assert_clean_error(code, out, err, ["sweep.sqlite", "point 0"])
+
+
+@pytest.mark.parametrize("script, fragments", [
+    ("CREATE TABLE sweeps (x TEXT); INSERT INTO sweeps VALUES ('a');", ["not a netgen sweep store", "'sweeps'"]),
+    ("CREATE TABLE points (idx INTEGER, value REAL);", ["not a netgen sweep store", "'points'"]),
+    ("PRAGMA user_version = 7;", None),  # an empty SQLite file becomes a store: no error
+])
+def test_foreign_sqlite_file(script, fragments, tmp_path, netgen_cli):
+    import sqlite3
+
+    (tmp_path / "o").mkdir()
+    con = sqlite3.connect(tmp_path / "o" / "sweep.sqlite")
+    con.executescript(script)
+    con.close()
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o")
+    if fragments is None:
+        assert code == 0, err
+    else:
+        assert_clean_error(code, out, err, fragments)
+
+
+def test_garbage_store_file(tmp_path, netgen_cli):
+    (tmp_path / "o").mkdir()
+    (tmp_path / "o" / "sweep.sqlite").write_bytes(b"this is not a database\n" * 100)
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o")
+    assert_clean_error(code, out, err, ["sweep.sqlite"])
