@@ -400,3 +400,90 @@ def test_garbage_store_file(tmp_path, netgen_cli):
     design = write_toml(tmp_path / "d.toml", STUDY_DOC)
     code, out, err = netgen_cli("sweep", design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o")
     assert_clean_error(code, out, err, ["sweep.sqlite"])
+
+
+# ------------------------------------------------------------ disk full, file permissions
+
+def _disk_fills_after(monkeypatch, n_ok: int) -> None:
+    """Simulate ENOSPC: netgen.fileio.write_chunks (where every output byte goes) fails after n_ok files.
+
+    Measured on a real full disk too (a 4k-400k tmpfs, docs/reliability.md); this stands in for
+    it where mounting is not possible.
+    """
+    import errno
+
+    from netgen import fileio
+
+    real = fileio.write_chunks
+    calls = {"n": 0}
+
+    def write(fh, data, chunk=1 << 20):
+        calls["n"] += 1
+        if calls["n"] > n_ok:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        real(fh, data, chunk)
+
+    monkeypatch.setattr(fileio, "write_chunks", write)
+
+
+@pytest.mark.parametrize("n_ok", [0, 1])  # render writes two netlists
+def test_disk_full_during_render_leaves_no_folder(n_ok, tmp_path, netgen_cli, monkeypatch):
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, n_ok)
+    code, out, err = netgen_cli("render", design, "-o", tmp_path / "out")
+    line = assert_clean_error(code, out, err, ["No space left on device"])
+    assert str(tmp_path / "out") in line and ".tmp-" not in line  # names the folder asked for
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]  # no folder, no temporary file
+
+
+def test_disk_full_during_size_leaves_no_file(tmp_path, netgen_cli, monkeypatch):
+    # Before the fix sized.toml's own writer left its '.sized.toml.*.tmp' file behind.
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, 0)
+    code, out, err = netgen_cli("size", design, "-o", tmp_path / "sized.toml")
+    assert_clean_error(code, out, err, ["sized.toml", "No space left on device"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("n_ok", [0, 2, 5])
+def test_disk_full_during_run_leaves_no_folder(n_ok, tmp_path, netgen_cli, monkeypatch):
+    # netlist.cir, sized.toml, metrics.json, waveforms.csv, then the plots and report.html
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, n_ok)
+    code, out, err = netgen_cli("run", design, "-o", tmp_path / "out")
+    assert_clean_error(code, out, err, [str(tmp_path / "out"), "No space left on device"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]
+
+
+@pytest.fixture
+def umask_027():
+    old = os.umask(0o027)
+    try:
+        yield 0o027
+    finally:
+        os.umask(old)
+
+
+@pytest.mark.ngspice
+def test_run_outputs_follow_the_umask(tmp_path, netgen_cli, umask_027):
+    # Common practice (open(2) with mode 0666, mkdir 0777, less the umask): before the fix every
+    # file but netlist.cir was 0600 (mkstemp) and the folder 0700 (mkdtemp).
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    code, out, err = netgen_cli("run", design, "-o", tmp_path / "out")
+    assert code == 0, err
+    files = sorted((tmp_path / "out").iterdir())
+    assert {"report.html", "metrics.json", "sized.toml", "netlist.cir", "waveforms.csv"} <= {p.name for p in files}
+    assert any(p.suffix == ".png" for p in files)
+    for p in files:
+        assert p.stat().st_mode & 0o777 == 0o640, p.name
+    assert (tmp_path / "out").stat().st_mode & 0o777 == 0o750
+
+
+def test_size_and_render_outputs_follow_the_umask(tmp_path, netgen_cli, umask_027):
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    assert netgen_cli("size", design, "-o", tmp_path / "sized.toml")[0] == 0
+    assert (tmp_path / "sized.toml").stat().st_mode & 0o777 == 0o640
+    assert netgen_cli("render", design, "-o", tmp_path / "r")[0] == 0
+    assert (tmp_path / "r").stat().st_mode & 0o777 == 0o750
+    assert all(p.stat().st_mode & 0o777 == 0o640 for p in (tmp_path / "r").iterdir())

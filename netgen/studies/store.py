@@ -27,6 +27,7 @@ import csv
 import io
 import json
 import math
+import os
 import sqlite3
 from datetime import datetime, timezone
 from pathlib import Path
@@ -97,6 +98,9 @@ class SweepStore:
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
+        self.con = None
+        made_folder = not self.path.parent.exists()
+        made_file = not self.path.exists()
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             self.con = sqlite3.connect(str(self.path), timeout=30.0)
@@ -105,12 +109,33 @@ class SweepStore:
             self.con.executescript(_SCHEMA)
             self.con.commit()
             self._check_schema()
-        except OutputError:
-            raise
-        except sqlite3.DatabaseError as exc:
-            raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another output folder.") from None
-        except OSError as exc:
+        except (OutputError, sqlite3.DatabaseError, OSError) as exc:
+            self._undo(made_file, made_folder)  # a full disk leaves no empty store or folder behind
+            if isinstance(exc, OutputError):
+                raise
+            if isinstance(exc, sqlite3.DatabaseError):
+                raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another "
+                                  "output folder.") from None
             raise OutputError(f"{self.path}: cannot create the sweep store ({exc.strerror}); choose another output folder.") from None
+
+    def _undo(self, made_file: bool, made_folder: bool) -> None:
+        """Close, and remove what this failed open created (the store file, its journals, the folder)."""
+        try:
+            if self.con is not None:
+                self.con.close()
+        except sqlite3.Error:
+            pass
+        if made_file:
+            for suffix in ("", "-wal", "-shm", "-journal"):
+                try:
+                    os.unlink(f"{self.path}{suffix}")
+                except OSError:
+                    pass
+        if made_folder:
+            try:
+                self.path.parent.rmdir()
+            except OSError:
+                pass
 
     def _check_schema(self) -> None:
         """Refuse a file whose tables are not this store's (another program, another version)."""
@@ -118,7 +143,6 @@ class SweepStore:
             have = {r[1] for r in self.con.execute(f"PRAGMA table_info({table})")}
             missing = [c for c in wanted if c not in have]
             if missing:
-                self.con.close()
                 raise OutputError(f"{self.path}: is not a netgen sweep store (table '{table}' has no column "
                                   f"'{missing[0]}'); choose another output folder or remove the file.")
 
