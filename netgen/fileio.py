@@ -13,7 +13,7 @@ from pathlib import Path
 
 from .errors import OutputError
 
-__all__ = ["atomic_write_text", "atomic_write_bytes", "current_umask", "write_chunks"]
+__all__ = ["atomic_write_bytes", "atomic_write_text", "current_umask", "write_chunks"]
 
 
 def current_umask() -> int:

@@ -106,7 +106,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
         "drive": Key("drive", "", 1.0, "gm and spice devices: relative drive level (1.0 reaches imax).", lo=0.0, hi=20.0, lo_open=True),
         "rgate": Key("rgate_ohm", "ohm", "50 ohm", "gm device: gate input resistance used for the drive power (PAE).", lo=0.01, hi=1e6),
-        "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file)."),
+        "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file, inside its folder; models, subcircuits and .param only)."),
         "subckt": Key("subckt", "str", None, "spice device: subcircuit name in the included file."),
         "pins": Key("pins", "pins", None, "spice device: subcircuit pin order as a list of 'drain', 'gate', 'source', e.g. [\"drain\", \"gate\", \"source\"]."),
         "vgate_bias": Key("vgate_bias_v", "V", "0 V", "spice device: gate DC bias.", lo=-1e3, hi=1e3),

@@ -28,8 +28,13 @@ import re
 import stat
 from pathlib import Path
 
-__all__ = ["check_netlist_text", "check_model_file", "NETLIST_DOT_CARDS", "MODEL_DOT_CARDS",
-           "MAX_MODEL_BYTES"]
+__all__ = [
+    "MAX_MODEL_BYTES",
+    "MODEL_DOT_CARDS",
+    "NETLIST_DOT_CARDS",
+    "check_model_file",
+    "check_netlist_text",
+]
 
 #: dot cards a netlist may hold (analyses, options, models, includes, output selection)
 NETLIST_DOT_CARDS = frozenset({

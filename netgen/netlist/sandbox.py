@@ -30,8 +30,16 @@ from jinja2 import nodes
 from jinja2.sandbox import SandboxedEnvironment
 from jinja2.visitor import NodeTransformer
 
-__all__ = ["BoundedEnvironment", "Budget", "LimitExceeded", "MAX_WORK", "MAX_ITEMS", "MAX_INT_BITS",
-           "MAX_OUTPUT_CHARS", "bounded"]
+__all__ = [
+    "MAX_INT_BITS",
+    "MAX_ITEMS",
+    "MAX_OUTPUT_CHARS",
+    "MAX_WORK",
+    "BoundedEnvironment",
+    "Budget",
+    "LimitExceeded",
+    "bounded",
+]
 
 #: total work of one render (a loop iteration or call costs ITERATION_COST, a value its size)
 MAX_WORK = 20_000_000
@@ -234,7 +242,7 @@ class BoundedEnvironment(SandboxedEnvironment):
         _binop_estimate(operator, left, right)
         return _check_value(super().call_binop(context, operator, left, right))
 
-    def call(__self, __context, __obj, *args, **kwargs):  # noqa: N805 - Jinja's signature
+    def call(__self, __context, __obj, *args, **kwargs):
         budget = _budget()
         budget.charge(ITERATION_COST)
         if __obj is not __self.globals.get("range"):
