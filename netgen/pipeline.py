@@ -19,6 +19,7 @@ import numpy as np
 from netgen.design import Design, SizedDesign, Waveforms
 
 from .errors import OutputError
+from .fileio import atomic_write_text, current_umask
 
 __all__ = ["RunResult", "evaluate", "run_design", "network_sweep", "write_outputs", "atomic_folder"]
 
@@ -121,9 +122,16 @@ class atomic_folder:
         assert self.tmp is not None
         if exc_type is not None:
             shutil.rmtree(self.tmp, ignore_errors=True)
+            if isinstance(exc, OutputError) and str(self.tmp) in str(exc):
+                # name the folder the user asked for, not the hidden one the files went to first
+                raise OutputError(str(exc).replace(str(self.tmp), str(self.target))) from None
             return False
         try:
-            self.target.mkdir(parents=True, exist_ok=True)
+            # mkdtemp makes a 0700 folder; the results folder is an ordinary one (the user's umask)
+            os.chmod(self.tmp, 0o777 & ~current_umask())
+            if not self.target.exists():  # one rename: the folder appears complete or not at all
+                os.replace(self.tmp, self.target)
+                return False
             for item in sorted(self.tmp.iterdir()):
                 dest = self.target / item.name
                 if dest.is_dir() and not dest.is_symlink():
@@ -143,7 +151,7 @@ def write_outputs(result: RunResult, outdir: Path, *, plots: bool = True) -> dic
 
     names: dict[str, str] = {}
     with atomic_folder(outdir) as tmp:
-        (tmp / "netlist.cir").write_text(result.netlist, encoding="utf-8")
+        atomic_write_text(tmp / "netlist.cir", result.netlist)
         names["netlist"] = "netlist.cir"
         write_sized_toml(result.sized, tmp / "sized.toml")
         names["sized"] = "sized.toml"

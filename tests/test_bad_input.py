@@ -188,7 +188,34 @@ def gen_spice_include_name_too_long(tmp):
     return p, ["device.include"]
 
 
-GENERATED = [gen_empty, gen_whitespace_only, gen_not_utf8, gen_utf16, gen_nul_byte, gen_huge, gen_missing,
+def gen_100k_keys(tmp):
+    # 10^5 keys in a free-form section (0.9 MB, under the size limit): today a 60 s+ hang
+    p = tmp / "many_keys.toml"
+    p.write_text(_valid_text() + "[meta]\n" + "".join(f"k{i}=1\n" for i in range(100_000)))
+    return p, ["many_keys.toml", "more than 5000 keys", "limit exceeded"]
+
+
+def gen_deep_tables(tmp):
+    # a dotted table header 3000 levels deep: was a RecursionError ("Internal error")
+    p = tmp / "deep_tables.toml"
+    p.write_text(_valid_text() + "[meta." + ".".join(f"t{i}" for i in range(3000)) + "]\n")
+    return p, ["deep_tables.toml", "nested deeper than 8 levels", "limit exceeded"]
+
+
+def gen_deep_arrays(tmp):
+    # arrays nested 5000 deep: the TOML parser itself would recurse past Python's limit
+    p = tmp / "deep_arrays.toml"
+    p.write_text(_valid_text() + "[meta]\na = " + "[" * 5000 + "]" * 5000 + "\n")
+    return p, ["deep_arrays.toml", "brackets nested", "limit", "exceeded"]
+
+
+def gen_deep_inline_tables(tmp):
+    p = tmp / "deep_inline.toml"
+    p.write_text(_valid_text() + "[meta]\na = " + "{b = " * 3000 + "1" + "}" * 3000 + "\n")
+    return p, ["deep_inline.toml", "brackets nested", "exceeded"]
+
+
+GENERATED = [gen_100k_keys, gen_deep_tables, gen_deep_arrays, gen_deep_inline_tables, gen_empty, gen_whitespace_only, gen_not_utf8, gen_utf16, gen_nul_byte, gen_huge, gen_missing,
              gen_folder, gen_fifo, gen_name_too_long, gen_newline_in_file_name, gen_symlink_loop,
              gen_spice_include_is_folder, gen_spice_include_name_too_long]
 
@@ -260,3 +287,203 @@ def test_real_process_prints_one_line(stem, tmp_path):
                           env={**os.environ, "NETGEN_DEBUG": ""})
     assert_clean_error(proc.returncode, proc.stdout, proc.stderr, expected_fragments(case))
     assert not (tmp_path / "o").exists()
+
+
+# ------------------------------------------------------------ every corpus case, every command
+
+@pytest.mark.parametrize("command", ["render", "run", "sweep"])
+def test_every_bad_case_exits_2_without_internal_error(command, tmp_path, netgen_cli):
+    # An internal error is a bug: each file of tests/data/bad gives exit code 2 and one
+    # 'Error:' line through every command that reads a design.
+    extra = ["--vary", "design.vdd=20V:28V:3", "--list"] if command == "sweep" else []
+    for case in CORPUS:
+        out_dir = tmp_path / case.stem
+        code, out, err = netgen_cli(command, case, *extra, "-o", out_dir)
+        assert "Internal error" not in err, (case.name, err)
+        assert_clean_error(code, out, err, [])
+        assert not out_dir.exists(), case.name
+
+
+# ------------------------------------------------------------ studies: options and stores
+
+STUDY_DOC = {"design": {"name": "bench_b", "topology": "class_b_tuned", "f0": "915 MHz", "vdd": "24 V",
+                        "ropt": "36 ohm"}, "device": {"model": "gm"}}
+#: the closed-form evaluator of tests/test_sweep.py (no simulator)
+FAKE = ["--evaluator", "test_sweep:tuned_b_eval", "--quiet", "--no-plots", "--workers", "1"]
+
+
+@pytest.mark.parametrize("args, fragments", [
+    (["--tolerance", "C*=5%", "--seed", "-1"], ["--seed -1", "0 to 9223372036854775807"]),
+    (["--tolerance", "C*=5%", "--seed", str(10**24)], ["--seed 1000000000000000000000000"]),
+    (["--tolerance", "C*=5%", "--samples", str(10**12)], ["--samples 1000000000000", "limit of 1000000"]),
+    (["--vary", "design.vdd=20V:28V:1000000"], ["design.vdd", "1000000 points", "limit of 10000"]),
+    (["--vary", "design.vdd=20V:28V:5000", "--vary", "design.f0=800MHz:900MHz:5000"],
+     ["25000000 points", "limit of 1000000"]),
+    (["--vswr", "2:100000"], ["--vswr", "limit of 10000"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "drain_efficiency>=nan"], ["--spec", "not a finite number"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "pout_w>=inf"], ["--spec", "not a finite number"]),
+    (["--vary", "design.vdd=20V:28V:3", "--spec", "drain_efficiency>=nan%"], ["--spec", "not a finite number"]),
+])
+def test_bad_study_options(args, fragments, tmp_path, netgen_cli):
+    # Each was an internal error (ValueError, OverflowError, MemoryError) or a hang before.
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, *args, *FAKE, "-o", tmp_path / "o")
+    assert_clean_error(code, out, err, fragments)
+    assert not (tmp_path / "o").exists()
+
+
+def _stored_sweep(tmp_path, netgen_cli):
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    args = [design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o"]
+    code, out, err = netgen_cli("sweep", *args)
+    assert code == 0, err
+    return args, tmp_path / "o" / "sweep.sqlite"
+
+
+@pytest.mark.parametrize("damage, fragments", [
+    ("UPDATE points SET inputs = '{not json' WHERE idx = 1", ["point 1", "not JSON"]),
+    ("UPDATE points SET metrics = '[1, 2]' WHERE idx = 0", ["point 0", "wrong kind"]),
+    ("UPDATE points SET inputs = '42' WHERE idx = 2", ["point 2", "wrong kind"]),
+    ("UPDATE points SET seconds = 'slow' WHERE idx = 0", ["point 0", "run time"]),
+    ("UPDATE points SET error = x'00ff' WHERE idx = 0", ["point 0", "wrong kind"]),
+])
+def test_damaged_store_rows(damage, fragments, tmp_path, netgen_cli):
+    import sqlite3
+
+    args, db = _stored_sweep(tmp_path, netgen_cli)
+    con = sqlite3.connect(db)
+    con.execute(damage)
+    con.commit()
+    con.close()
+    code, out, err = netgen_cli("sweep", *args)  # resumes: every point stored, then reads them back
+    assert_clean_error(code, out, err, ["sweep.sqlite", *fragments])
+
+
+def test_store_rows_with_null_inputs(tmp_path, netgen_cli):
+    # A store whose points table allows NULL inputs (another writer's schema, same columns).
+    import sqlite3
+
+    args, db = _stored_sweep(tmp_path, netgen_cli)
+    con = sqlite3.connect(db)
+    cols = "sweep_id, idx, inputs, status, metrics, drain_efficiency, pout_w, pdc_w, peak_vd_v, peak_vd_over_vdd, settled, error, seconds"
+    con.executescript(f"CREATE TABLE p2 AS SELECT {cols} FROM points; DROP TABLE points; ALTER TABLE p2 RENAME TO points;"
+                      "UPDATE points SET inputs = NULL WHERE idx = 0;")
+    con.commit()
+    con.close()
+    code, out, err = netgen_cli("sweep", *args)
+    assert_clean_error(code, out, err, ["sweep.sqlite", "point 0"])
+
+
+@pytest.mark.parametrize("script, fragments", [
+    ("CREATE TABLE sweeps (x TEXT); INSERT INTO sweeps VALUES ('a');", ["not a netgen sweep store", "'sweeps'"]),
+    ("CREATE TABLE points (idx INTEGER, value REAL);", ["not a netgen sweep store", "'points'"]),
+    ("PRAGMA user_version = 7;", None),  # an empty SQLite file becomes a store: no error
+])
+def test_foreign_sqlite_file(script, fragments, tmp_path, netgen_cli):
+    import sqlite3
+
+    (tmp_path / "o").mkdir()
+    con = sqlite3.connect(tmp_path / "o" / "sweep.sqlite")
+    con.executescript(script)
+    con.close()
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o")
+    if fragments is None:
+        assert code == 0, err
+    else:
+        assert_clean_error(code, out, err, fragments)
+
+
+def test_garbage_store_file(tmp_path, netgen_cli):
+    (tmp_path / "o").mkdir()
+    (tmp_path / "o" / "sweep.sqlite").write_bytes(b"this is not a database\n" * 100)
+    design = write_toml(tmp_path / "d.toml", STUDY_DOC)
+    code, out, err = netgen_cli("sweep", design, "--vary", "design.vdd=20V:28V:3", *FAKE, "-o", tmp_path / "o")
+    assert_clean_error(code, out, err, ["sweep.sqlite"])
+
+
+# ------------------------------------------------------------ disk full, file permissions
+
+def _disk_fills_after(monkeypatch, n_ok: int) -> None:
+    """Simulate ENOSPC: netgen.fileio.write_chunks (where every output byte goes) fails after n_ok files.
+
+    Measured on a real full disk too (a 4k-400k tmpfs, docs/reliability.md); this stands in for
+    it where mounting is not possible.
+    """
+    import errno
+
+    from netgen import fileio
+
+    real = fileio.write_chunks
+    calls = {"n": 0}
+
+    def write(fh, data, chunk=1 << 20):
+        calls["n"] += 1
+        if calls["n"] > n_ok:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        real(fh, data, chunk)
+
+    monkeypatch.setattr(fileio, "write_chunks", write)
+
+
+@pytest.mark.parametrize("n_ok", [0, 1])  # render writes two netlists
+def test_disk_full_during_render_leaves_no_folder(n_ok, tmp_path, netgen_cli, monkeypatch):
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, n_ok)
+    code, out, err = netgen_cli("render", design, "-o", tmp_path / "out")
+    line = assert_clean_error(code, out, err, ["No space left on device"])
+    assert str(tmp_path / "out") in line and ".tmp-" not in line  # names the folder asked for
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]  # no folder, no temporary file
+
+
+def test_disk_full_during_size_leaves_no_file(tmp_path, netgen_cli, monkeypatch):
+    # Before the fix sized.toml's own writer left its '.sized.toml.*.tmp' file behind.
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, 0)
+    code, out, err = netgen_cli("size", design, "-o", tmp_path / "sized.toml")
+    assert_clean_error(code, out, err, ["sized.toml", "No space left on device"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("n_ok", [0, 2, 5])
+def test_disk_full_during_run_leaves_no_folder(n_ok, tmp_path, netgen_cli, monkeypatch):
+    # netlist.cir, sized.toml, metrics.json, waveforms.csv, then the plots and report.html
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    _disk_fills_after(monkeypatch, n_ok)
+    code, out, err = netgen_cli("run", design, "-o", tmp_path / "out")
+    assert_clean_error(code, out, err, [str(tmp_path / "out"), "No space left on device"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ok.toml"]
+
+
+@pytest.fixture
+def umask_027():
+    old = os.umask(0o027)
+    try:
+        yield 0o027
+    finally:
+        os.umask(old)
+
+
+@pytest.mark.ngspice
+def test_run_outputs_follow_the_umask(tmp_path, netgen_cli, umask_027):
+    # Common practice (open(2) with mode 0666, mkdir 0777, less the umask): before the fix every
+    # file but netlist.cir was 0600 (mkstemp) and the folder 0700 (mkdtemp).
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    code, out, err = netgen_cli("run", design, "-o", tmp_path / "out")
+    assert code == 0, err
+    files = sorted((tmp_path / "out").iterdir())
+    assert {"report.html", "metrics.json", "sized.toml", "netlist.cir", "waveforms.csv"} <= {p.name for p in files}
+    assert any(p.suffix == ".png" for p in files)
+    for p in files:
+        assert p.stat().st_mode & 0o777 == 0o640, p.name
+    assert (tmp_path / "out").stat().st_mode & 0o777 == 0o750
+
+
+def test_size_and_render_outputs_follow_the_umask(tmp_path, netgen_cli, umask_027):
+    design = write_toml(tmp_path / "ok.toml", MINIMAL_DOC)
+    assert netgen_cli("size", design, "-o", tmp_path / "sized.toml")[0] == 0
+    assert (tmp_path / "sized.toml").stat().st_mode & 0o777 == 0o640
+    assert netgen_cli("render", design, "-o", tmp_path / "r")[0] == 0
+    assert (tmp_path / "r").stat().st_mode & 0o777 == 0o750
+    assert all(p.stat().st_mode & 0o777 == 0o640 for p in (tmp_path / "r").iterdir())

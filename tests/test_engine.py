@@ -152,13 +152,15 @@ def test_unknown_subcircuit_reports_ngspice_message():
         engine.run_op(net)
 
 
-def test_shell_commands_in_control_blocks_are_refused():
+def test_control_blocks_are_refused_whatever_they_hold():
+    # Protection: check_netlist refuses every control block (netgen sends its own commands), so
+    # the check does not depend on which commands a block holds.
     net = DIVIDER.replace(".end", ".control\nop\nshell rm -rf /tmp/somewhere\n.endc\n.end")
-    with pytest.raises(SimulationError, match=r"line 7: the control command 'shell rm"):
+    with pytest.raises(SimulationError, match=r"line 5: '\.control' starts an ngspice control command"):
         engine.check_netlist(net)
-    engine.check_netlist(net, allow_shell=True)  # explicitly allowed
-    with pytest.raises(SimulationError, match="shell/system"):
-        engine.check_netlist("t\n.control\n!ls\n.endc\n.end\n")
+    engine.check_netlist(net, allow_shell=True)  # the library caller's explicit choice
+    with pytest.raises(SimulationError, match="shell"):
+        engine.check_netlist("t\nV1 a 0 DC 1\n.control\nop\n.endc\n.end\n")  # a harmless block too
     engine.check_netlist(DIVIDER)
 
 
@@ -298,35 +300,35 @@ def test_diagnose_picks_the_most_specific_cause():
 SHELL_BLOCK = ".control\nshell touch /tmp/netgen_should_not_exist\n.endc\n"
 
 
-def test_shell_in_nested_relative_include_is_refused(tmp_path):
-    (tmp_path / "models").mkdir()
-    (tmp_path / "models" / "inner.lib").write_text("* inner\n" + SHELL_BLOCK)
-    (tmp_path / "models" / "outer.lib").write_text(".subckt m a b\nR1 a b 1k\n.ends\n.inc inner.lib\n")
-    (tmp_path / "top.lib").write_text(".lib 'models/outer.lib' typ\n")
-    netlist = "t\n.include top.lib\nV1 a 0 DC 1\nX1 a 0 m\n.end\n"
-    with pytest.raises(SimulationError, match=r"inner\.lib line 3: the control command 'shell"):
-        engine.check_netlist(netlist, base_dir=tmp_path)
-    engine.check_netlist(netlist, base_dir=tmp_path, allow_shell=True)  # the caller's explicit choice
-    # a harmless control block in a model file passes
-    (tmp_path / "models" / "inner.lib").write_text("* inner\n.control\nop\n.endc\n")
-    engine.check_netlist(netlist, base_dir=tmp_path)
-
-
-def test_source_in_a_control_block_is_followed(tmp_path):
-    (tmp_path / "evil.cir").write_text("evil\n" + SHELL_BLOCK + ".end\n")
-    netlist = f'''t\nV1 a 0 DC 1\nR1 a 0 1k\n.control\nsource "{tmp_path / 'evil.cir'}"\n.endc\n.end\n'''
-    with pytest.raises(SimulationError, match="evil.cir line 3"):
+def test_control_block_in_an_included_file_is_refused(tmp_path):
+    # ngspice 39 runs .control blocks of included files (measured, docs/reliability.md).
+    (tmp_path / "m.lib").write_text(".subckt m a b\nR1 a b 1k\n.ends\n" + SHELL_BLOCK)
+    netlist = f'inc test\n.include "{tmp_path / "m.lib"}"\nV1 a 0 DC 1\nX1 a 0 m\n.end\n'
+    with pytest.raises(SimulationError, match=r"model file .*m\.lib line 4: '\.control'"):
         engine.check_netlist(netlist)
+    (tmp_path / "m.lib").write_text(".subckt m a b\nR1 a b 1k\n.ends\n")
+    engine.check_netlist(netlist)  # the same file with models only passes
 
 
-def test_include_cycle_ends_and_deep_nesting_is_refused(tmp_path):
-    (tmp_path / "a.lib").write_text(".include b.lib\n")
-    (tmp_path / "b.lib").write_text(".include a.lib\n")
-    engine.check_netlist("t\n.include a.lib\n.end\n", base_dir=tmp_path)  # a cycle is scanned once
-    for k in range(engine.MAX_INCLUDE_DEPTH + 2):
-        (tmp_path / f"d{k}.lib").write_text(f".include d{k + 1}.lib\n")
-    with pytest.raises(SimulationError, match="nested more than"):
-        engine.check_netlist("t\n.include d0.lib\n.end\n", base_dir=tmp_path)
+def test_relative_and_nested_includes_are_refused(tmp_path):
+    # ngspice runs in a private folder, so a relative include would not be found there; a model
+    # file may not include another (nested includes are where control blocks were hidden).
+    (tmp_path / "inner.lib").write_text(".model sw1 sw ron=1\n")
+    (tmp_path / "outer.lib").write_text(f'.subckt m a b\nR1 a b 1k\n.ends\n.inc "{tmp_path / "inner.lib"}"\n')
+    with pytest.raises(SimulationError, match="not an absolute path"):
+        engine.check_netlist("t\n.include outer.lib\nV1 a 0 DC 1\n.end\n", base_dir=tmp_path)
+    with pytest.raises(SimulationError, match=r"outer\.lib line 4: a model file may not include other files"):
+        engine.check_netlist(f't\n.include "{tmp_path / "outer.lib"}"\nV1 a 0 DC 1\n.end\n')
+    assert engine.MAX_INCLUDE_DEPTH == 1
+
+
+def test_base_dir_confines_includes(tmp_path):
+    (tmp_path / "d").mkdir()
+    (tmp_path / "m.lib").write_text(".model sw1 sw ron=1\n")
+    netlist = f'.t\n.include "{tmp_path / "m.lib"}"\nV1 a 0 DC 1\n.end\n'
+    engine.check_netlist(netlist, base_dir=tmp_path)
+    with pytest.raises(SimulationError, match="outside the design folder"):
+        engine.check_netlist(netlist, base_dir=tmp_path / "d")
 
 
 def test_short_run_without_message_is_still_an_error():

@@ -181,7 +181,7 @@ def test_spice_device(tmp_path):
     assert ".include" not in port and str(tmp_path) not in port and "G1 d s g s 0.5" in port
     model.write_text(".control\nshell rm -rf /\n.endc\n")
     for dialect in ("portable", "ngspice"):  # ngspice runs .control blocks of included files
-        with pytest.raises(RenderError, match=r"^device\.include: 'fet\.lib' contains '\.control'"):
+        with pytest.raises(RenderError, match=r"^device\.include: model file .*fet\.lib line 1: '\.control' starts an ngspice control command"):
             render(s, dialect=dialect)
 
 

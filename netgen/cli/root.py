@@ -17,6 +17,7 @@ import click
 
 from netgen import __version__
 from netgen.errors import NOT_SETTLED_EXIT_CODE, NetgenError
+from netgen.fileio import atomic_write_text
 
 __all__ = ["cli", "main"]
 
@@ -149,7 +150,6 @@ def demo(outdir: Path, write_design: Path | None) -> None:
     """
     src = _demo_path()
     if write_design is not None:
-        from netgen.fileio import atomic_write_text
 
         atomic_write_text(write_design, src.read_text(encoding="utf-8"))
         click.echo(f"Wrote the demo design to {write_design}.")
@@ -228,7 +228,7 @@ def render(design_file: Path, outdir: Path, dialect: str) -> None:
             suffix = "" if d == "ngspice" else "_portable"
             for mode, tag in (("tran", ""), ("ac", "_zdrain")):
                 name = f"{sized.design.name}{tag}{suffix}.cir"
-                (tmp / name).write_text(render_netlist(sized, mode=mode, dialect=d), encoding="utf-8")
+                atomic_write_text(tmp / name, render_netlist(sized, mode=mode, dialect=d))
                 written.append(name)
     click.echo(f"Wrote {', '.join(written)} to {outdir}.")
 

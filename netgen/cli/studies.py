@@ -160,7 +160,8 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
     if first_failed:
         n_failed = summary["failed"]
         more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
-        click.echo(f"  point {first_failed[0]} failed: {first_failed[1].splitlines()[0]}{more}")
+        first_line = (str(first_failed[1] or "").splitlines() or ["no message stored"])[0]
+        click.echo(f"  point {first_failed[0]} failed: {first_line}{more}")
     click.echo(f"wrote {out / STORE_NAME}, {csv_path}" + (f", {len(made)} plots" if made else ""))
 
 

@@ -40,6 +40,8 @@ __all__ = [
     "get_dotted",
     "reference_markdown",
     "MAX_FILE_BYTES",
+    "MAX_DEPTH",
+    "MAX_KEYS",
 ]
 
 #: Built-in topology names (see :mod:`netgen.synthesis.topologies`).
@@ -57,6 +59,10 @@ DEVICE_MODELS = ("switch", "gm", "spice")
 SAFE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
 #: A design file larger than this is refused (hand-written designs are a few kB).
 MAX_FILE_BYTES = 1_000_000
+#: deepest nesting of tables and arrays in a design file (a design needs 3: [network.values])
+MAX_DEPTH = 8
+#: most keys and array items in a design file, counted over all tables (a design has tens)
+MAX_KEYS = 5_000
 
 
 @dataclass(frozen=True)
@@ -100,7 +106,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
         "drive": Key("drive", "", 1.0, "gm and spice devices: relative drive level (1.0 reaches imax).", lo=0.0, hi=20.0, lo_open=True),
         "rgate": Key("rgate_ohm", "ohm", "50 ohm", "gm device: gate input resistance used for the drive power (PAE).", lo=0.01, hi=1e6),
-        "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file)."),
+        "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file, inside its folder; models, subcircuits and .param only)."),
         "subckt": Key("subckt", "str", None, "spice device: subcircuit name in the included file."),
         "pins": Key("pins", "pins", None, "spice device: subcircuit pin order as a list of 'drain', 'gate', 'source', e.g. [\"drain\", \"gate\", \"source\"]."),
         "vgate_bias": Key("vgate_bias_v", "V", "0 V", "spice device: gate DC bias.", lo=-1e3, hi=1e3),
@@ -275,11 +281,59 @@ def load_design(path: str | Path) -> Design:
         ) from None
     if not text.strip():
         raise DesignError(f"{path}: the file is empty; start from 'netgen demo --write-design FILE' or sims/demo.toml.")
+    _check_nesting_text(text, path)
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise DesignError(f"{path}: TOML syntax error: {exc}.") from None
+    except RecursionError:  # a nesting the text scan did not see; still the file's fault
+        raise DesignError(f"{path}: tables or arrays nested deeper than {MAX_DEPTH} levels (limit exceeded); "
+                          "a design file needs at most 3.") from None
+    check_shape(doc, str(path))
     return design_from_dict(doc, source=path.resolve(), where=str(path))
+
+
+def _check_nesting_text(text: str, path) -> None:
+    """Refuse, before parsing, brackets/braces nested past MAX_DEPTH and dotted headers past it.
+
+    A rough scan (strings are not skipped, so a string full of brackets counts too; no design
+    needs one): it keeps the TOML parser from recursing thousands of levels deep.
+    """
+    depth = deepest = 0
+    for ch in text:
+        if ch in "[{":
+            depth += 1
+            deepest = max(deepest, depth)
+        elif ch in "]}":
+            depth = max(depth - 1, 0)
+        elif ch == "\n" and depth <= 2:
+            depth = 0  # a table header or a finished value: brackets do not carry over lines
+    if deepest > MAX_DEPTH + 2:
+        raise DesignError(f"{path}: brackets nested {deepest} levels deep, limit of {MAX_DEPTH} exceeded; "
+                          "a design file needs at most 3.")
+
+
+def check_shape(doc: dict, where: str) -> None:
+    """Refuse a parsed document nested deeper than MAX_DEPTH or holding more than MAX_KEYS keys.
+
+    Walks the document without recursion, so a pathological file gives this message rather than
+    a RecursionError in later stages, and stops counting at the limit.
+    """
+    stack = [(doc, 1)]
+    count = 0
+    while stack:
+        node, depth = stack.pop()
+        if depth > MAX_DEPTH:
+            raise DesignError(f"{where}: tables or arrays nested deeper than {MAX_DEPTH} levels (limit exceeded); "
+                              "a design file needs at most 3.")
+        children = node.values() if isinstance(node, dict) else node
+        for child in children:
+            count += 1
+            if count > MAX_KEYS:
+                raise DesignError(f"{where}: more than {MAX_KEYS} keys and array items (limit exceeded); "
+                                  "a design file has tens; check that it is the right file.")
+            if isinstance(child, (dict, list)):
+                stack.append((child, depth + 1))
 
 
 def _closest(name: str, options) -> str:

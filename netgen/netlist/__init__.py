@@ -6,7 +6,8 @@ parameters, source waveforms and device expressions of a netlist, as the periodi
 the analysis need them.
 
 Modules: ``renderer`` (Jinja environment, dialects, header), ``portable`` (the strict portable
-subset checker), ``cards`` (reading a netlist back; SPICE numbers).
+subset checker), ``safety`` (what a netlist and its model files may hold: no control
+command, no file outside the design folder), ``cards`` (reading a netlist back; SPICE numbers).
 """
 
 from importlib import import_module
@@ -19,6 +20,8 @@ _EXPORTS = {
     "SourceWaveform": "cards",
     "Unsupported": "cards",
     "card_params": "cards",
+    "check_model_file": "safety",
+    "check_netlist_text": "safety",
     "check_portable": "portable",
     "device_expression": "cards",
     "format_problems": "portable",

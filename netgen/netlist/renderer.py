@@ -17,12 +17,14 @@ from fractions import Fraction
 from pathlib import Path
 
 import jinja2
-from jinja2.sandbox import SandboxedEnvironment
 
 from netgen import __version__
 from netgen.design import SizedDesign
 from netgen.errors import RenderError
 from netgen.synthesis import element_name, line_plan, loss_ohm, tail_plan
+
+from .safety import check_model_file, check_netlist_text
+from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 
 __all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "portable_cards", "MODES", "DIALECTS"]
 
@@ -45,6 +47,11 @@ def template_dir() -> Path:
     return Path(pkg.__file__).resolve().parent
 
 
+def design_folder(design) -> Path:
+    """The folder included files must lie in: the design file's folder (the current one without a file)."""
+    return (design.source.parent if design.source is not None else Path.cwd()).resolve()
+
+
 def _fmt(value) -> str:
     """The only number formatter of the templates: ``'{:.10g}'``; refuses NaN/inf."""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -56,9 +63,9 @@ def _fmt(value) -> str:
 
 
 @functools.lru_cache(maxsize=1)
-def _environment() -> SandboxedEnvironment:
+def _environment() -> BoundedEnvironment:
     """The shared sandboxed environment (built once per process; templates are cached)."""
-    env = SandboxedEnvironment(
+    env = BoundedEnvironment(
         loader=jinja2.FileSystemLoader(str(template_dir())),
         undefined=jinja2.StrictUndefined,
         autoescape=False,
@@ -66,7 +73,7 @@ def _environment() -> SandboxedEnvironment:
         lstrip_blocks=True,
         keep_trailing_newline=True,
     )
-    env.filters["n"] = _fmt
+    env.filters["n"] = _fmt  # our own filter: not wrapped (it only formats one number)
     return env
 
 
@@ -263,16 +270,9 @@ def _include(sized: SizedDesign, dialect: str) -> dict:
     text_path = str(path)
     if any(ch in text_path for ch in "\"\n\r\x00;") or not path.is_file():
         raise RenderError(f"device.include: '{path.name}' is not a readable model file with a plain path; move it to a simple path.")
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RenderError(f"device.include: cannot read '{path.name}' ({exc}); check the file.") from None
-    for line in text.splitlines():
-        word = line.strip().lower().split()[0] if line.strip() else ""
-        # ngspice runs .control blocks of included files (a route to the shell); the portable
-        # dialect inlines the file, so nested includes and .end would break it too
-        if word in (".control", ".endc", ".end", ".include", ".lib", ".inc"):
-            raise RenderError(f"device.include: '{path.name}' contains '{word}'; a model file may hold only models and subcircuits.")
+    # models, subcircuits and parameters only, inside the design folder (netlist/safety.py)
+    check_model_file(text_path, "device.include", RenderError, [design_folder(sized.design)])
+    text = path.read_text(encoding="utf-8")
     if dialect == "ngspice":
         return {"include_path": text_path, "include_text": ""}
     return {"include_path": "", "include_text": text.rstrip("\n")}
@@ -310,20 +310,48 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     if dialect not in DIALECTS:
         raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
     ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a)
-    env = _environment()
     d = sized.design
-    try:
-        if d.template_path is None:
-            from netgen.synthesis import get_topology
+    name = d.topology if d.template_path is None else Path(d.topology).name
+    text = _run_template(d, ctx, name)
+    text = _finish(text, mode)
+    # nothing in the rendered text may run a command or include a file from outside the design
+    # folder (netlist/safety.py); the simulator checks again before each run
+    check_netlist_text(text, f"template {name}: rendered netlist", RenderError, [design_folder(d)])
+    return portable_cards(text) if dialect == "portable" else text
 
-            tmpl = env.get_template(get_topology(d.topology).template)
-        else:
-            try:
-                src = d.template_path.read_text(encoding="utf-8")
-            except (OSError, UnicodeDecodeError) as exc:
-                raise RenderError(f"design.topology: cannot read template '{d.topology}' ({exc}); check the file.") from None
-            tmpl = env.from_string(src)
-        text = tmpl.render(**ctx)
+
+#: largest user template read, bytes
+MAX_TEMPLATE_BYTES = 1_000_000
+
+
+def _run_template(d, ctx: dict, name: str) -> str:
+    """Render the design's template with ``ctx`` under the sandbox's bounds (netlist/sandbox.py)."""
+    env = _environment()
+    try:
+        with bounded():
+            if d.template_path is None:
+                from netgen.synthesis import get_topology
+
+                tmpl = env.get_template(get_topology(d.topology).template)
+            else:
+                try:
+                    size = d.template_path.stat().st_size
+                    if size > MAX_TEMPLATE_BYTES:
+                        raise RenderError(f"template {name}: {size} bytes, limit of {MAX_TEMPLATE_BYTES} exceeded; "
+                                          "a netlist template is a few kB.")
+                    src = d.template_path.read_text(encoding="utf-8")
+                except (OSError, UnicodeDecodeError) as exc:
+                    raise RenderError(f"design.topology: cannot read template '{d.topology}' ({exc}); check the file.") from None
+                tmpl = env.from_string(src)
+            return tmpl.render(**ctx)
+    except LimitExceeded as exc:
+        raise RenderError(f"template {name}: {exc}; simplify the template.") from None
+    except MemoryError:
+        raise RenderError(f"template {name}: memory limit exceeded (a value too large to build); "
+                          "simplify the template.") from None
+    except RecursionError:
+        raise RenderError(f"template {name}: recursion depth exceeded (a macro or loop calling itself); "
+                          "simplify the template.") from None
     except jinja2.UndefinedError as exc:
         raise RenderError(f"template for {d.topology}: {exc}; the name is not in the template context (docs/template_context.md).") from None
     except jinja2.TemplateSyntaxError as exc:
@@ -333,10 +361,8 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     except RenderError:
         raise
     except (TypeError, ValueError, OverflowError, ZeroDivisionError, ArithmeticError, LookupError,
-            AttributeError, RecursionError) as exc:
+            AttributeError) as exc:
         raise RenderError(f"template for {d.topology}: {type(exc).__name__}: {exc}; fix the template expression.") from None
-    text = _finish(text, mode)
-    return portable_cards(text) if dialect == "portable" else text
 
 
 def _finish(text: str, mode: str) -> str:

@@ -1,6 +1,6 @@
 """The ngspice executable path of the engine (``backend="batch"``).
 
-``ngspice -p`` (pipe mode) in a temporary folder, driven by commands on its
+``ngspice -n -p`` (pipe mode, no ``.spiceinit``) in a fresh private temporary folder (also its HOME), driven by commands on its
 standard input; results come back through raw files read by
 :mod:`netgen.simulator.rawfile`. Chunked transient runs use ``stop when time > t`` /
 ``resume`` with ``delete all`` between stops, as the shared-library path does.
@@ -37,6 +37,7 @@ from .common import (
     check_verdict,
     executable_path,
     next_stop,
+    private_env,
     save_spelling,
 )
 from .rawfile import read_raw
@@ -55,9 +56,11 @@ class _BatchSession:
         self.dir = tempfile.TemporaryDirectory(prefix="netgen-ng-")
         self.deadline = _time.monotonic() + timeout_s
         self.timeout_s = timeout_s
-        self.proc = subprocess.Popen([exe, "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+        # -n: no .spiceinit from the working or home folder; the working folder and HOME are a
+        # fresh private (0700) folder, so nothing a colleague's files left behind is read
+        self.proc = subprocess.Popen([exe, "-n", "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
                                      stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
-                                     encoding="utf-8", errors="replace")
+                                     encoding="utf-8", errors="replace", env=private_env(self.dir.name))
         self.lines: queue.Queue = queue.Queue()
         self.log: list[str] = []
         threading.Thread(target=self._reader, daemon=True).start()

@@ -1,7 +1,7 @@
 """Checks on netlists and on simulator logs that need no simulator.
 
-* :func:`check_netlist` refuses netlists whose control blocks (also inside included files)
-  run shell or system commands or load compiled code, unless the user allows it.
+* :func:`check_netlist` refuses netlists that could make ngspice run a command (any control
+  block, ``*#`` line or backquote) or read a file it should not (see netgen/netlist/safety.py).
 * :func:`diagnose` turns ngspice's log into one message and a hint.
 
 Split from :mod:`netgen.simulator.engine` (which re-exports these names) so the engine module keeps
@@ -10,121 +10,43 @@ to the simulator itself.
 
 from __future__ import annotations
 
-import os
 import re
 from pathlib import Path
 
 from netgen.errors import SimulationError
+from netgen.netlist import check_netlist_text
 
 __all__ = ["check_netlist", "diagnose", "MAX_INCLUDE_DEPTH"]
 
 
 # ---------------------------------------------------------------- netlist checks
 
-_CONTROL_START = re.compile(r"^\s*\.(control|exec)\b", re.IGNORECASE)
-_CONTROL_END = re.compile(r"^\s*\.endc\b", re.IGNORECASE)
-#: control-language commands that reach the operating system, spawn programs or load code
-_SHELL_COMMANDS = {"shell", "system", "exec", "aspice", "rspice", "edit", "jobs", "rusage_shell", "sh", "bash",
-                   "cmd", "codemodel", "pre_codemodel", "osdi", "pre_osdi"}
-#: ``.include``/``.inc`` and ``.lib`` lines (ngspice accepts the abbreviations)
-_INCLUDE = re.compile(r"^\s*\.(inc\w*|lib)\s+(.*)$", re.IGNORECASE)
-#: how deep nested includes are followed before the netlist is refused
-MAX_INCLUDE_DEPTH = 10
-
-
-def _include_target(rest: str) -> str | None:
-    """The file named by the rest of an ``.include`` / ``.lib`` line (quotes removed)."""
-    rest = rest.strip()
-    if not rest:
-        return None
-    if rest[0] in "\"'":
-        end = rest.find(rest[0], 1)
-        return rest[1:end] if end > 0 else rest[1:]
-    return rest.split()[0]
-
-
-def _resolve_include(target: str, folders: list[Path]) -> Path | None:
-    """The existing file ``target`` names: absolute, or relative to one of ``folders`` (first match)."""
-    path = Path(os.path.expanduser(target))
-    candidates = [path] if path.is_absolute() else [f / path for f in folders]
-    for cand in candidates:
-        try:
-            if cand.is_file():
-                return cand.resolve()
-        except OSError:
-            continue
-    return None
-
-
-def _scan(text: str, where: str, folders: list[Path], depth: int, seen: set) -> None:
-    """Refuse shell commands in ``text``'s control blocks; follow its includes (see check_netlist)."""
-    inside = False
-    for number, line in enumerate(text.splitlines(), start=1):
-        if _CONTROL_START.match(line):
-            inside = True
-            continue
-        if _CONTROL_END.match(line):
-            inside = False
-            continue
-        targets: list[str] = []
-        if not inside:
-            m = _INCLUDE.match(line)
-            if m:
-                target = _include_target(m.group(2))
-                # '.lib name' inside a library file opens a section; a missing file is skipped below
-                if target:
-                    targets.append(target)
-        else:
-            for part in line.split(";"):
-                cmd = part.strip()
-                if not cmd or cmd.startswith(("*", "#")):
-                    continue
-                word = re.split(r"[\s(]", cmd, maxsplit=1)[0].lower()
-                if cmd.startswith("!") or word in _SHELL_COMMANDS:
-                    raise SimulationError(
-                        f"{where} line {number}: the control command '{cmd[:40]}' would run a "
-                        "shell/system command; remove it, or pass allow_shell=True if you trust the netlist.")
-                if word == "source":  # 'source file' runs that file's control blocks too
-                    target = _include_target(cmd[len("source"):])
-                    if target:
-                        targets.append(target)
-        for target in targets:
-            path = _resolve_include(target, folders)
-            if path is None or path in seen:
-                continue  # a missing file is ngspice's error to report; a cycle is scanned once
-            if depth >= MAX_INCLUDE_DEPTH:
-                raise SimulationError(
-                    f"{where} line {number}: includes are nested more than {MAX_INCLUDE_DEPTH} levels deep "
-                    f"('{target[:60]}'); flatten the model files.")
-            seen.add(path)
-            try:
-                content = path.read_text(encoding="utf-8", errors="replace")
-            except OSError as exc:
-                raise SimulationError(f"The included file {path} cannot be read ({exc.strerror}); "
-                                      "check its permissions.") from None
-            _scan(content, f"Included file {path}", [path.parent] + folders, depth + 1, seen)
+#: how deep includes go: the netlist may include model files, a model file includes nothing
+MAX_INCLUDE_DEPTH = 1
 
 
 def check_netlist(netlist: str, *, allow_shell: bool = False, base_dir: str | Path | None = None) -> None:
-    """Refuse netlists whose ``.control``/``.exec`` blocks run shell or system commands.
+    """Refuse a netlist that could make ngspice run a command or read a file it should not.
 
-    The files the netlist includes (``.include``, ``.inc``, ``.lib``, and ``source`` in a
-    control block) are read and checked the same way, nested ones too (up to
-    ``MAX_INCLUDE_DEPTH`` levels): ngspice 39 runs ``.control`` blocks it finds in
-    included files. Relative paths resolve against the including file's folder, then
-    ``base_dir`` (default: the current folder), where ngspice looks for them.
+    The rules are :func:`netgen.netlist.check_netlist_text`'s (docs/reliability.md): no control
+    block or ``*#`` line at all (netgen sends every simulator command itself), no backquote,
+    only known dot cards; included files named by absolute paths, regular and non-empty,
+    holding only ``.model`` / ``.subckt`` / ``.ends`` / ``.param`` and element cards (no
+    nested include). With ``base_dir``, included files must lie inside that folder after
+    symbolic links are resolved (the renderer applies the design folder the same way).
 
     Raises
     ------
     SimulationError
-        Naming the file and line, unless ``allow_shell`` is true.
+        Naming the file and line, unless ``allow_shell`` is true (the library caller's explicit
+        choice; no file or command-line option can set it).
     """
     if not isinstance(netlist, str) or not netlist.strip():
         raise SimulationError("The netlist is empty; render a design first.")
     if allow_shell:
         return
-    folder = Path(base_dir) if base_dir is not None else Path.cwd()
-    _scan(netlist, "Netlist", [folder], 0, set())
+    roots = [Path(base_dir)] if base_dir is not None else None
+    check_netlist_text(netlist, "Netlist", SimulationError, roots)
 
 
 _NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(meg|mil|[tgkmunpf])?", re.IGNORECASE)

@@ -15,7 +15,7 @@ from pathlib import Path
 from netgen.errors import SimulationError
 
 __all__ = ["MAX_COMMAND_CHARS", "EXECUTABLE_ENV", "LIBRARY_ENV", "SENTINEL", "canonical_name", "Vectors",
-           "save_spelling", "Resume", "check_verdict", "next_stop", "executable_path"]
+           "save_spelling", "Resume", "check_verdict", "next_stop", "executable_path", "private_env"]
 
 #: ngspice's shared API rejects longer command lines (PySpice enforces the same limit).
 MAX_COMMAND_CHARS = 1023
@@ -120,5 +120,14 @@ def executable_path() -> str | None:
     return shutil.which("ngspice")
 
 
+def private_env(folder: str) -> dict:
+    """The environment ngspice is started with: ours, with HOME set to ``folder``.
 
-
+    ngspice reads ``.spiceinit`` from the working folder, else from HOME (measured with ngspice
+    39, docs/reliability.md); both are ``folder``, a fresh private temporary folder, so no init
+    file a design folder or home folder holds is run.
+    """
+    env = dict(os.environ)
+    env["HOME"] = folder
+    env.pop("NGSPICE_INPUT_DIR", None)  # a folder ngspice searches for sourced files
+    return env

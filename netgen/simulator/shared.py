@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import atexit
 import os
+import shutil
 import subprocess
 import sys
+import tempfile
 import threading
 import time as _time
 from pathlib import Path
@@ -26,6 +28,7 @@ from .common import (
     canonical_name,
     check_verdict,
     next_stop,
+    private_env,
     save_spelling,
 )
 
@@ -258,20 +261,27 @@ class _Worker:
         p2c_r, p2c_w = os.pipe()
         c2p_r, c2p_w = os.pipe()
         code = f"from netgen.simulator.shared import _worker_entry; _worker_entry({p2c_r}, {c2p_w})"
-        env = dict(os.environ)
+        # the worker (and libngspice in it) runs in a fresh private folder that is also its HOME:
+        # libngspice reads .spiceinit from the working folder, else HOME (docs/reliability.md)
+        self.dir = tempfile.mkdtemp(prefix="netgen-ngw-")
+        env = private_env(self.dir)
         pkg_parent = str(Path(__file__).resolve().parent.parent)
         env["PYTHONPATH"] = pkg_parent + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
         try:
             self.proc = subprocess.Popen([sys.executable, "-c", code], pass_fds=(p2c_r, c2p_w),
                                          stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
-                                         stderr=subprocess.DEVNULL, env=env, close_fds=True)
+                                         stderr=subprocess.DEVNULL, env=env, close_fds=True, cwd=self.dir)
+        except OSError:
+            shutil.rmtree(self.dir, ignore_errors=True)
+            raise
         finally:
             os.close(p2c_r)
             os.close(c2p_w)
         self.tx = Connection(p2c_w, readable=False)
         self.conn = Connection(c2p_r, writable=False)
         self.owner = os.getpid()
-        self.tx.send(("init", list(sys.path)))
+        # absolute paths: the worker's working folder is not ours ('' would mean its own folder)
+        self.tx.send(("init", [os.path.abspath(p) if p else os.getcwd() for p in sys.path]))
 
     def alive(self) -> bool:
         return self.proc.poll() is None
@@ -288,6 +298,7 @@ class _Worker:
                 c.close()
             except OSError:
                 pass
+        shutil.rmtree(self.dir, ignore_errors=True)
 
     def call(self, job, timeout_s: float, progress):
         deadline = _time.monotonic() + timeout_s

@@ -41,7 +41,7 @@ from netgen.design import (
 )
 from netgen.errors import DesignError
 
-__all__ = ["Variation", "Tolerance", "Spec", "parse_vary", "parse_vswr", "parse_tolerance", "parse_spec", "load_circle",
+__all__ = ["MAX_AXIS_POINTS", "Variation", "Tolerance", "Spec", "parse_vary", "parse_vswr", "parse_tolerance", "parse_spec", "load_circle",
            "metric_value", "point_passes", "yield_interval", "KNOWN_METRICS", "format_value"]
 
 #: Top-level numeric keys of metrics.json usable in ``--spec`` (plus ``hN_dbc``).
@@ -50,6 +50,9 @@ KNOWN_METRICS = (
     "peak_vd_over_vdd", "peak_id_a", "cycles",
 )
 _HN = re.compile(r"^h([1-9][0-9]?)_dbc$")
+#: most values one --vary (or --vswr) axis may have: every value is validated against the design
+#: up front, and each becomes at least one simulation
+MAX_AXIS_POINTS = 10_000
 
 
 # ---------------------------------------------------------------- variations
@@ -144,6 +147,9 @@ def parse_vary(text: str) -> Variation:
             raise DesignError(f"{path}: the point count {parts[2]!r} in {spec!r} is not a whole number.") from None
         if n < 2:
             raise DesignError(f"{path}: a range needs at least 2 points (got {n}); give a single value as a list.")
+        if n > MAX_AXIS_POINTS:
+            raise DesignError(f"{path}: a range of {n} points exceeds the limit of {MAX_AXIS_POINTS} per axis; "
+                              "every point is a simulation, so sample more coarsely.")
         if unit in ("str", "bool"):
             raise DesignError(f"{path}: a text key cannot take a range; list the values, e.g. {path}=a,b.")
         if unit is None:  # component override: unit from the text, must agree
@@ -242,6 +248,8 @@ def parse_vswr(text: str, rl_ohm: float) -> Variation:
         raise DesignError(f"--vswr {text!r}: the VSWR must be greater than 1.")
     if n < 1:
         raise DesignError(f"--vswr {text!r}: the number of loads must be at least 1.")
+    if n > MAX_AXIS_POINTS:
+        raise DesignError(f"--vswr {text!r}: {n} loads exceed the limit of {MAX_AXIS_POINTS}; give fewer loads.")
     pts = load_circle(s, n, rl_ohm)
     sets = tuple({"design.load": format_value(r, "ohm"), "design.load_x": format_value(x, "ohm")} for _, r, x in pts)
     return Variation("load_phase_deg", sets, tuple(p for p, _, _ in pts), "deg")
@@ -332,6 +340,8 @@ def parse_spec(text: str) -> Spec:
         limit = float(lim[:-1]) / 100.0 if lim.endswith("%") else float(lim)
     except ValueError:
         raise DesignError(f"--spec {text!r}: the limit {lim!r} is not a number.") from None
+    if not math.isfinite(limit):  # NaN passes no comparison and inf every one: never a limit
+        raise DesignError(f"--spec {text!r}: the limit {lim!r} is not a finite number; give a value such as 0.70.")
     return Spec(name, op, limit)
 
 

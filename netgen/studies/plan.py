@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import operator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
@@ -45,10 +46,16 @@ from .grammar import (
     yield_interval,
 )
 
-__all__ = ["SweepPlan", "make_plan", "pin_network", "tolerance_key_value", "summarize", "SIZING_INPUTS", "Evaluator", "ProgressFn"]
+__all__ = ["MAX_POINTS", "MAX_SEED", "SweepPlan", "make_plan", "pin_network", "tolerance_key_value", "summarize",
+           "SIZING_INPUTS", "Evaluator", "ProgressFn"]
 
 #: swept keys that are inputs of the sizing: sweeping them re-sizes the network at every point
 SIZING_INPUTS = ("design.pout", "design.ropt")
+#: most points one sweep may have (grid x samples): each is a simulation, and the plan holds
+#: samples x components random factors in memory (8 bytes each)
+MAX_POINTS = 1_000_000
+#: the seed is stored as an SQLite INTEGER (signed 64-bit)
+MAX_SEED = 2**63 - 1
 
 Evaluator = Callable[[Any], dict]
 ProgressFn = Callable[[int, int, dict], None]
@@ -152,7 +159,17 @@ def make_plan(
     Length: the plan's kinds (grid, load circle, Monte Carlo) and their checks in one place, so
     a plan is a pure function of its inputs (resumable sweeps rely on that).
     """
+    try:
+        seed = operator.index(seed)
+    except TypeError:
+        seed = -1
+    if not 0 <= seed <= MAX_SEED:
+        raise DesignError(f"--seed {seed}: give a whole number from 0 to {MAX_SEED}.")
+    if samples is not None and int(samples) > MAX_POINTS:
+        raise DesignError(f"--samples {samples}: exceeds the limit of {MAX_POINTS} points per sweep "
+                          f"(about {_gib(int(samples) * 8 * 16)} of random factors for 16 components); take fewer samples.")
     variations = [parse_vary(v) for v in vary]
+    _check_count([len(v.sets) for v in variations], samples)
     base = design_from_dict(base_doc, source=source, where=str(source or "design"))
     swept = {p for v in variations for s in v.sets for p in s}
     if resize is None:
@@ -165,6 +182,7 @@ def make_plan(
         if touched & {"design.load", "design.load_x"}:
             raise DesignError("--vswr sets design.load and design.load_x; do not also --vary them.")
         variations.append(parse_vswr(vswr, base.load_ohm))
+    _check_count([len(v.sets) for v in variations], samples if tolerance else None)
     names = [v.name for v in variations]
     dup = {n for n in names if names.count(n) > 1}
     if dup:
@@ -223,6 +241,21 @@ def make_plan(
         plan.factors = factors
         plan.sizer = sizer
     return plan
+
+
+def _gib(n_bytes: int) -> str:
+    return f"{n_bytes / 2**30:.3g} GiB"
+
+
+def _check_count(axis_lengths: list[int], samples: int | None) -> None:
+    """Refuse, before anything is built, a sweep of more than MAX_POINTS points."""
+    n = 1
+    for k in axis_lengths:
+        n *= max(int(k), 1)
+    n *= max(int(samples or 1), 1)
+    if n > MAX_POINTS:
+        raise DesignError(f"the sweep would have {n} points, more than the limit of {MAX_POINTS} (each point is a "
+                          "simulation); vary fewer keys or use fewer values per --vary.")
 
 
 def pin_network(base_doc: dict, base, sizer: Callable | None = None) -> dict:

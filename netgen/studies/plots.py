@@ -7,9 +7,8 @@ Failed and not-settled points are drawn as gaps (NaN), never as values.
 
 from __future__ import annotations
 
+import io
 import math
-import os
-import tempfile
 from pathlib import Path
 from typing import Sequence
 
@@ -136,18 +135,15 @@ def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
 # ---------------------------------------------------------------- drawing
 
 def _save(fig, path: Path) -> Path:
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
-    os.close(fd)
+    """The figure as PNG at ``path``, written atomically with the user's umask (netgen.fileio)."""
+    from netgen.fileio import atomic_write_bytes
+
+    buf = io.BytesIO()
     try:
-        fig.savefig(tmp, dpi=110)
-        os.replace(tmp, path)
+        fig.savefig(buf, format="png", dpi=110)
     finally:
         plt.close(fig)
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-    return path
+    return atomic_write_bytes(Path(path), buf.getvalue())
 
 
 def _axis_label(name: str, unit: str) -> str:

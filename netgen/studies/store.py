@@ -27,6 +27,7 @@ import csv
 import io
 import json
 import math
+import os
 import sqlite3
 from datetime import datetime, timezone
 from pathlib import Path
@@ -67,6 +68,27 @@ CREATE TABLE IF NOT EXISTS points (
 """
 
 
+#: the columns each table must have (a foreign file with the same table names is refused)
+_COLUMNS = {
+    "sweeps": ("id", "design_digest", "design_toml", "spec", "seed", "n_points", "created"),
+    "points": ("sweep_id", "idx", "inputs", "status", "metrics", *KEY_COLUMNS, "settled", "error", "seconds"),
+}
+
+
+def _db_errors(method):
+    """SQLite errors of a store method become one OutputError naming the file."""
+    import functools
+
+    @functools.wraps(method)
+    def wrapper(self, *args, **kwargs):
+        try:
+            return method(self, *args, **kwargs)
+        except sqlite3.DatabaseError as exc:
+            raise self._corrupt(f"cannot be read ({exc})") from None
+
+    return wrapper
+
+
 class SweepStore:
     """A sweep store on disk. Use as a context manager or call :meth:`close`.
 
@@ -77,6 +99,9 @@ class SweepStore:
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
+        self.con = None
+        made_folder = not self.path.parent.exists()
+        made_file = not self.path.exists()
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             self.con = sqlite3.connect(str(self.path), timeout=30.0)
@@ -89,10 +114,47 @@ class SweepStore:
                 if col not in have:
                     self.con.execute(f"ALTER TABLE points ADD COLUMN {col} REAL")
             self.con.commit()
-        except sqlite3.DatabaseError as exc:
-            raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another output folder.") from None
-        except OSError as exc:
+            self._check_schema()
+        except (OutputError, sqlite3.DatabaseError, OSError) as exc:
+            self._undo(made_file, made_folder)  # a full disk leaves no empty store or folder behind
+            if isinstance(exc, OutputError):
+                raise
+            if isinstance(exc, sqlite3.DatabaseError):
+                raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another "
+                                  "output folder.") from None
             raise OutputError(f"{self.path}: cannot create the sweep store ({exc.strerror}); choose another output folder.") from None
+
+    def _undo(self, made_file: bool, made_folder: bool) -> None:
+        """Close, and remove what this failed open created (the store file, its journals, the folder)."""
+        try:
+            if self.con is not None:
+                self.con.close()
+        except sqlite3.Error:
+            pass
+        if made_file:
+            for suffix in ("", "-wal", "-shm", "-journal"):
+                try:
+                    os.unlink(f"{self.path}{suffix}")
+                except OSError:
+                    pass
+        if made_folder:
+            try:
+                self.path.parent.rmdir()
+            except OSError:
+                pass
+
+    def _check_schema(self) -> None:
+        """Refuse a file whose tables are not this store's (another program, another version)."""
+        for table, wanted in _COLUMNS.items():
+            have = {r[1] for r in self.con.execute(f"PRAGMA table_info({table})")}
+            missing = [c for c in wanted if c not in have]
+            if missing:
+                raise OutputError(f"{self.path}: is not a netgen sweep store (table '{table}' has no column "
+                                  f"'{missing[0]}'); choose another output folder or remove the file.")
+
+    def _corrupt(self, what: str) -> OutputError:
+        return OutputError(f"{self.path}: {what}; the store is damaged or was written by another program, "
+                           "so choose another output folder (or remove the file to start again).")
 
     def __enter__(self) -> "SweepStore":
         return self
@@ -105,6 +167,7 @@ class SweepStore:
 
     # ------------------------------------------------------------ sweeps
 
+    @_db_errors
     def open_sweep(self, design_digest: str, design_toml: str, spec: dict, n_points: int,
                    seed: int | None = None) -> int:
         """The sweep id for this design and spec: the stored one, or a new one in an empty store.
@@ -137,6 +200,7 @@ class SweepStore:
         self.con.commit()
         return int(cur.lastrowid)
 
+    @_db_errors
     def sweep_info(self, sweep_id: int | None = None) -> dict:
         """The sweep row as a dict (``spec`` parsed); the first sweep when ``sweep_id`` is None."""
         q = "SELECT id, design_digest, design_toml, spec, seed, n_points, created FROM sweeps"
@@ -146,15 +210,22 @@ class SweepStore:
             raise OutputError(f"{self.path}: holds no sweep; run 'netgen sweep' with -o pointing here first.")
         keys = ("id", "design_digest", "design_toml", "spec", "seed", "n_points", "created")
         out = dict(zip(keys, row))
-        out["spec"] = json.loads(out["spec"])
+        try:
+            out["spec"] = json.loads(out["spec"])
+        except (TypeError, ValueError):
+            raise self._corrupt(f"sweep {out['id']} has an unreadable spec") from None
+        if not isinstance(out["spec"], dict) or not isinstance(out["n_points"], int):
+            raise self._corrupt(f"sweep {out['id']} has a spec or point count of the wrong kind")
         return out
 
     # ------------------------------------------------------------ points
 
+    @_db_errors
     def done_indices(self, sweep_id: int) -> set[int]:
         """Indices of the points already stored (any status)."""
         return {r[0] for r in self.con.execute("SELECT idx FROM points WHERE sweep_id = ?", (sweep_id,))}
 
+    @_db_errors
     def record(self, sweep_id: int, idx: int, inputs: dict, status: str, metrics: dict | None,
                error: str | None, seconds: float) -> bool:
         """Store one finished point and commit. Returns False if ``idx`` was already stored (kept as is)."""
@@ -175,15 +246,36 @@ class SweepStore:
 
     def rows(self, sweep_id: int) -> Iterator[dict]:
         """Stored points in index order: ``idx``, ``inputs``, ``status``, ``metrics``, ``error``, ``seconds``."""
-        cur = self.con.execute(
-            "SELECT idx, inputs, status, metrics, error, seconds FROM points WHERE sweep_id = ? ORDER BY idx",
-            (sweep_id,),
-        )
-        for idx, inputs, status, metrics, error, seconds in cur:
-            yield {"idx": idx, "inputs": json.loads(inputs), "status": status,
-                   "metrics": None if metrics is None else json.loads(metrics),
-                   "error": error, "seconds": seconds}
+        try:
+            cur = self.con.execute(
+                "SELECT idx, inputs, status, metrics, error, seconds FROM points WHERE sweep_id = ? ORDER BY idx",
+                (sweep_id,),
+            )
+            for row in cur:
+                yield self._row(*row)
+        except sqlite3.DatabaseError as exc:
+            raise self._corrupt(f"cannot be read ({exc})") from None
 
+    def _row(self, idx, inputs, status, metrics, error, seconds) -> dict:
+        """One stored point, checked: a row another program wrote or a damaged one is an OutputError."""
+        where = f"point {idx}"
+        if not isinstance(idx, int):
+            raise self._corrupt(f"a point has the index {idx!r}")
+        try:
+            inputs = json.loads(inputs)
+            metrics = None if metrics is None else json.loads(metrics)
+        except (TypeError, ValueError):
+            raise self._corrupt(f"{where} holds text that is not JSON (or no inputs)") from None
+        if not isinstance(inputs, dict) or not (metrics is None or isinstance(metrics, dict)):
+            raise self._corrupt(f"{where} holds inputs or metrics of the wrong kind")
+        if status not in STATUSES or not (error is None or isinstance(error, str)):
+            raise self._corrupt(f"{where} has the status {str(status)[:20]!r} or an error of the wrong kind")
+        if seconds is not None and not isinstance(seconds, (int, float)):
+            raise self._corrupt(f"{where} has a run time of the wrong kind")
+        return {"idx": idx, "inputs": inputs, "status": status, "metrics": metrics, "error": error,
+                "seconds": seconds}
+
+    @_db_errors
     def count(self, sweep_id: int) -> dict:
         """Number of stored points per status."""
         out = {s: 0 for s in STATUSES}
@@ -262,7 +354,7 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
             *(_cell(harm[n].get(f"z_{part}_ohm")) if n < len(harm) else ""
               for n in range(n_harm) for part in ("re", "im")),
             "" if not r["metrics"] else int(bool(m.get("settled"))),
-            f"{r['seconds']:.3f}", r["error"] or "",
+            "" if r["seconds"] is None else f"{r['seconds']:.3f}", r["error"] or "",
         ])
     return atomic_write_text(path, buf.getvalue())
 

@@ -363,20 +363,8 @@ def _values_table(sized: SizedDesign):
 
 
 def write_sized_toml(sized: SizedDesign, path: str | Path) -> Path:
-    """Write :func:`sized_toml_text` to ``path`` atomically (temp file + os.replace)."""
-    import os
-    import tempfile
+    """Write :func:`sized_toml_text` to ``path`` atomically (:func:`netgen.fileio.atomic_write_text`:
+    the user's umask, no temporary file left behind when the disk is full)."""
+    from netgen.fileio import atomic_write_text
 
-    from netgen.errors import OutputError
-
-    path = Path(path)
-    text = sized_toml_text(sized)
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write the sized design ({exc.strerror}); check the folder.") from None
-    return path
+    return atomic_write_text(Path(path), sized_toml_text(sized))
