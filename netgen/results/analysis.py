@@ -282,7 +282,7 @@ def _loss_budget(wf, design, netlist_text: str, vd: np.ndarray, isw: np.ndarray,
     return losses
 
 
-def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> dict:
+def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engine: str = "ngspice") -> dict:
     """Metrics of one settled simulation (the metrics.json contract).
 
     Parameters
@@ -299,6 +299,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         The transient netlist (RLOAD value and RLOSS_* lines are read from it).
     harmonics : int, optional
         Harmonics reported (default ``sized.design.sim.harmonics``).
+    engine : str
+        What produced ``wf``, reported as ``metrics["engine"]``: ``"ngspice"`` (a simulation) or
+        ``"estimate"`` (the periodic estimate alone, netgen.studies.fast).
 
     Returns
     -------
@@ -368,6 +371,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
             "load_ohm": float(rl),
             "ropt_ohm": _f(sized.ropt_ohm),
         },
+        "engine": engine,
         "settled": bool(wf.settled),
         "cycles": int(wf.cycles),
         "settle_note": wf.note,
