@@ -20,9 +20,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -44,7 +45,7 @@ from .grammar import (
     yield_interval,
 )
 
-__all__ = ["SweepPlan", "make_plan", "pin_network", "summarize", "SIZING_INPUTS", "Evaluator", "ProgressFn"]
+__all__ = ["SIZING_INPUTS", "Evaluator", "ProgressFn", "SweepPlan", "make_plan", "pin_network", "summarize"]
 
 #: swept keys that are inputs of the sizing: sweeping them re-sizes the network at every point
 SIZING_INPUTS = ("design.pout", "design.ropt")
