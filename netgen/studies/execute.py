@@ -11,8 +11,8 @@ import json
 import os
 import time
 import traceback
-from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Callable, Iterator
 
 import numpy as np
 

@@ -29,9 +29,8 @@ from __future__ import annotations
 import fnmatch
 import math
 import re
-from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Sequence
 
 import numpy as np
 
@@ -42,21 +41,8 @@ from netgen.design import (
 )
 from netgen.errors import DesignError
 
-__all__ = [
-    "KNOWN_METRICS",
-    "Spec",
-    "Tolerance",
-    "Variation",
-    "format_value",
-    "load_circle",
-    "metric_value",
-    "parse_spec",
-    "parse_tolerance",
-    "parse_vary",
-    "parse_vswr",
-    "point_passes",
-    "yield_interval",
-]
+__all__ = ["Variation", "Tolerance", "Spec", "parse_vary", "parse_vswr", "parse_tolerance", "parse_spec", "load_circle",
+           "metric_value", "point_passes", "yield_interval", "KNOWN_METRICS", "format_value"]
 
 #: Top-level numeric keys of metrics.json usable in ``--spec`` (plus ``hN_dbc``).
 KNOWN_METRICS = (

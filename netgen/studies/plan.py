@@ -20,10 +20,9 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -45,7 +44,7 @@ from .grammar import (
     yield_interval,
 )
 
-__all__ = ["SIZING_INPUTS", "Evaluator", "ProgressFn", "SweepPlan", "make_plan", "pin_network", "summarize"]
+__all__ = ["SweepPlan", "make_plan", "pin_network", "summarize", "SIZING_INPUTS", "Evaluator", "ProgressFn"]
 
 #: swept keys that are inputs of the sizing: sweeping them re-sizes the network at every point
 SIZING_INPUTS = ("design.pout", "design.ropt")

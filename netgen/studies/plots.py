@@ -10,29 +10,29 @@ from __future__ import annotations
 import math
 import os
 import tempfile
-from collections.abc import Sequence
 from pathlib import Path
+from typing import Sequence
 
 import matplotlib
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt
-import numpy as np
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
 
-from .grammar import Spec, metric_value, point_passes, yield_interval
+from .grammar import Spec, metric_value, point_passes, yield_interval  # noqa: E402
 
 __all__ = [
     "LINE_METRICS",
     "axis_names",
-    "circle_data",
-    "grid_data",
     "line_data",
+    "grid_data",
+    "sample_data",
+    "circle_data",
+    "plot_line",
     "plot_grid",
     "plot_histograms",
-    "plot_line",
     "plot_load_circle",
     "plot_sweep",
-    "sample_data",
 ]
 
 #: metric -> (label, display scale)

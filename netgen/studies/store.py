@@ -28,13 +28,13 @@ import io
 import json
 import math
 import sqlite3
-from collections.abc import Iterator
 from datetime import datetime, timezone
 from pathlib import Path
+from typing import Iterator
 
 from netgen.errors import OutputError
 
-__all__ = ["KEY_COLUMNS", "STORE_NAME", "SweepStore", "export_csv"]
+__all__ = ["SweepStore", "export_csv", "KEY_COLUMNS", "STORE_NAME"]
 
 STORE_NAME = "sweep.sqlite"
 #: metrics copied into their own columns
@@ -88,7 +88,7 @@ class SweepStore:
         except OSError as exc:
             raise OutputError(f"{self.path}: cannot create the sweep store ({exc.strerror}); choose another output folder.") from None
 
-    def __enter__(self) -> SweepStore:
+    def __enter__(self) -> "SweepStore":
         return self
 
     def __exit__(self, *exc) -> None:
