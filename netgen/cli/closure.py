@@ -54,14 +54,7 @@ Example:
               help="Output folder (default tune_<design name>/).")
 def tune_command(design_file, free, targets, maximise, minimise, limits, budget, seed, no_confirm, out):
     from netgen.design import load_design
-    from netgen.studies.tune import (
-        parse_extremum,
-        parse_free,
-        parse_limit,
-        parse_target,
-        tune,
-    )
-    from netgen.studies.tune_report import write_tuning
+    from netgen.studies import parse_extremum, parse_free, parse_limit, parse_target, tune, write_tuning
 
     if budget < 10:
         raise click.BadParameter("give at least 10 evaluations.", param_hint="--budget")
@@ -140,8 +133,7 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
     import tomlkit
 
     from netgen.design import load_design
-    from netgen.studies.loadpull import IdealDevice, make_loadpull_plan
-    from netgen.studies.loadpull_run import loadpull_outputs, run_loadpull
+    from netgen.studies import IdealDevice, loadpull_outputs, make_loadpull_plan, run_loadpull
     from netgen.synthesis import size
 
     design = load_design(design_file)
@@ -162,7 +154,7 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
                          points=points)
     plan = make_loadpull_plan(device, z0_ohm=z0_ohm or ropt, f0_hz=float(design.f0_hz), terms=terms, rest=rest)
     if device_kind == "current":
-        from netgen.studies.loadpull import drive_current
+        from netgen.studies import drive_current
 
         drive_current(current, 1.0, 16)  # a wrong --current is an error before anything runs
     out = out or Path(f"loadpull_{design.name}")
