@@ -10,7 +10,7 @@ import pytest
 from netgen.design import design_from_dict, load_design
 from netgen.errors import DesignError
 from netgen.studies import fast
-from netgen.studies.tune import objective, parse_free, parse_limit, parse_target, tune
+from netgen.studies.tune import objective, parse_free, parse_limit, parse_target, tune_design
 from netgen.synthesis import size
 from tests.conftest import write_toml
 
@@ -102,7 +102,7 @@ def test_tuning_detuned_class_e_recovers_sokal_capacitance_and_zvs():
     assert abs(detuned["zvs_v_over_vdd"]) > 0.1  # no zero-voltage switching before tuning
     free = [parse_free(f"network.values.shunt_c={0.5 * c_sokal:.5g}F:{2 * c_sokal:.5g}F"),
             parse_free(f"network.values.excess_l={0.5 * l_x:.5g}H:{2 * l_x:.5g}H")]
-    res = tune(doc, free, parse_target("zvs"), budget=200)
+    res = tune_design(doc, free, parse_target("zvs"), budget=200)
     assert res.x[0] == pytest.approx(c_sokal, rel=0.03)
     assert abs(res.metrics["zvs_v_over_vdd"]) < 0.01 and abs(res.metrics["zvs_slope_over_vdd"]) < 0.01
     assert res.j < res.j0

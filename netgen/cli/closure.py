@@ -54,7 +54,7 @@ Example:
               help="Output folder (default tune_<design name>/).")
 def tune_command(design_file, free, targets, maximise, minimise, limits, budget, seed, no_confirm, out):
     from netgen.design import load_design
-    from netgen.studies import parse_extremum, parse_free, parse_limit, parse_target, tune, write_tuning
+    from netgen.studies import parse_extremum, parse_free, parse_limit, parse_target, tune_design, write_tuning
 
     if budget < 10:
         raise click.BadParameter("give at least 10 evaluations.", param_hint="--budget")
@@ -63,7 +63,7 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
     goals = [g for t in targets for g in parse_target(t)]
     goals += [parse_extremum(m, "max") for m in maximise] + [parse_extremum(m, "min") for m in minimise]
     goals += [parse_limit(text) for text in limits]
-    result = tune(design.raw, frees, goals, source=design.source, budget=budget, seed=seed)
+    result = tune_design(design.raw, frees, goals, source=design.source, budget=budget, seed=seed)
     out = out or Path(f"tune_{design.name}")
     summary = write_tuning(result, out, Path(design_file).read_text(encoding="utf-8"), confirm=not no_confirm)
     click.echo(f"{len(result.history)} evaluations in {result.seconds:.1f} s ({result.method})")

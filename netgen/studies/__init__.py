@@ -31,7 +31,7 @@ _EXPORTS = {
     "parse_limit": "tune",
     "parse_target": "tune",
     "run_loadpull": "loadpull_run",
-    "tune": "tune",
+    "tune_design": "tune",
     "write_tuning": "tune_report",
     "export_csv": "store",
     "make_plan": "plan",

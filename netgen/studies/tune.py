@@ -45,7 +45,7 @@ __all__ = [
     "parse_free",
     "parse_limit",
     "parse_target",
-    "tune",
+    "tune_design",
 ]
 
 #: target/limit weight (see the module docstring)
@@ -255,7 +255,7 @@ def _evaluator():
     return evaluate_fast
 
 
-def tune(doc: dict, free: list[Free], goals: list[Goal], *, source=None, budget: int = 300, seed: int = 1,
+def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, budget: int = 300, seed: int = 1,
          evaluate=None, sizer=None) -> TuneResult:
     """Minimise the objective over the free keys (see the module docstring).
 
