@@ -78,7 +78,7 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
         click.echo(f"  {k:<22} " + " ".join(f"{'-' if c is None else f'{c:.5g}':>11}" for c in cells))
     for t in summary["targets"]:
         if t["ngspice_rel"] is not None:
-            click.echo(f"  target {t['goal']}: ngspice {t['ngspice']:.5g} ({100 * t['ngspice_rel']:+.2f} % from {t['value']:.5g})")
+            click.echo(f"  goal {t['goal']}: ngspice {t['ngspice']:.5g} ({100 * t['ngspice_rel']:+.2f} % from {t['value']:.5g})")
     conf = summary.get("confirm")
     if conf:
         flag = " (flagged: more than 0.2 % apart; trust ngspice)" if conf["flagged"] else ""
