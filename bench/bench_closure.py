@@ -27,7 +27,13 @@ TOLERANCES = ("C*=5%", "L*=5%")
 
 
 def _sweep(design, n: int, workers: int, fast: bool, folder: Path, seed: int = 1) -> dict:
-    from netgen.studies import STORE_NAME, SweepStore, evaluate_fast, make_plan, run_sweep
+    from netgen.studies import (
+        STORE_NAME,
+        SweepStore,
+        evaluate_fast,
+        make_plan,
+        run_sweep,
+    )
 
     plan = make_plan(design.raw, source=design.source, tolerance=TOLERANCES, samples=n, seed=seed)
     spec = {**plan.spec(), "engine": "estimate" if fast else "ngspice"}

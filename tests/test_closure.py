@@ -10,7 +10,13 @@ import pytest
 from netgen.design import design_from_dict, load_design
 from netgen.errors import DesignError
 from netgen.studies import fast
-from netgen.studies.tune import objective, parse_free, parse_limit, parse_target, tune_design
+from netgen.studies.tune import (
+    objective,
+    parse_free,
+    parse_limit,
+    parse_target,
+    tune_design,
+)
 from netgen.synthesis import size
 from tests.conftest import write_toml
 
@@ -111,7 +117,7 @@ def test_tuning_detuned_class_e_recovers_sokal_capacitance_and_zvs():
 @pytest.mark.ngspice
 @pytest.mark.slow
 def test_tune_command_reaches_8w_on_the_demo_confirmed_in_ngspice(netgen_cli, tmp_path):
-    code, out, err = netgen_cli("tune", SIMS / "demo.toml", "--free", "network.values.line_z0=30ohm:70ohm",
+    code, _out, err = netgen_cli("tune", SIMS / "demo.toml", "--free", "network.values.line_z0=30ohm:70ohm",
                                 "--target", "pout=8W", "--maximise", "drain_efficiency", "--budget", "120",
                                 "-o", tmp_path / "t")
     assert code == 0, err

@@ -10,7 +10,13 @@ import pytest
 from scipy.optimize import minimize_scalar
 
 from netgen.errors import DesignError
-from netgen.studies.loadpull import IdealDevice, make_loadpull_plan, parse_termination, raab_current, solve_point
+from netgen.studies.loadpull import (
+    IdealDevice,
+    make_loadpull_plan,
+    parse_termination,
+    raab_current,
+    solve_point,
+)
 from netgen.studies.loadpull_run import loadpull_outputs, run_loadpull
 
 VDD, IMAX = 1.0, 1.0

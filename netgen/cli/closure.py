@@ -54,7 +54,14 @@ Example:
               help="Output folder (default tune_<design name>/).")
 def tune_command(design_file, free, targets, maximise, minimise, limits, budget, seed, no_confirm, out):
     from netgen.design import load_design
-    from netgen.studies import parse_extremum, parse_free, parse_limit, parse_target, tune_design, write_tuning
+    from netgen.studies import (
+        parse_extremum,
+        parse_free,
+        parse_limit,
+        parse_target,
+        tune_design,
+        write_tuning,
+    )
 
     if budget < 10:
         raise click.BadParameter("give at least 10 evaluations.", param_hint="--budget")
@@ -133,7 +140,12 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
     import tomlkit
 
     from netgen.design import load_design
-    from netgen.studies import IdealDevice, loadpull_outputs, make_loadpull_plan, run_loadpull
+    from netgen.studies import (
+        IdealDevice,
+        loadpull_outputs,
+        make_loadpull_plan,
+        run_loadpull,
+    )
     from netgen.synthesis import size
 
     design = load_design(design_file)
