@@ -287,7 +287,7 @@ def _add_optional_commands() -> None:
     """Commands defined in their own modules (each imports no simulator at import time)."""
     import importlib
 
-    for module, names in (("studies", ("sweep_command",)),
+    for module, names in (("studies", ("sweep_command",)), ("closure", ("tune_command", "loadpull_command")),
                           ("handoff", ("check_command", "diff_command", "export_command"))):
         try:
             mod = importlib.import_module(f".{module}", __package__)

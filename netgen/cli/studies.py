@@ -46,6 +46,13 @@ Specs (a failed or not-settled point fails them):
   --spec "drain_efficiency>=0.70" --spec "h2_dbc<=-30" --spec "peak_vd_over_vdd<=3.6"
 
 \b
+Fast path (--fast): every point from the periodic steady state computed
+directly (no time stepping, tens of times faster); --confirm N points drawn at
+random are re-run in ngspice and the disagreement reported; a point off by more
+than 0.2 % in Pout or efficiency is flagged and its stored values become
+ngspice's. Points the estimate cannot model run in ngspice and say so.
+
+\b
 Example:
   netgen sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep_vdd/
   netgen sweep my_pa.toml --tolerance "C*=5%" --samples 200 \\
@@ -84,9 +91,12 @@ def _load_evaluator(text: str | None):
 @click.option("--no-plots", is_flag=True, help="Skip the PNG plots.")
 @click.option("--list", "list_only", is_flag=True, help="Print the points and exit without simulating.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
+@click.option("--fast", is_flag=True, help="Evaluate points on the periodic estimate, confirm a sample in ngspice (see above).")
+@click.option("--confirm", "confirm_n", type=int, default=5, show_default=True,
+              help="With --fast: points re-run in ngspice to confirm (drawn with --seed); 0 for none.")
 @click.option("--evaluator", hidden=True, default=None, help="module:function evaluating a Design (tests, custom flows).")
 def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs, out, workers, cluster,
-                  keep_waveforms, resize, no_plots, list_only, quiet, evaluator):
+                  keep_waveforms, resize, no_plots, list_only, quiet, fast, confirm_n, evaluator):
     from netgen.design import load_design
     from netgen.studies import (
         STORE_NAME,
@@ -112,10 +122,20 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         return
     out = out or Path(f"sweep_{design.name}")
     fn = _load_evaluator(evaluator)
+    spec = plan.spec()
+    if fast:
+        if evaluator or keep_waveforms:
+            raise DesignError("--fast evaluates on the periodic estimate; do not combine it with "
+                              + ("--evaluator." if evaluator else "--keep-waveforms (waveforms come from ngspice runs)."))
+        if confirm_n < 0:
+            raise click.BadParameter("must be 0 or more.", param_hint="--confirm")
+        from netgen.studies import evaluate_fast as fn
+
+        spec = {**spec, "engine": "estimate"}  # a fast sweep is stored apart from an ngspice one
     import tomlkit
 
     with SweepStore(out / STORE_NAME) as store:
-        sid = store.open_sweep(plan.design_digest(), tomlkit.dumps(design.raw), plan.spec(), plan.n_points,
+        sid = store.open_sweep(plan.design_digest(), tomlkit.dumps(design.raw), spec, plan.n_points,
                                plan.seed if plan.tolerances else None)
         bar = None
         if not quiet:
@@ -136,7 +156,14 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         finally:
             if bar is not None:
                 bar.close()
+        confirmation = None
+        if fast and confirm_n:
+            from netgen.studies import confirm_sample
+
+            confirmation = confirm_sample(store, sid, plan.base_doc, confirm_n, seed=seed)
         summary = summarize(store.rows(sid), spec_list, plan.n_points)  # streamed, one row at a time
+        if confirmation is not None:
+            summary["confirmation"] = confirmation
         first_failed = store.con.execute(
             "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'failed' ORDER BY idx LIMIT 1", (sid,)
         ).fetchone()
@@ -157,12 +184,29 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         click.echo(f"yield {100 * summary['yield']:.1f}% ({summary['passed']}/{summary['stored']}), "
                    f"95% interval {100 * summary['yield_lo']:.1f}%..{100 * summary['yield_hi']:.1f}% "
                    "(Clopper-Pearson; failed and not-settled points count as failing)")
+    if fast:
+        _echo_confirmation(summary.get("confirmation"))
     if first_failed:
         n_failed = summary["failed"]
         more = f" (and {n_failed - 1} more; see the error column of sweep.csv)" if n_failed > 1 else ""
         first_line = (str(first_failed[1] or "").splitlines() or ["no message stored"])[0]
         click.echo(f"  point {first_failed[0]} failed: {first_line}{more}")
     click.echo(f"wrote {out / STORE_NAME}, {csv_path}" + (f", {len(made)} plots" if made else ""))
+
+
+def _echo_confirmation(conf: dict | None) -> None:
+    """One line on the ngspice confirmation of a fast sweep."""
+    if not conf or not conf["confirmed"]:
+        click.echo("fast path: no point confirmed in ngspice (--confirm 0 or no estimate point).")
+        return
+
+    def pct(x):
+        return "-" if x is None else f"{100 * x:.3f} %"
+
+    click.echo(f"fast path: {conf['confirmed']} points confirmed in ngspice, largest difference "
+               f"Pout {pct(conf['worst_pout_rel'])}, efficiency {pct(conf['worst_efficiency_rel'])}; "
+               f"{conf['flagged']} beyond {100 * conf['tolerance']:.1f} % (flagged, re-run in ngspice)"
+               + (f"; {conf['errors']} could not be run" if conf["errors"] else ""))
 
 
 def main(argv=None) -> None:

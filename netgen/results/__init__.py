@@ -13,6 +13,7 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "CAUTIONS": "report",
     "analyse": "analysis",
     "design_warnings": "analysis",
     "format_table": "report",

@@ -310,7 +310,7 @@ def _loss_budget(win: _Window, design, netlist_text: str, load_harmonics_w: floa
     return losses
 
 
-def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> dict:
+def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engine: str = "ngspice") -> dict:
     """Metrics of one settled simulation (the metrics.json contract).
 
     Parameters
@@ -327,6 +327,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         The transient netlist (RLOAD value and RLOSS_* lines are read from it).
     harmonics : int, optional
         Harmonics reported (default ``sized.design.sim.harmonics``).
+    engine : str
+        What produced ``wf``, reported as ``metrics["engine"]``: ``"ngspice"`` (a simulation) or
+        ``"estimate"`` (the periodic estimate alone, netgen.studies.fast).
 
     Returns
     -------
@@ -405,6 +408,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
             "load_ohm": float(rl),
             "ropt_ohm": _f(sized.ropt_ohm),
         },
+        "engine": engine,
         "settled": bool(wf.settled) and not (impossible and device_w >= 0),  # energy still leaving: not settled
         "cycles": int(wf.cycles),
         "settle_note": wf.note if not impossible else f"{impossible}; {wf.note}",

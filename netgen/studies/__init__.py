@@ -5,7 +5,9 @@ a Dask cluster), keeps every point in a resumable SQLite store, and draws the st
 
 Modules: ``grammar`` (variations, load circles, tolerances, specs and yield), ``plan`` (the points of a
 study, Monte Carlo draws, the summary), ``execute``
-(running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures).
+(running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures), ``fast`` (metrics from
+the periodic estimate alone, confirmed in ngspice), ``tune`` (bounded optimisation toward targets),
+``loadpull`` (harmonic load-pull at the intrinsic plane), ``closure_plots`` (their figures).
 """
 
 from importlib import import_module
@@ -13,8 +15,24 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "CONFIRM_TOL": "fast",
     "STORE_NAME": "store",
     "SweepStore": "store",
+    "confirm_sample": "fast",
+    "evaluate_estimate": "fast",
+    "evaluate_fast": "fast",
+    "evaluate_ngspice": "fast",
+    "IdealDevice": "loadpull",
+    "drive_current": "loadpull",
+    "loadpull_outputs": "loadpull_run",
+    "make_loadpull_plan": "loadpull",
+    "parse_extremum": "tune",
+    "parse_free": "tune",
+    "parse_limit": "tune",
+    "parse_target": "tune",
+    "run_loadpull": "loadpull_run",
+    "tune_design": "tune",
+    "write_tuning": "tune_report",
     "export_csv": "store",
     "make_plan": "plan",
     "parse_spec": "grammar",

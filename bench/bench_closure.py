@@ -1,0 +1,129 @@
+"""Design closure at estimate speed: fast path vs full transient, a 10 000-point Monte Carlo, tuning.
+
+    python bench/bench_closure.py            # about 3-4 minutes on 2 cores; adds "closure" to bench/results.json
+    python bench/bench_closure.py --quick    # small sizes, prints only
+
+Measures on the demo (sims/demo.toml), with a tolerance Monte Carlo (C* 5 %, L* 5 %) as the study:
+points per second of the fast path (``netgen sweep --fast``: the periodic estimate) and of the full
+transient (ngspice), each with 1 and 2 local workers; the ngspice confirmation of a sample of fast
+points (largest Pout and efficiency difference); the wall time of a 10 000-point fast Monte Carlo on
+2 workers; and the time to tune the demo to Pout = 8 W (line Z0 free) with its ngspice check.
+Targets (docs/benchmarks.md): ratio >= 20, every confirmed point within 0.2 %, 10 000 points under
+120 s on 2 cores, tuning under 30 s confirmed within 2 %. Run nothing else heavy meanwhile.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+DEMO = HERE.parent / "sims" / "demo.toml"
+TOLERANCES = ("C*=5%", "L*=5%")
+
+
+def _sweep(design, n: int, workers: int, fast: bool, folder: Path, seed: int = 1) -> dict:
+    from netgen.studies import (
+        STORE_NAME,
+        SweepStore,
+        evaluate_fast,
+        make_plan,
+        run_sweep,
+    )
+
+    plan = make_plan(design.raw, source=design.source, tolerance=TOLERANCES, samples=n, seed=seed)
+    spec = {**plan.spec(), "engine": "estimate" if fast else "ngspice"}
+    with SweepStore(folder / STORE_NAME) as store:
+        sid = store.open_sweep(plan.design_digest(), "", spec, plan.n_points, seed)
+        t0 = time.perf_counter()
+        counts = run_sweep(plan, store, sid, workers=workers, evaluator=evaluate_fast if fast else None)
+        wall = time.perf_counter() - t0
+        ok = store.count(sid)["ok"]
+    return {"points": n, "workers": workers, "wall_s": round(wall, 3), "points_per_s": round(n / wall, 2),
+            "ok": ok, "failed": counts["failed"], "folder": folder, "plan": plan, "sid": sid}
+
+
+def _confirm(run: dict, n: int) -> dict:
+    from netgen.studies import STORE_NAME, SweepStore, confirm_sample
+
+    with SweepStore(run["folder"] / STORE_NAME) as store:
+        conf = confirm_sample(store, run["sid"], run["plan"].base_doc, n, seed=7)
+    conf["all_within"] = conf["flagged"] == 0 and conf["errors"] == 0
+    conf["points"] = [{k: p.get(k) for k in ("idx", "pout_rel", "efficiency_rel", "flagged")} for p in conf["points"]]
+    return conf
+
+
+def _tune(design) -> dict:
+    from netgen.studies import parse_extremum, parse_free, parse_target, tune_design
+    from netgen.studies.fast import disagreement, evaluate_ngspice
+
+    t0 = time.perf_counter()
+    res = tune_design(design.raw, [parse_free("network.values.line_z0=30ohm:70ohm")],
+               parse_target("pout=8W") + [parse_extremum("drain_efficiency", "max")], source=design.source, budget=120)
+    t_tune = time.perf_counter() - t0
+    full = evaluate_ngspice(res.problem.design_at(res.x))
+    total = time.perf_counter() - t0
+    return {"free": "network.values.line_z0=30ohm:70ohm", "goals": "pout=8W, maximise drain_efficiency",
+            "tuned_line_z0_ohm": res.x[0], "start_line_z0_ohm": res.x0[0], "evaluations": len(res.history),
+            "tune_s": round(t_tune, 2), "with_confirmation_s": round(total, 2),
+            "estimate_pout_w": res.metrics["pout_w"], "ngspice_pout_w": full["pout_w"],
+            "ngspice_pout_rel_to_target": full["pout_w"] / 8.0 - 1.0,
+            "ngspice_drain_efficiency": full["drain_efficiency"], "estimate_vs_ngspice": disagreement(res.metrics, full)}
+
+
+def main() -> None:
+    from netgen.design import load_design
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true")
+    args = ap.parse_args()
+    design = load_design(DEMO)
+    n_fast, n_full, n_mc = (40, 6, 400) if args.quick else (400, 40, 10000)
+    out: dict = {"design": "demo", "tolerances": list(TOLERANCES)}
+    with tempfile.TemporaryDirectory(prefix="netgen-closure-") as tmp:
+        tmp = Path(tmp)
+        runs = {}
+        for label, n, fast in (("estimate", n_fast, True), ("ngspice", n_full, False)):
+            for w in (1, 2):
+                r = _sweep(design, n, w, fast, tmp / f"{label}_{w}")
+                runs[(label, w)] = r
+                print(f"{label:8s} workers={w}: {r['points']} points in {r['wall_s']:.2f} s = {r['points_per_s']:.1f} points/s",
+                      file=sys.stderr)
+        out["throughput"] = {f"{k[0]}_{k[1]}w": {x: v[x] for x in ("points", "workers", "wall_s", "points_per_s", "ok", "failed")}
+                             for k, v in runs.items()}
+        out["ratio_1w"] = runs[("estimate", 1)]["points_per_s"] / runs[("ngspice", 1)]["points_per_s"]
+        out["ratio_2w"] = runs[("estimate", 2)]["points_per_s"] / runs[("ngspice", 2)]["points_per_s"]
+        out["confirmation"] = _confirm(runs[("estimate", 1)], 10 if not args.quick else 3)
+        print(f"ratio {out['ratio_1w']:.1f}x (1 worker), {out['ratio_2w']:.1f}x (2 workers); confirmation: "
+              f"{out['confirmation']['confirmed']} points, worst Pout {out['confirmation']['worst_pout_rel']:.2e}, "
+              f"efficiency {out['confirmation']['worst_efficiency_rel']:.2e}", file=sys.stderr)
+        mc = _sweep(design, n_mc, 2, True, tmp / "mc", seed=3)
+        out["monte_carlo"] = {x: mc[x] for x in ("points", "workers", "wall_s", "points_per_s", "ok", "failed")}
+        print(f"Monte Carlo: {mc['points']} points in {mc['wall_s']:.1f} s on 2 workers", file=sys.stderr)
+    out["tuning"] = _tune(design)
+    print(f"tuning: {out['tuning']['tune_s']:.1f} s ({out['tuning']['evaluations']} evaluations), with the ngspice check "
+          f"{out['tuning']['with_confirmation_s']:.1f} s; ngspice Pout {out['tuning']['ngspice_pout_w']:.4f} W", file=sys.stderr)
+    out["targets"] = {"ratio_min": 20.0, "confirm_rel_max": 0.002, "monte_carlo_10k_s_max": 120.0, "tune_s_max": 30.0,
+                      "tune_pout_rel_max": 0.02}
+    out["targets_met"] = {
+        "ratio": min(out["ratio_1w"], out["ratio_2w"]) >= 20.0,
+        "confirmed_within": out["confirmation"]["all_within"],
+        "monte_carlo": (out["monte_carlo"]["wall_s"] <= 120.0) if n_mc == 10000 else None,
+        "tuning_time": out["tuning"]["with_confirmation_s"] <= 30.0,
+        "tuning_pout": abs(out["tuning"]["ngspice_pout_rel_to_target"]) <= 0.02,
+    }
+    print(json.dumps(out["targets_met"]), file=sys.stderr)
+    if not args.quick:
+        path = HERE / "results.json"
+        doc = json.loads(path.read_text()) if path.is_file() else {}
+        doc["closure"] = out
+        path.write_text(json.dumps(doc, indent=1) + "\n")
+        print(f"wrote {path} (key 'closure')", file=sys.stderr)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,152 @@
+"""The fast evaluation path (netgen.studies.fast) and tuning (netgen.studies.tune)."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+
+from netgen.design import design_from_dict, load_design
+from netgen.errors import DesignError
+from netgen.studies import fast
+from netgen.studies.tune import (
+    objective,
+    parse_free,
+    parse_limit,
+    parse_target,
+    tune_design,
+)
+from netgen.synthesis import size
+from tests.conftest import write_toml
+
+SIMS = __import__("pathlib").Path(__file__).resolve().parents[1] / "sims"
+
+#: an idealised class E (invented): high loaded Q and a near-ideal switch, so that Sokal's
+#: infinite-Q equations hold (his finite-Q correction is about 1/Q, 2 % at Q = 50; recalled from
+#: memory of Sokal's later design equations)
+CLASS_E = {"design": {"name": "ideal_e", "topology": "class_e", "f0": "6.78 MHz", "vdd": "24 V", "load": "50 ohm",
+                      "pout": "20 W"},
+           "device": {"model": "switch", "ron": "0.01 ohm"}, "network": {"loaded_q": 50},
+           "sim": {"points_per_cycle": 500}}
+
+
+def test_estimate_metrics_follow_the_contract():
+    m = fast.evaluate_estimate(load_design(SIMS / "class_e.toml"))
+    assert m["engine"] == "estimate" and m["settled"] is True
+    for key in ("pout_w", "pdc_w", "drain_efficiency", "peak_vd_v", "h2_dbc", "harmonics", "losses", "bound"):
+        assert key in m
+    # energy balance of the estimate (conservation of energy): Pdc = Pout + losses within 0.1 %
+    assert abs(m["loss_balance_error"]) < 1e-3
+
+
+def test_unsupported_points_run_in_ngspice_and_say_so(monkeypatch):
+    from netgen.netlist import Unsupported
+
+    def refuse(design, points=None):
+        raise Unsupported("XDEV: the device is a subcircuit")
+
+    monkeypatch.setattr(fast, "evaluate_estimate", refuse)
+    monkeypatch.setattr(fast, "evaluate_ngspice", lambda d: {"engine": "ngspice", "pout_w": 1.0})
+    m = fast.evaluate_fast(load_design(SIMS / "class_e.toml"))
+    assert m["engine"] == "ngspice" and "subcircuit" in m["engine_note"]
+
+
+def test_disagreement_flags_beyond_the_bound():
+    # the issue's acceptance bound: 0.2 % in Pout or efficiency
+    ok = fast.disagreement({"pout_w": 1.001, "drain_efficiency": 0.8}, {"pout_w": 1.0, "drain_efficiency": 0.8})
+    bad = fast.disagreement({"pout_w": 1.0, "drain_efficiency": 0.8025}, {"pout_w": 1.0, "drain_efficiency": 0.8})
+    assert not ok["flagged"] and bad["flagged"]
+
+
+@pytest.mark.ngspice
+def test_estimate_agrees_with_ngspice_on_the_shipped_designs():
+    # two independent solutions of the same circuit (direct periodic solution vs time stepping):
+    # Pout and efficiency within 0.2 % (the issue's confirmation bound), the class-E turn-on state
+    # within 1 % of Vdd
+    for name in ("demo", "class_e"):
+        d = load_design(SIMS / f"{name}.toml")
+        est, full = fast.evaluate_estimate(d), fast.evaluate_ngspice(d)
+        assert full["engine"] == "ngspice"
+        assert not fast.disagreement(est, full)["flagged"], name
+    assert est["zvs_v_over_vdd"] == pytest.approx(full["zvs_v_over_vdd"], abs=0.01)
+
+
+def test_goal_grammar():
+    assert parse_free("network.values.tank_c=1pF:20pF").lo == pytest.approx(1e-12)
+    assert parse_free("network.values.tank_c=1pF:20pF").log  # a factor 20: searched logarithmically
+    (t,) = parse_target("pout=8W")
+    assert (t.metric, t.value) == ("pout_w", 8.0)
+    lim = parse_limit("peak_vd<3.2*vdd")
+    assert (lim.metric, lim.op, lim.bound(24.0)) == ("peak_vd_v", "<", pytest.approx(76.8))
+    assert [g.metric for g in parse_target("zvs")] == ["zvs_v_over_vdd", "zvs_slope_over_vdd"]
+    for bad in ("tank_c=1pF", "network.values.tank_c=20pF:1pF", "network.values.tank_c=1pF:2nH"):
+        with pytest.raises(DesignError):
+            parse_free(bad)
+    with pytest.raises(DesignError):
+        parse_target("pout=8V")
+    # a limit costs nothing while met, and grows with the violation
+    met = {"harmonics": [{"pload_dbc": 0.0}, {"pload_dbc": -45.0}]}
+    assert objective(met, [parse_limit("h2_dbc<-40")], 24.0) == 0.0
+    met["harmonics"][1]["pload_dbc"] = -36.0  # 10 % over the limit
+    assert objective(met, [parse_limit("h2_dbc<-40")], 24.0) == pytest.approx(1e4 * 0.1**2)
+    assert objective({"harmonics": []}, [parse_limit("h2_dbc<-40")], 24.0) > 1e6
+
+
+def test_tuning_detuned_class_e_recovers_sokal_capacitance_and_zvs():
+    d = design_from_dict(CLASS_E)
+    sized = size(d)
+    w0 = 2 * math.pi * d.f0_hz
+    # Sokal & Sokal, IEEE JSSC 1975: R = 0.5768 Vdd^2 / P, shunt C = 0.1836 / (omega0 R); the sizer's
+    # choke of finite reactance adds 1/(omega0^2 L_feed) in parallel (its own choice, taken from it)
+    r = 0.5768 * d.vdd_v**2 / 20.0
+    c_sokal = 0.1836 / (w0 * r) + 1.0 / (w0**2 * sized.value("feed_l"))
+    l_x = sized.value("excess_l")
+    doc = json.loads(json.dumps(CLASS_E))
+    doc["network"]["values"] = {"shunt_c": f"{1.3 * c_sokal:.6g} F"}  # 30 % off
+    detuned = fast.evaluate_estimate(design_from_dict(doc))
+    assert abs(detuned["zvs_v_over_vdd"]) > 0.1  # no zero-voltage switching before tuning
+    free = [parse_free(f"network.values.shunt_c={0.5 * c_sokal:.5g}F:{2 * c_sokal:.5g}F"),
+            parse_free(f"network.values.excess_l={0.5 * l_x:.5g}H:{2 * l_x:.5g}H")]
+    res = tune_design(doc, free, parse_target("zvs"), budget=200)
+    assert res.x[0] == pytest.approx(c_sokal, rel=0.03)
+    assert abs(res.metrics["zvs_v_over_vdd"]) < 0.01 and abs(res.metrics["zvs_slope_over_vdd"]) < 0.01
+    assert res.j < res.j0
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_tune_command_reaches_8w_on_the_demo_confirmed_in_ngspice(netgen_cli, tmp_path):
+    code, _out, err = netgen_cli("tune", SIMS / "demo.toml", "--free", "network.values.line_z0=30ohm:70ohm",
+                                "--target", "pout=8W", "--maximise", "drain_efficiency", "--budget", "120",
+                                "-o", tmp_path / "t")
+    assert code == 0, err
+    summary = json.loads((tmp_path / "t" / "tune.json").read_text())
+    (target,) = summary["targets"]
+    assert abs(target["ngspice_rel"]) < 0.02  # the issue's target: confirmed in ngspice within 2 %
+    assert not summary["confirm"]["flagged"]
+    tuned = load_design(tmp_path / "t" / "tuned.toml")
+    assert "line_z0" in tuned.network.values
+    assert "tuned by netgen tune" in (tmp_path / "t" / "tuned.toml").read_text()
+    assert (tmp_path / "t" / "objective.png").is_file() and (tmp_path / "t" / "confirm" / "metrics.json").is_file()
+
+
+def test_tune_command_user_errors(netgen_cli, tmp_path):
+    path = write_toml(tmp_path / "d.toml", CLASS_E)
+    code, _out, err = netgen_cli("tune", path, "--free", "network.values.shunt_c=2nF:1nF", "--target", "zvs",
+                                 "-o", tmp_path / "o")
+    assert code == 2 and err.startswith("Error: --free") and not (tmp_path / "o").exists()
+    code, _out, err = netgen_cli("tune", path, "--free", "network.values.nothing=1nF:2nF", "--target", "zvs",
+                                 "-o", tmp_path / "o")
+    assert code == 2 and "Traceback" not in err and not (tmp_path / "o").exists()
+
+
+@pytest.mark.ngspice
+def test_sweep_fast_confirms_a_sample(netgen_cli, tmp_path):
+    code, out, err = netgen_cli("sweep", SIMS / "class_e.toml", "--fast", "--tolerance", "C*=5%", "--samples", "6",
+                                "--confirm", "2", "--workers", "1", "--quiet", "--no-plots", "-o", tmp_path / "s")
+    assert code == 0, err
+    assert "2 points confirmed in ngspice" in out
+    conf = json.loads((tmp_path / "s" / "summary.json").read_text())["confirmation"]
+    assert conf["confirmed"] == 2 and conf["flagged"] == 0
+    assert conf["worst_pout_rel"] < fast.CONFIRM_TOL
