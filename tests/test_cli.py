@@ -38,7 +38,7 @@ def test_every_command_has_help_with_an_example(cmd):
 
 
 def test_importing_the_cli_does_not_load_the_simulator():
-    # only netgen.simulator.engine imports PySpice (DESIGN.md), and only when a simulation runs
+    # only netgen.simulator.shared imports PySpice (DEVELOPERS.md), and only when a simulation runs
     code = "import sys, netgen.cli.root, netgen.pipeline, netgen.design.schema; print('PySpice' in sys.modules)"
     res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert res.stdout.strip() == "False", res.stderr
@@ -46,4 +46,21 @@ def test_importing_the_cli_does_not_load_the_simulator():
 
 def test_version():
     res = _netgen("--version")
-    assert res.returncode == 0 and "netgen" in res.stdout
+    assert res.returncode == 0 and "pashape" in res.stdout
+
+
+def test_console_command_and_distribution_are_pashape():
+    # the installed distribution and its console command carry the new name; `python -m netgen.cli`
+    # (above) stays the module entry
+    from importlib import metadata
+
+    scripts = {ep.name: ep.value for ep in metadata.entry_points(group="console_scripts")
+               if ep.value.startswith("netgen.")}
+    assert scripts == {"pashape": "netgen.cli.root:main"}
+    assert metadata.version("pashape")
+
+
+def test_usage_error_names_the_command():
+    res = _netgen("run", "--no-such-option")
+    assert res.returncode == 2
+    assert "see 'pashape run --help'" in res.stderr

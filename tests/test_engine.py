@@ -208,7 +208,7 @@ def test_doctor_report_finds_both_paths():
     rep = engine.doctor_report()
     assert rep["executable"] and rep["version"].startswith("39")
     assert rep["shared_ok"] and rep["batch_ok"] and rep["fixes"] == []
-    # what 'netgen doctor' prints: one check per path (Ohm's law: the 1k/1k divider gives 5 V)
+    # what 'pashape doctor' prints: one check per path (Ohm's law: the 1k/1k divider gives 5 V)
     assert [c["ok"] for c in rep["checks"]] == [True, True]
     assert all("5 V" in c["detail"] and c["fix"] is None for c in rep["checks"])
 

@@ -1,4 +1,4 @@
-"""Hand-off pack (netgen.handoff.export) and `netgen export`.
+"""Hand-off pack (netgen.handoff.export) and `pashape export`.
 
 Outside references: the pack's portable netlist is re-run by the ngspice
 executable in its SPICE3 compatibility mode (ngspice user's manual,
@@ -166,5 +166,5 @@ def test_export_command_refuses_a_foreign_folder(tmp_path):
     (target / "notes.txt").write_text("keep me", encoding="utf-8")
     out = CliRunner().invoke(export_command, [str(DESIGN), "-o", str(target), "--no-verify"])
     assert out.exit_code == 2, out.output
-    assert "is not a netgen pack" in out.output
+    assert "is not a pashape pack" in out.output
     assert (target / "notes.txt").read_text() == "keep me"

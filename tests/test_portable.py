@@ -158,7 +158,7 @@ def _sims_designs():
 
 @pytest.mark.parametrize("path", _sims_designs(), ids=lambda p: p.stem)
 def test_render_portable_dialect_itself_is_portable(path):
-    # what `netgen export` puts in a pack is render(dialect="portable") as it comes, with the
+    # what `pashape export` puts in a pack is render(dialect="portable") as it comes, with the
     # warm-start ICs; it must pass the checker and PySpice's parser (rendering needs no simulator)
     from netgen.design.schema import load_design
     from netgen.netlist.renderer import render

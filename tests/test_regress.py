@@ -1,4 +1,4 @@
-"""Golden-metric regression (netgen.handoff.regress), `netgen check` / `netgen diff`, and the pytest plugin.
+"""Golden-metric regression (netgen.handoff.regress), `pashape check` / `pashape diff`, and the pytest plugin.
 
 Synthetic metrics come from published closed forms (REFERENCES.md): ideal class F,
 square drain voltage with half-sine current (Raab 1997; Cripps): V1 = (4/pi) Vdd,
@@ -92,6 +92,19 @@ def test_golden_round_trip_and_hand_tolerance_kept(tmp_path):
     assert again["metrics"]["pdc_w"]["rel"] == 0.01
 
 
+def test_golden_of_the_earlier_format_tag_still_loads(tmp_path):
+    # goldens written before the command was renamed carry "netgen-expect-1" and "netgen_version"
+    path = tmp_path / "a.expect.json"
+    golden = regress.make_golden(tmp_path / "a.toml", class_f_metrics(), "abc")
+    assert golden["format"] == "pashape-expect-1" and regress.VERSION_KEY in golden
+    old = {**{k: v for k, v in golden.items() if k != regress.VERSION_KEY},
+           "format": "netgen-expect-1", "netgen_version": "0.0.9"}
+    path.write_text(json.dumps(old), encoding="utf-8")
+    back = regress.read_golden(path)
+    assert back["format"] == regress.GOLDEN_FORMAT and back[regress.VERSION_KEY] == "0.0.9"
+    assert back["metrics"] == golden["metrics"]
+
+
 def test_bad_golden_names_the_file(tmp_path):
     path = tmp_path / "a.expect.json"
     path.write_text("{not json", encoding="utf-8")
@@ -107,7 +120,7 @@ def test_find_designs(tmp_path):
     (tmp_path / "b.toml").write_text("", encoding="utf-8")
     regress.write_golden(tmp_path / "a.expect.json", regress.make_golden(tmp_path / "a.toml", class_f_metrics(), "x"))
     assert regress.find_designs([tmp_path]) == [tmp_path / "a.toml"]
-    with pytest.raises(DesignError, match=r"b\.toml: no golden file b\.expect\.json; create it with 'netgen check --accept"):
+    with pytest.raises(DesignError, match=r"b\.toml: no golden file b\.expect\.json; create it with 'pashape check --accept"):
         regress.find_designs([tmp_path / "b.toml"])
     assert regress.find_designs([tmp_path / "b.toml"], include_new=True) == [tmp_path / "b.toml"]
     with pytest.raises(DesignError, match="no such file or folder"):
@@ -207,9 +220,12 @@ def test_five_percent_component_change_fails_check_and_names_the_metric(tmp_path
 @pytest.mark.slow
 def test_pytest_plugin_runs_a_design_folder(pytester, tmp_path):
     folder, _ = _design_folder(tmp_path)
-    result = pytester.runpytest(f"--netgen-designs={folder}", "-p", "no:cacheprovider")
+    result = pytester.runpytest(f"--pashape-designs={folder}", "-p", "no:cacheprovider")
     result.assert_outcomes(passed=1, failed=1)
     result.stdout.fnmatch_lines(["*FAIL*bumped.toml*", "*pout_w*FAIL*"])
+    # the option's name before the rename still works
+    result = pytester.runpytest(f"--netgen-designs={folder}", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1, failed=1)
     # without the option the plugin collects nothing
     result = pytester.runpytest(str(folder), "-p", "no:cacheprovider")
     result.assert_outcomes()

@@ -52,7 +52,7 @@ def test_examples_render_all_modes(path):
     for dialect in ("ngspice", "portable"):
         for mode in ("tran", "ac", "op"):
             text = render(s, mode, dialect)
-            assert text.startswith("* netgen ") and text.endswith(".end\n")
+            assert text.startswith("* pashape ") and text.endswith(".end\n")
             assert "VDD vdd 0 DC " in text and re.search(r"^RLOAD load 0 ", text, re.M)
 
 
@@ -121,7 +121,7 @@ def test_header_lists_components_and_digest():
     text = render(s)
     from netgen import __version__
 
-    assert f"netgen {__version__} netlist" in text.splitlines()[0]
+    assert f"pashape {__version__} netlist" in text.splitlines()[0]
     assert f"digest {s.digest()}" in text
     for name, c in s.components.items():
         assert f"*   {name} = " in text and c.how in text

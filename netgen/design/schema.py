@@ -272,7 +272,7 @@ def load_design(path: str | Path) -> Design:
             f"{path}: not UTF-8 text (bad byte at offset {exc.start}); save the file as UTF-8."
         ) from None
     if not text.strip():
-        raise DesignError(f"{path}: the file is empty; start from 'netgen demo --write-design FILE' or sims/demo.toml.")
+        raise DesignError(f"{path}: the file is empty; start from 'pashape demo --write-design FILE' or sims/demo.toml.")
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -120,7 +120,7 @@ def _comp_ctx(sized: SizedDesign) -> dict:
 def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
     d = sized.design
     lines = [
-        f"netgen {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
+        f"pashape {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
         f"f0 = {_fmt(d.f0_hz)} Hz, Vdd = {_fmt(d.vdd_v)} V, RL = {_fmt(d.load_ohm)} ohm, load_x = {_fmt(d.load_x_ohm)} ohm, device {d.device.model}",
         f"Ropt = {_fmt(sized.ropt_ohm)} ohm; sized-design digest {sized.digest()}",
         "components (name = value unit: how):",

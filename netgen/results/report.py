@@ -216,7 +216,7 @@ def write_waveforms_csv(path, wf, periods: int = 2) -> Path:
     cols += [(f"v_{k}_v", np.asarray(v, float)[sl]) for k, v in wf.v.items()]
     cols += [(f"i_{k}_a", np.asarray(v, float)[sl]) for k, v in wf.i.items()]
     buf = io.StringIO()
-    buf.write(f"# netgen waveforms; f0_hz={wf.f0_hz:.12g}; settled={'true' if wf.settled else 'false (NOT SETTLED)'}; "
+    buf.write(f"# pashape waveforms; f0_hz={wf.f0_hz:.12g}; settled={'true' if wf.settled else 'false (NOT SETTLED)'}; "
               f"cycles={wf.cycles}\n")
     buf.write(",".join(name for name, _ in cols) + "\n")
     np.savetxt(buf, np.column_stack([c for _, c in cols]), delimiter=",", fmt="%.9g")
@@ -279,7 +279,7 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
     design = sized.design
     settled = bool(metrics.get("settled", False))
     bound = metrics.get("bound") or {}
-    parts = [f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{_e(d.get('name', 'netgen'))} - netgen report"
+    parts = [f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{_e(d.get('name', 'design'))} - pashape report"
              f"</title><style>{_CSS}</style></head><body><main>"]
     parts.append(f"<h1>{_e(d.get('name', design.name))}</h1><p class=sub>{_e(design.topology)} &middot; "
                  f"f0 {_e(_si(design.f0_hz, 'Hz'))} &middot; Vdd {_e(_si(design.vdd_v, 'V'))} &middot; "

@@ -213,7 +213,7 @@ def diagnose(log: str) -> tuple[str, str]:
             hint = text
             break
     if error and not hint:
-        hint = "see ngspice's messages in the log; run 'netgen doctor' if the installation is in doubt"
+        hint = "see ngspice's messages in the log; run 'pashape doctor' if the installation is in doubt"
     return error, hint
 
 

@@ -137,7 +137,7 @@ class SweepStore:
         row = (self.con.execute(q + " ORDER BY id").fetchone() if sweep_id is None
                else self.con.execute(q + " WHERE id = ?", (sweep_id,)).fetchone())
         if row is None:
-            raise OutputError(f"{self.path}: holds no sweep; run 'netgen sweep' with -o pointing here first.")
+            raise OutputError(f"{self.path}: holds no sweep; run 'pashape sweep' with -o pointing here first.")
         keys = ("id", "design_digest", "design_toml", "spec", "seed", "n_points", "created")
         out = dict(zip(keys, row))
         out["spec"] = json.loads(out["spec"])
