@@ -331,7 +331,7 @@ def test_include_cycle_ends_and_deep_nesting_is_refused(tmp_path):
 
 def test_short_run_without_message_is_still_an_error():
     # A run that ends early with no ngspice error line (the silent case) still names where it
-    # stopped and points at the time step (NGSPICE_NOTES: silent collapse with transmission lines).
+    # stopped and points at the time step (docs/simulator_notes.md: silent collapse with transmission lines).
     err = short_run(4.2e-9, 1e-8, "stdout No. of Data Rows : 420\n")
     assert "stopped at t = 4.2e-09 s, before the requested 1e-08 s without an error message" in str(err)
     assert "minbreak" in err.hint

@@ -171,7 +171,7 @@ def test_render_portable_dialect_itself_is_portable(path):
     pyspice_read_check(text)
     low = text.lower()
     assert ".save" not in low  # SPICE3 has no .save card; every node is kept by default
-    # minbreak only where there is a T line (NGSPICE_NOTES.md: the breakpoint collapse of T lines),
+    # minbreak only where there is a T line (docs/simulator_notes.md: the breakpoint collapse of T lines),
     # placed before .tran at TMAX/100
     lines = text.splitlines()
     has_t = any(ln[:1] == "T" for ln in lines)

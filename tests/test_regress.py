@@ -1,6 +1,6 @@
 """Golden-metric regression (netgen.handoff.regress), `pashape check` / `pashape diff`, and the pytest plugin.
 
-Synthetic metrics come from published closed forms (REFERENCES.md): ideal class F,
+Synthetic metrics come from published closed forms (docs/check_values.md): ideal class F,
 square drain voltage with half-sine current (Raab 1997; Cripps): V1 = (4/pi) Vdd,
 Pout = 8 Vdd^2 / (pi^2 Ropt), efficiency 100 %; its drain-voltage harmonics
 V3 = V1/3, V5 = V1/5 (Fourier series of a square wave).

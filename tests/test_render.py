@@ -71,7 +71,7 @@ def test_examples_tran_runs_in_ngspice(path, tmp_path):
 @pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.stem)
 def test_portable_dialect_runs_in_ngspice(path, tmp_path):
     # Every example as the portable dialect writes it; the line topologies carry
-    # .options minbreak=TMAX/100 (NGSPICE_NOTES.md: without it ngspice 39 can stall on T lines in
+    # .options minbreak=TMAX/100 (docs/simulator_notes.md, measured: without it ngspice 39 can stall on T lines in
     # switching circuits), the others no .options at all (docs/portable_dialect.md).
     d = load_design(path)
     s = size(d)
@@ -92,7 +92,7 @@ def test_conventions_tran_ac_op():
         assert line in tran
     # abrupt S switch, fully off at t = 0: the control pulse starts at 0 V, below VT - VH
     assert "S_SW dsw 0 ctrl 0 SWMOD" in tran and "PULSE(0 1 0 " in tran
-    # tmax = T/points_per_cycle, tstop = max_cycles periods, minbreak = 0.01 tmax (NGSPICE_NOTES)
+    # tmax = T/points_per_cycle, tstop = max_cycles periods, minbreak = 0.01 tmax (docs/simulator_notes.md)
     assert ".tran 5e-12 2e-08 0 5e-12 uic" in tran and "minbreak=5e-14" in tran
     assert "vdd#branch" in tran and "vidrain#branch" in tran and "visw#branch" in tran
     ac = render(s, "ac")

@@ -426,7 +426,7 @@ def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
 PORTABLE_CARD_CHARS = 80
 #: comment-line width of the portable dialect (netgen.netlist.portable.MAX_COMMENT_CHARS)
 PORTABLE_COMMENT_CHARS = 255
-#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (NGSPICE_NOTES.md)
+#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (measured: docs/simulator_notes.md)
 MINBREAK_DIVISOR = 100.0
 
 
@@ -436,7 +436,7 @@ def portable_cards(text: str) -> str:
     1. ``.save`` cards (and their ``+`` lines) are dropped: vector selection is
        simulator-specific, and a SPICE3 reader keeps every node anyway.
     2. When the netlist has a ``T`` line, ``.options minbreak=<TMAX/100>`` goes right
-       before ``.tran``. Measured in ngspice 39 (NGSPICE_NOTES.md): a lossless T line in
+       before ``.tran``. Measured in ngspice 39 (docs/simulator_notes.md): a lossless T line in
        a switching circuit makes the time step collapse after a few hundred periods unless
        near-coincident breakpoints are merged; 0.01 TMAX cured every case tried.
        docs/portable_dialect.md says what a simulator without the option should do.
