@@ -214,8 +214,8 @@ def test_bad_mode_and_dialect():
     s = size(make())
     with pytest.raises(RenderError, match=r"^mode: 'dc'"):
         render(s, "dc")
-    with pytest.raises(RenderError, match=r"^dialect: 'hspice'"):
-        render(s, dialect="hspice")
+    with pytest.raises(RenderError, match=r"^dialect: 'zorb'"):
+        render(s, dialect="zorb")
 
 
 def test_ac_grid_contains_harmonics_exactly():
