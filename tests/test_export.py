@@ -12,6 +12,7 @@ reflection coefficient), compared with the network's impedance.
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -99,6 +100,12 @@ def test_pack_contents(pack):
     readme = (result.outdir / "README.md").read_text()
     for words in ("TSTEP", "TMAX", "TSTOP", "Initial conditions", "Which window to read", "Safety cautions"):
         assert words in readme
+    # the full cautions: high voltage, RF burns and exposure, emission limits, codes and licensed practice
+    for words in ("High voltage", "RF burns and exposure", "Emission limits", "local codes", "licensed practice"):
+        assert words in readme
+    # every IC= line of the README names its element (transmission lines are folded cards)
+    ic_items = [line for line in readme.splitlines() if line.startswith("  - `") and "IC=" in line]
+    assert ic_items and all(re.match(r"  - `[A-Za-z]\w*[ :]", line) for line in ic_items)
     wave = np.loadtxt(result.outdir / "expected_waveforms.csv", delimiter=",", skiprows=1)
     assert wave.shape[0] == 2 * design.sim.points_per_cycle  # two periods
     # no temporary folder is left beside the pack
@@ -168,3 +175,14 @@ def test_export_command_refuses_a_foreign_folder(tmp_path):
     assert out.exit_code == 2, out.output
     assert "is not a pashape pack" in out.output
     assert (target / "notes.txt").read_text() == "keep me"
+
+
+def test_ic_lines_name_the_element_of_folded_line_cards():
+    from netgen.handoff.export import _ic_lines
+
+    netlist = ("* a line folded onto a continuation card\n"
+               "L_feed vdd drain 6e-07 IC=0.33\n"
+               "T_line_1 a 0 b 0 Z0=53.7 TD=9.1e-11\n"
+               "+ IC=25.0,0.31,12.2,-0.51\n"
+               "RLOAD b 0 50\n")
+    assert _ic_lines(netlist) == ["L_feed vdd drain 6e-07 IC=0.33", "T_line_1: IC=25.0,0.31,12.2,-0.51"]

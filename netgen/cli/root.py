@@ -100,7 +100,8 @@ def cli() -> None:
 @cli.command()
 @click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), default=Path("pashape-demo"), show_default=True, help="Output folder.")
 @click.option("--write-design", type=click.Path(path_type=Path, dir_okay=False), default=None, help="Only copy the demo design file to this path (a starting point for your own) and stop.")
-def demo(outdir: Path, write_design: Path | None) -> None:
+@click.option("--force", is_flag=True, help="With --write-design: replace the file if it exists.")
+def demo(outdir: Path, write_design: Path | None, force: bool) -> None:
     """Run the whole pipeline on the built-in demo design.
 
     The demo is an invented 8 W, 915 MHz class-F stage for a field-telemetry
@@ -115,8 +116,11 @@ def demo(outdir: Path, write_design: Path | None) -> None:
     """
     src = _demo_path()
     if write_design is not None:
+        from netgen.errors import OutputError
         from netgen.fileio import atomic_write_text
 
+        if (write_design.exists() or write_design.is_symlink()) and not force:
+            raise OutputError(f"{write_design}: exists; choose another file name, or add --force to replace it.")
         atomic_write_text(write_design, src.read_text(encoding="utf-8"))
         click.echo(f"Wrote the demo design to {write_design}.")
         return
@@ -127,8 +131,9 @@ def demo(outdir: Path, write_design: Path | None) -> None:
 
 def _run_and_print(design, outdir: Path) -> None:
     from netgen.pipeline import run_design
-    from netgen.results import format_table
+    from netgen.results import CAUTION_LINE, format_table
 
+    click.echo(CAUTION_LINE, err=True)  # on every run; stderr keeps the table on stdout clean
     progress = _Progress(f"simulating {design.name}", enabled=True)
     try:
         result = run_design(design, outdir, progress=progress)

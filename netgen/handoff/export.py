@@ -226,14 +226,32 @@ def _tran_settings(netlist: str) -> dict:
 
 
 def _ic_lines(netlist: str) -> list[str]:
-    out = []
+    """The netlist's initial conditions, one entry per element, each naming its element.
+
+    A card folded onto ``+`` continuation lines (a transmission line's four values) is read as
+    one card and shown as ``<element>: IC=...`` (for a ``T`` line, the port-1 voltage and
+    current, then port 2's).
+    """
+    cards: list[str] = []
     for line in netlist.splitlines():
         s = line.strip()
         if not s or s.startswith("*"):
             continue
-        low = s.lower()
-        if low.startswith(".ic") or " ic=" in low:
-            out.append(s)
+        if s.startswith("+") and cards:
+            cards[-1] += " " + s
+        else:
+            cards.append(s)
+    out = []
+    for card in cards:
+        low = card.lower()
+        if low.startswith(".ic"):
+            out.append(card)
+        elif " ic=" in low:
+            if " + " in card:  # folded: the element's name and its IC= part
+                at = low.index(" ic=")
+                out.append(f"{card.split()[0]}: {card[at + 1:]}")
+            else:
+                out.append(card)
     return out
 
 
@@ -445,6 +463,7 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         f"f0 = {f0 / 1e6:.6g} MHz, Vdd = {design.vdd_v:g} V, RL = {design.load_ohm:g} ohm, "
         f"Ropt = {sized.ropt_ohm:.5g} ohm; sized-design digest `{sized.digest()}`).",
         "",
+        *_cautions_section(metrics),
         "## What is in the pack",
         "",
         f"- `{name}_portable.cir`: the circuit for any SPICE3-compatible simulator: every model inline, no file "
@@ -468,6 +487,9 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         f"- Initial conditions: {'`uic` with the element IC= values below' if tran['uic'] else 'none (DC operating point)'}:",
     ]
     lines += [f"  - `{s}`" for s in ics] or ["  - (none)"]
+    if any(s.lower().startswith("t") for s in ics):
+        lines.append("  - A transmission line's `IC=v1,i1,v2,i2` is the voltage and current at its first port, "
+                     "then at its second.")
     if any(ln.startswith(("Vhist_", "Ihist_")) for ln in portable.splitlines()):
         lines += [
             "- Line history: the sources `Vhist_*` (in series with each transmission-line port) and `Ihist_*` "
@@ -527,15 +549,18 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         "",
         f"The AC analysis agrees with pashape's frequency-domain network model within {100 * z_dev:.3g} % over the grid.",
         "",
-        "## Safety cautions",
-        "",
-        "These are idealised simulations: the device is an idealised switch or simple model, components are "
-        "ideal apart from the stated losses, and nothing here checks breakdown, thermal limits, stability or "
-        f"regulatory emission limits. The drain swings to {_fmt(metrics.get('peak_vd_over_vdd'))} x Vdd; check real "
-        "parts against their ratings before building, and take RF exposure and high-voltage precautions on the bench.",
-        "",
     ]
     return "\n".join(lines)
+
+
+def _cautions_section(metrics: dict) -> list[str]:
+    """The pack README's full safety cautions (the same texts as the report's, netgen.results.cautions)."""
+    from netgen.results import cautions
+
+    peak = metrics.get("peak_vd_over_vdd")
+    return ["## Safety cautions", "",
+            "The circuit in this pack, once built, can hurt people. Read these before building or powering it:", "",
+            *[f"- {text}" for text in cautions(peak if isinstance(peak, (int, float)) else None)], ""]
 
 
 def _fmt(x) -> str:

@@ -5,7 +5,7 @@ dict (the metrics.json contract, docs/metrics.md), PNG figures and report.html, 
 table and the metrics/waveform files.
 
 Modules: ``analysis`` (metrics, loss budget, warnings), ``plots`` (the only matplotlib user of
-a single run), ``report`` (HTML, table, JSON and CSV writers).
+a single run), ``report`` (HTML, table, JSON and CSV writers), ``cautions`` (the safety texts every output carries).
 """
 
 from importlib import import_module
@@ -13,7 +13,10 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "CAUTION_LINE": "cautions",
+    "CAUTION_SHORT": "cautions",
     "analyse": "analysis",
+    "cautions": "cautions",
     "design_warnings": "analysis",
     "format_table": "report",
     "plot_all": "plots",
