@@ -62,6 +62,19 @@ def test_five_percent_ropt_change_fails_on_power_not_efficiency():
     assert row.deviation.endswith("(-4.76%)")
 
 
+def test_dbc_deviation_is_a_difference_in_db():
+    # a level in dBc differs from another by a number of dB; a percentage of a logarithm means
+    # nothing (common practice): -30 dBc -> -28.5 dBc is +1.5 dB
+    tol = regress.Tolerance(abs=1.0, floor=-60.0)
+    row = regress.Row("h3_dbc", -30.0, -28.5, tol, tol.allows(-30.0, -28.5))
+    assert row.deviation == "+1.5 dB" and "%" not in row.deviation and not row.ok
+    assert tol.describe("dB", "dBc") == "+/-1 dB (<= -60 dBc equal)"
+    assert regress.Row("pout_w", 2.0, 1.9, regress.Tolerance(rel=0.01), False).deviation == "-0.1 (-5.00%)"
+    result = regress.CheckResult(Path("a.toml"), Path("a.expect.json"), (row,), True, None, (), None)
+    line = next(x for x in regress.format_result(result).splitlines() if "h3_dbc" in x)
+    assert "+1.5 dB" in line and "+/-1 dB (<= -60 dBc equal)" in line and "%" not in line
+
+
 def test_half_percent_change_passes():
     golden = regress.make_golden(Path("x.toml"), class_f_metrics(ropt_ohm=100.0), "d1")
     rows = regress.compare(golden, class_f_metrics(ropt_ohm=100.5))

@@ -72,7 +72,7 @@ class _Imgs(HTMLParser):
 
 def test_plots_are_png_files(run):
     tmp_path, _, _, _, plots, _ = run
-    assert set(plots) == {"waveforms", "load_line", "harmonics", "smith", "impedance", "convergence"}
+    assert set(plots) == {"waveforms", "load_line", "harmonics", "smith", "impedance", "settling"}
     for p in plots.values():
         data = Path(p).read_bytes()
         assert data[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification)
@@ -177,6 +177,50 @@ def test_smith_reference_and_output(tmp_path):
          "harmonics": [{"n": 1, "z_re_ohm": 50.0, "z_im_ohm": 0.0}, {"n": 2, "z_re_ohm": None, "z_im_ohm": None}]}
     p = plot_smith(tmp_path / "s.png", m, z_ref_ohm=50.0)
     assert p.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_smith_reactance_labels_in_the_trades_form():
+    # common practice on Smith charts: normalised reactance written +j0.5, -j2 (j before the number)
+    from netgen.results.plots import reactance_label
+
+    assert [reactance_label(x) for x in (0.2, 0.5, 1.0, -2.0, -5.0)] == ["+j0.2", "+j0.5", "+j1", "-j2", "-j5"]
+
+
+def test_smith_labels_clear_of_circle_footnote_and_edges(run, tmp_path, monkeypatch):
+    # Looking at the figure as drawn: every reactance label lies outside the outer circle, none
+    # overlaps the footnote, and the title and footnote stay inside the figure (nothing clipped).
+    import netgen.results.plots as plots
+
+    drawn = {}
+
+    def keep(fig, path):
+        fig.canvas.draw()
+        drawn["fig"] = fig
+        return Path(path)
+
+    monkeypatch.setattr(plots, "_save", keep)
+    metrics = dict(run[3], design=dict(run[3]["design"], name="a_rather_long_design_name_for_a_field_unit"))
+    plots.plot_smith(tmp_path / "s.png", metrics)
+    fig = drawn["fig"]
+    ax = fig.axes[0]
+    renderer = fig.canvas.get_renderer()
+    fig_box = fig.bbox
+    centre = ax.transData.transform((0.0, 0.0))
+    radius = ax.transData.transform((1.0, 0.0))[0] - centre[0]
+    (footnote,) = [t for t in fig.texts if "reference" in t.get_text()]
+    foot_box = footnote.get_window_extent(renderer)
+    labels = [t for t in ax.texts if t.get_text().startswith(("+j", "-j"))]
+    assert len(labels) == 10
+    for label in labels:
+        box = label.get_window_extent(renderer)
+        corners = np.array([[box.x0, box.y0], [box.x0, box.y1], [box.x1, box.y0], [box.x1, box.y1]])
+        nearest = np.hypot(*(np.clip(centre, [box.x0, box.y0], [box.x1, box.y1]) - centre))
+        assert nearest >= radius * 0.99 or np.all(np.hypot(*(corners - centre).T) > radius), label.get_text()
+        assert not box.overlaps(foot_box), label.get_text()
+    for text in (ax.title, ax._left_title, footnote):
+        box = text.get_window_extent(renderer)
+        if text.get_text():
+            assert fig_box.x0 <= box.x0 and box.x1 <= fig_box.x1 and fig_box.y0 <= box.y0 and box.y1 <= fig_box.y1
 
 
 # ------------------------------------------------------------- browser

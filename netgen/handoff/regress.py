@@ -85,17 +85,20 @@ class Tolerance:
             return True
         return abs(new - golden) <= self.abs + self.rel * abs(golden) + 1e-15
 
-    def describe(self) -> str:
+    def describe(self, diff_unit: str = "", level_unit: str = "") -> str:
+        """The tolerance as text: the absolute part in ``diff_unit`` (e.g. "dB"), floor and ceiling
+        in ``level_unit`` (e.g. "dBc"); without units as plain numbers."""
+        du, lu = (f" {diff_unit}" if diff_unit else ""), (f" {level_unit}" if level_unit else "")
         parts = []
         if self.abs:
-            parts.append(f"+/-{self.abs:g}")
+            parts.append(f"+/-{self.abs:g}{du}")
         if self.rel:
             parts.append(f"+/-{100 * self.rel:g}%")
         text = " ".join(parts) or "exact"
         if self.floor is not None:
-            text += f" (<= {self.floor:g} equal)"
+            text += f" (<= {self.floor:g}{lu} equal)"
         if self.ceiling is not None:
-            text += f" (>= {self.ceiling:.4g} equal)"
+            text += f" (>= {self.ceiling:.4g}{lu} equal)"
         return text
 
     def to_json(self) -> dict:
@@ -124,6 +127,8 @@ class Row:
         if not (math.isfinite(self.golden) and math.isfinite(self.new)):
             return "n/a"
         d = self.new - self.golden
+        if self.metric.endswith("_dbc"):  # levels in dB: their difference is in dB, a percentage means nothing
+            return f"{d:+.3g} dB"
         text = f"{d:+.4g}"
         if self.golden != 0:
             text += f" ({100 * d / abs(self.golden):+.2f}%)"
@@ -485,7 +490,8 @@ def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
     rows = [row for row in r.rows if not (only_failures and row.ok)]
     if rows:
         table = [("metric", "golden", "new", "deviation", "tolerance", "result")]
-        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation, row.tolerance.describe(),
+        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation,
+                   row.tolerance.describe(*(("dB", "dBc") if row.metric.endswith("_dbc") else ())),
                    "ok" if row.ok else "FAIL") for row in rows]
         widths = [max(len(t[i]) for t in table) for i in range(6)]
         for t in table:

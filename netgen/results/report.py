@@ -63,7 +63,7 @@ _PLOT_CAPTIONS = {
     "impedance": "Impedance of the output network seen from the drain (network analysis) with the "
                  "harmonic impedances measured in the transient.",
     "smith": "Harmonic impedances presented to the device (Smith chart).",
-    "convergence": "DC and load power per simulated cycle (settling).",
+    "settling": "Settling: DC and load power per simulated cycle.",
 }
 
 
