@@ -133,12 +133,14 @@ def _run_and_print(design, outdir: Path) -> None:
     from netgen.pipeline import run_design
     from netgen.results import CAUTION_LINE, format_table
 
-    click.echo(CAUTION_LINE, err=True)  # on every run; stderr keeps the table on stdout clean
     progress = _Progress(f"simulating {design.name}", enabled=True)
     try:
         result = run_design(design, outdir, progress=progress)
     finally:
         progress.done()
+    # on every run that produced results (a user error stays one 'Error:' line); on stderr, so
+    # the table on stdout stays clean
+    click.echo(CAUTION_LINE, err=True)
     click.echo(format_table(result.metrics))
     click.echo(f"Report: {result.files['report']}")
     click.echo(f"Metrics: {result.files['metrics']}  Waveforms: {result.files['waveforms']}  Netlist: {result.files['netlist']}")
