@@ -186,3 +186,14 @@ def test_ic_lines_name_the_element_of_folded_line_cards():
                "+ IC=25.0,0.31,12.2,-0.51\n"
                "RLOAD b 0 50\n")
     assert _ic_lines(netlist) == ["L_feed vdd drain 6e-07 IC=0.33", "T_line_1: IC=25.0,0.31,12.2,-0.51"]
+
+
+def test_pack_readme_cautions_in_full_even_after_the_report_module_loaded():
+    # the report module loaded first (as in a run) must not shadow the caution texts the pack uses
+    import netgen.results.report  # noqa: F401
+    from netgen.handoff.export import _cautions_section
+
+    text = "\n".join(_cautions_section({"peak_vd_over_vdd": 3.56}))
+    for words in ("High voltage", "3.56 x Vdd", "RF burns and exposure", "Emission limits", "local codes",
+                  "licensed practice"):
+        assert words in text

@@ -555,12 +555,12 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
 
 def _cautions_section(metrics: dict) -> list[str]:
     """The pack README's full safety cautions (the same texts as the report's, netgen.results.cautions)."""
-    from netgen.results import cautions
+    from netgen.results import caution_texts
 
     peak = metrics.get("peak_vd_over_vdd")
     return ["## Safety cautions", "",
             "The circuit in this pack, once built, can hurt people. Read these before building or powering it:", "",
-            *[f"- {text}" for text in cautions(peak if isinstance(peak, (int, float)) else None)], ""]
+            *[f"- {text}" for text in caution_texts(peak if isinstance(peak, (int, float)) else None)], ""]
 
 
 def _fmt(x) -> str:

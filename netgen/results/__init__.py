@@ -16,7 +16,7 @@ _EXPORTS = {
     "CAUTION_LINE": "cautions",
     "CAUTION_SHORT": "cautions",
     "analyse": "analysis",
-    "cautions": "cautions",
+    "caution_texts": "cautions",
     "design_warnings": "analysis",
     "format_table": "report",
     "plot_all": "plots",

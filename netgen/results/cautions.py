@@ -1,14 +1,14 @@
 """The safety cautions every output carries, in one place.
 
 The terminal shows :data:`CAUTION_LINE` once per run, the report :data:`CAUTION_SHORT` beside its
-summary and :func:`cautions` in full at the end, and the hand-off pack README the full text too.
+summary and :func:`caution_texts` in full at the end, and the hand-off pack README the full text too.
 The wording follows the usual cautions of RF power work: high voltages, RF burns and exposure,
 emission limits, and deference to local codes and licensed practice.
 """
 
 from __future__ import annotations
 
-__all__ = ["CAUTION_LINE", "CAUTION_SHORT", "cautions"]
+__all__ = ["CAUTION_LINE", "CAUTION_SHORT", "caution_texts"]
 
 #: One line for the terminal (stderr), printed on every run.
 CAUTION_LINE = ("Caution: a built amplifier carries high voltages and RF power that burns; simulated harmonics "
@@ -33,7 +33,7 @@ _MODELS_AND_CODES = ("Idealised models: the switch or simple device model, ideal
                      "transmitting; this tool is an aid to design, not a substitute for them.")
 
 
-def cautions(peak_vd_over_vdd: float | None = None) -> tuple[str, ...]:
+def caution_texts(peak_vd_over_vdd: float | None = None) -> tuple[str, ...]:
     """The full cautions, one paragraph each.
 
     Parameters

@@ -21,7 +21,7 @@ import numpy as np
 from netgen.design import format_quantity
 from netgen.fileio import atomic_write_text
 
-from .cautions import CAUTION_SHORT, cautions
+from .cautions import CAUTION_SHORT, caution_texts
 
 __all__ = ["write_report", "format_table", "write_waveforms_csv", "write_metrics_json", "clean_for_json"]
 
@@ -396,7 +396,7 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
     parts.append("</table>")
 
     parts.append("<h2 id=cautions>Cautions</h2><div class=caution><ul>"
-                 + "".join(f"<li>{_e(c)}</li>" for c in cautions(metrics.get("peak_vd_over_vdd"))) + "</ul></div>")
+                 + "".join(f"<li>{_e(c)}</li>" for c in caution_texts(metrics.get("peak_vd_over_vdd"))) + "</ul></div>")
     parts.append(f"<h2>Netlist</h2><details><summary>show the simulated netlist</summary><pre>{_e(netlist_text)}</pre></details>")
     parts.append("</main></body></html>\n")
     return atomic_write_text(outdir / "report.html", "\n".join(parts))
