@@ -1,5 +1,5 @@
 #!/usr/bin/env bash
-# Set up netgen on a fresh Debian/Ubuntu machine, then run the demo or the tests.
+# Set up pashape on a fresh Debian/Ubuntu machine, then run the demo or the tests.
 #   bash bootstrap.sh demo    install everything, run the demo
 #   bash bootstrap.sh test    install everything, run the whole test suite
 # System packages (ngspice, libngspice0-dev; chromium for the report test) are
@@ -20,7 +20,7 @@ if [ ${#missing[@]} -gt 0 ]; then
   if [ "$(id -u)" = 0 ]; then SUDO=""
   elif command -v sudo >/dev/null && sudo -n true 2>/dev/null; then SUDO="sudo"
   else
-    echo "netgen needs these system packages: ${missing[*]}" >&2
+    echo "pashape needs these system packages: ${missing[*]}" >&2
     echo "Run:  sudo apt-get update && sudo apt-get install -y ${missing[*]}" >&2
     echo "then run this script again (other systems: see ngspice_setup.md)." >&2
     exit 1
@@ -36,16 +36,16 @@ if [ ! -x .venv/bin/python ]; then
 fi
 .venv/bin/python -m pip install -q --upgrade pip >/dev/null 2>&1 || true
 log="$(mktemp)"
-echo "Installing netgen and its Python dependencies into .venv ..."
+echo "Installing pashape and its Python dependencies into .venv ..."
 if ! .venv/bin/python -m pip install -q -e ".[test]" >"$log" 2>&1; then
   cat "$log" >&2
-  echo "pip could not install netgen (output above)." >&2
+  echo "pip could not install pashape (output above)." >&2
   exit 1
 fi
 rm -f "$log"
 
 if [ "$what" = demo ]; then
-  exec .venv/bin/netgen demo -o netgen-demo
+  exec .venv/bin/pashape demo -o pashape-demo
 else
   exec .venv/bin/python -m pytest -n 2 -q
 fi

@@ -4,7 +4,7 @@
     python bench/bench_closure.py --quick    # small sizes, prints only
 
 Measures on the demo (sims/demo.toml), with a tolerance Monte Carlo (C* 5 %, L* 5 %) as the study:
-points per second of the fast path (``netgen sweep --fast``: the periodic estimate) and of the full
+points per second of the fast path (``pashape sweep --fast``: the periodic estimate) and of the full
 transient (ngspice), each with 1 and 2 local workers; the ngspice confirmation of a sample of fast
 points (largest Pout and efficiency difference); the wall time of a 10 000-point fast Monte Carlo on
 2 workers; and the time to tune the demo to Pout = 8 W (line Z0 free) with its ngspice check.

@@ -1,22 +1,22 @@
-"""Time to a trustworthy periodic steady state: netgen's warm start vs a naive cold transient.
+"""Time to a trustworthy periodic steady state: pashape's warm start vs a naive cold transient.
 
 Per design (sims/<name>.toml):
 
-* **netgen**: ``netgen.periodic.steady.simulate(sized)`` as a user gets it (start on the periodic state
+* **pashape**: ``netgen.periodic.steady.simulate(sized)`` as a user gets it (start on the periodic state
   computed from the netlist, automatic stop), wall time (median of ``repeats`` runs before and
   ``repeats`` after the naive run, the first run of a fresh worker apart), its cycles, its Pdc /
   P1 / efficiency, and the seconds of its calls (estimate, ngspice).
-* **netgen, DC start**: the same with ``sim.periodic_start = false`` (the DC state of feed and
-  block with bias-mode nulling, netgen's previous start), one run, side by side.
+* **pashape, DC start**: the same with ``sim.periodic_start = false`` (the DC state of feed and
+  block with bias-mode nulling, the previous start), one run, side by side.
 * **naive**: the same transient netlist (``netgen.netlist.renderer.render(sized, "tran")``, same step)
   without initial conditions and without ``uic`` -- a plain ``.tran`` that starts from ngspice's
   DC operating point -- run long once. Per-cycle Pdc and P1 give the converged reference (mean of
   the last 100 cycles, ``common.reference_tail``) and the cycles really needed to stay within
   0.1 % of it. The naive time to 0.1 % is read from the same long run's wall-clock stamps at
   that cycle (the run is chunked into ``chunk`` cycles only to take those stamps).
-* **warm oracle**: the transient netlist netgen itself ran (captured from its call of
+* **warm oracle**: the transient netlist pashape itself ran (captured from its call of
   ``netgen.simulator.engine.run_transient``, its initial state and line-history sources included) run
-  long, to count the cycles the warm start really needs, independent of netgen's stopping rule.
+  long, to count the cycles the warm start really needs, independent of pashape's stopping rule.
 """
 
 from __future__ import annotations
@@ -208,7 +208,7 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
     ng = netgen_runs(sized, repeats)
     out["netgen"] = {k: v for k, v in ng.items() if k != "warm_netlist"}
     out["netgen"]["worker_peak_rss_mb"] = proc_peak_rss_mb(engine.worker_pid())
-    progress(f"  {name}: netgen {ng['seconds']:.2f} s, {ng['cycles']} cycles, settled={ng['settled']}")
+    progress(f"  {name}: pashape {ng['seconds']:.2f} s, {ng['cycles']} cycles, settled={ng['settled']}")
     # the previous start, side by side: the DC state of feed and block with bias-mode nulling
     dc = netgen_runs(dataclasses.replace(sized, design=dataclasses.replace(
         d, sim=dataclasses.replace(d.sim, periodic_start=False))), 1)
@@ -245,7 +245,7 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
         }
     out["naive"] = naive
     progress(f"  {name}: naive {naive['cycles_run']} cycles in {naive['wall_s']:.1f} s, 0.1 % after {n_cold} cycles")
-    # netgen again after the long run, so that its time is the median over runs on both sides of
+    # pashape again after the long run, so that its time is the median over runs on both sides of
     # the naive one (the machine's speed drifts); the first run of a fresh worker (its imports)
     # is kept apart as first_run_s
     again = netgen_runs(sized, repeats)
@@ -279,7 +279,7 @@ def measure_design(name: str, sized, *, cold_cycles: int, warm_cycles: int, repe
         }
         progress(f"  {name}: warm start reaches 0.1 % after {out['warm']['cycles_to_tol']} cycles")
     else:
-        out["warm"] = {"note": "netgen's transient netlist could not be captured (no engine.run_transient call seen)"}
+        out["warm"] = {"note": "pashape's transient netlist could not be captured (no engine.run_transient call seen)"}
     out["cold_first_cycle_err_pdc"] = _rel(cold["pdc_w"][0], ref["pdc_w"])
     return out
 
@@ -366,7 +366,7 @@ print(json.dumps({{"seconds": time.monotonic() - t0, "cycles": wf.cycles,
 
 
 def memory_batch(name: str) -> dict:
-    """Peak RSS of the ngspice executable for one netgen run on the batch path, measured in a fresh
+    """Peak RSS of the ngspice executable for one pashape run on the batch path, measured in a fresh
     Python process with ``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` (the largest child)."""
     from pathlib import Path
 

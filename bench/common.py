@@ -1,6 +1,6 @@
 """Helpers shared by the benchmarks: designs, netlist edits, per-cycle powers, settle counts.
 
-Everything here uses netgen's public API only (``netgen.design.schema.load_design``,
+Everything here uses pashape's public API only (``netgen.design.schema.load_design``,
 ``netgen.synthesis.sizing.size``, ``netgen.netlist.renderer.render``, ``netgen.simulator.engine.run_transient``,
 ``netgen.periodic.steady.simulate``). Times are wall-clock seconds from ``time.monotonic()``
 (system-wide on Linux, so the simulator worker's time stamps compare with ours).
@@ -94,7 +94,7 @@ def cycle_powers(t_s, v_load, i_vdd_branch, *, t0_s: float, period_s: float, vdd
 
 
 def waveform_powers(wf, *, vdd_v: float, rload_ohm: float) -> tuple[float, float, float]:
-    """Pdc, P1, Pload (W) of netgen's settled :class:`~netgen.design.records.Waveforms` (whole periods on a uniform grid)."""
+    """Pdc, P1, Pload (W) of pashape's settled :class:`~netgen.design.records.Waveforms` (whole periods on a uniform grid)."""
     t = np.asarray(wf.t_s, dtype=float)
     n = len(t)
     period = 1.0 / wf.f0_hz

@@ -42,7 +42,7 @@ def _fmt(x, spec=".3g", none="-"):
 
 
 def _table(rows: list[dict]) -> str:
-    head = (f"{'design':<15} {'netgen s':>8} {'cyc':>4} {'ok':>3} {'naive s':>8} {'cold cyc':>8} {'warm cyc':>8} "
+    head = (f"{'design':<15} {'pashape s':>8} {'cyc':>4} {'ok':>3} {'naive s':>8} {'cold cyc':>8} {'warm cyc':>8} "
             f"{'ratio':>6} {'dEff pt':>8} {'dP1 %':>7} {'DC-start s (cyc)':>16} {'400cyc dP1 %':>12}")
     lines = [head, "-" * len(head)]
     for r in rows:
@@ -127,7 +127,7 @@ def main(argv=None) -> int:
 
     rows = []
     for name, n_cold, n_warm in plan:
-        log(f"{name}: netgen x{repeats}, naive cold {n_cold} cycles, warm {n_warm} cycles")
+        log(f"{name}: pashape x{repeats}, naive cold {n_cold} cycles, warm {n_warm} cycles")
         rows.append(bs.measure_design(name, load_sized(name), cold_cycles=n_cold, warm_cycles=n_warm,
                                       repeats=repeats, chunk=10 if quick else 50, progress=log))
     results["designs"] = rows
@@ -193,14 +193,14 @@ def main(argv=None) -> int:
 
     print()
     print(_table(rows))
-    print("netgen s: median wall time of netgen.periodic.steady.simulate (periodic start); cyc: its cycles; ok: its Pdc "
+    print("pashape s: median wall time of netgen.periodic.steady.simulate (periodic start); cyc: its cycles; ok: its Pdc "
           f"and P1 within {TOL:.1%} of the long cold reference; naive s / cold cyc: plain .tran until Pdc and P1 "
-          f"stay within {TOL:.1%}; warm cyc: the same for the netlist netgen started (run long); dEff pt: netgen "
-          "efficiency - reference (points); DC-start: netgen with sim.periodic_start = false (the DC warm start "
+          f"stay within {TOL:.1%}; warm cyc: the same for the netlist pashape started (run long); dEff pt: pashape "
+          "efficiency - reference (points); DC-start: pashape with sim.periodic_start = false (the DC warm start "
           "with bias nulling), one run; 400cyc: error of a fixed 400-cycle naive run")
     for key, b in bias.items():
         print(f"bias network {key}: feed {b['feed_l_h']:.3g} H, block {b['block_c_f']:.3g} F: cold {b['cold_cycles']} "
-              f"cycles, warm {b['warm_cycles']} cycles, netgen stopped at {b['netgen_cycles']} ({b['netgen_s']:.1f} s)")
+              f"cycles, warm {b['warm_cycles']} cycles, pashape stopped at {b['netgen_cycles']} ({b['netgen_s']:.1f} s)")
     o = results["overhead"]
     if "error" not in o:
         print(f"per-run overhead (tiny transient, median of {o['runs']}): shared {1e3 * o['shared_median_s']:.1f} ms, "

@@ -1,4 +1,4 @@
-"""netgen: size, render and simulate RF power-amplifier output networks.
+"""pashape: size, render and simulate RF power-amplifier output networks.
 
 The pipeline, one sub-package per stage (DEVELOPERS.md has the map): ``design`` (TOML ->
 Design) -> ``synthesis`` (Design -> SizedDesign) -> ``netlist`` (SizedDesign -> netlist text) ->

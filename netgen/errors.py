@@ -18,7 +18,7 @@ __all__ = [
 ]
 
 
-#: exit code of ``netgen run`` / ``netgen demo`` when the run finished but did not reach periodic
+#: exit code of ``pashape run`` / ``pashape demo`` when the run finished but did not reach periodic
 #: steady state (its outputs are written, marked provisional); 2 stays for user errors
 NOT_SETTLED_EXIT_CODE = 3
 

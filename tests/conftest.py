@@ -38,7 +38,7 @@ def write_toml(path: Path, doc: dict) -> Path:
 
 @pytest.fixture
 def netgen_cli(capsys):
-    """Run ``netgen ARGS...`` in this process through ``netgen.cli.root.main``.
+    """Run ``pashape ARGS...`` in this process through ``netgen.cli.root.main``.
 
     Returns a function ``run(*args) -> (exit_code, stdout, stderr)``.
     """

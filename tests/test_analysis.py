@@ -57,7 +57,7 @@ def test_pure_sine_has_no_harmonics():
 
 
 def test_square_wave_coefficients():
-    # Fourier series of a 0..2Vdd square wave: V1 = 4/pi Vdd, V3 = V1/3, V5 = V1/5, evens 0 (REFERENCES.md)
+    # Fourier series of a 0..2Vdd square wave: V1 = 4/pi Vdd, V3 = V1/3, V5 = V1/5, evens 0 (docs/check_values.md)
     t, th = grid()
     c = np.abs(fourier(square(th), 2, 6))
     assert_allclose(c[0], VDD, rtol=1e-9)
@@ -68,7 +68,7 @@ def test_square_wave_coefficients():
 
 
 def test_half_sine_coefficients():
-    # half-sine Fourier series: Idc = Imax/pi, I1 = Imax/2, I2 = 0.2122 Imax, I4 = 0.04244 Imax (REFERENCES.md)
+    # half-sine Fourier series: Idc = Imax/pi, I1 = Imax/2, I2 = 0.2122 Imax, I4 = 0.04244 Imax (docs/check_values.md)
     t, th = grid()
     c = np.abs(fourier(half_sine(th, 1.0), 2, 5))
     assert_allclose(c[0], 1 / math.pi, rtol=1e-5)
@@ -105,7 +105,7 @@ def test_pwl_square_wave_with_the_jump_between_grid_samples_is_exact():
     # 0..2Vdd square wave whose falling edge sits at 0.5003 T, between the 1000-per-period grid
     # points; the simulator's points hold the jump as two points at the same time (and the rising
     # edge at the period boundary). Fourier series of a square wave: V1 = (4/pi) Vdd, V3 = V1/3
-    # (REFERENCES.md) for 50 % duty; the pulse-train series above for any duty.
+    # (docs/check_values.md) for 50 % duty; the pulse-train series above for any duty.
     rng = np.random.default_rng(3)
     for duty in (0.5, 0.5003):
         t_in = np.sort(rng.uniform(0, 2 * T0, 3000))
@@ -300,7 +300,7 @@ def test_harmonic_impedance_floor():
 
 def test_ideal_class_f_metrics():
     # square voltage, half-sine current, lossless network passing only the fundamental to the load:
-    # eta = 1 (Raab 1997); peak v = 2 Vdd; peak i = Imax; Ropt = 8 Vdd/(pi Imax) (REFERENCES.md)
+    # eta = 1 (Raab 1997); peak v = 2 Vdd; peak i = Imax; Ropt = 8 Vdd/(pi Imax) (docs/check_values.md)
     imax = 8 * VDD / (math.pi * 100.0)
     t, th = grid()
     vd = square(th)

@@ -1,4 +1,4 @@
-"""Bad input never crashes netgen: exit code 2, one ``Error:`` line naming the key or file, no
+"""Bad input never crashes pashape: exit code 2, one ``Error:`` line naming the key or file, no
 traceback, no output folder.
 
 Protections covered (a test here fails if its protection is removed):
@@ -284,7 +284,7 @@ def test_real_process_prints_one_line(stem, tmp_path):
     case = BAD_DIR / f"{stem}.toml"
     proc = subprocess.run([sys.executable, "-m", "netgen.cli", "size", str(case), "-o", str(tmp_path / "o" / "s.toml")],
                           capture_output=True, text=True, cwd=tmp_path,
-                          env={**os.environ, "NETGEN_DEBUG": ""})
+                          env={**os.environ, "PASHAPE_DEBUG": "", "NETGEN_DEBUG": ""})
     assert_clean_error(proc.returncode, proc.stdout, proc.stderr, expected_fragments(case))
     assert not (tmp_path / "o").exists()
 
@@ -375,8 +375,8 @@ def test_store_rows_with_null_inputs(tmp_path, netgen_cli):
 
 
 @pytest.mark.parametrize("script, fragments", [
-    ("CREATE TABLE sweeps (x TEXT); INSERT INTO sweeps VALUES ('a');", ["not a netgen sweep store", "'sweeps'"]),
-    ("CREATE TABLE points (idx INTEGER, value REAL);", ["not a netgen sweep store", "'points'"]),
+    ("CREATE TABLE sweeps (x TEXT); INSERT INTO sweeps VALUES ('a');", ["not a pashape sweep store", "'sweeps'"]),
+    ("CREATE TABLE points (idx INTEGER, value REAL);", ["not a pashape sweep store", "'points'"]),
     ("PRAGMA user_version = 7;", None),  # an empty SQLite file becomes a store: no error
 ])
 def test_foreign_sqlite_file(script, fragments, tmp_path, netgen_cli):

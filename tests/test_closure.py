@@ -127,7 +127,7 @@ def test_tune_command_reaches_8w_on_the_demo_confirmed_in_ngspice(netgen_cli, tm
     assert not summary["confirm"]["flagged"]
     tuned = load_design(tmp_path / "t" / "tuned.toml")
     assert "line_z0" in tuned.network.values
-    assert "tuned by netgen tune" in (tmp_path / "t" / "tuned.toml").read_text()
+    assert "tuned by pashape tune" in (tmp_path / "t" / "tuned.toml").read_text()
     assert (tmp_path / "t" / "objective.png").is_file() and (tmp_path / "t" / "confirm" / "metrics.json").is_file()
 
 

@@ -153,7 +153,7 @@ def test_unknown_subcircuit_reports_ngspice_message():
 
 
 def test_control_blocks_are_refused_whatever_they_hold():
-    # Protection: check_netlist refuses every control block (netgen sends its own commands), so
+    # Protection: check_netlist refuses every control block (pashape sends its own commands), so
     # the check does not depend on which commands a block holds.
     net = DIVIDER.replace(".end", ".control\nop\nshell rm -rf /tmp/somewhere\n.endc\n.end")
     with pytest.raises(SimulationError, match=r"line 5: '\.control' starts an ngspice control command"):
@@ -210,7 +210,7 @@ def test_doctor_report_finds_both_paths():
     rep = engine.doctor_report()
     assert rep["executable"] and rep["version"].startswith("39")
     assert rep["shared_ok"] and rep["batch_ok"] and rep["fixes"] == []
-    # what 'netgen doctor' prints: one check per path (Ohm's law: the 1k/1k divider gives 5 V)
+    # what 'pashape doctor' prints: one check per path (Ohm's law: the 1k/1k divider gives 5 V)
     assert [c["ok"] for c in rep["checks"]] == [True, True]
     assert all("5 V" in c["detail"] and c["fix"] is None for c in rep["checks"])
 
@@ -333,7 +333,7 @@ def test_base_dir_confines_includes(tmp_path):
 
 def test_short_run_without_message_is_still_an_error():
     # A run that ends early with no ngspice error line (the silent case) still names where it
-    # stopped and points at the time step (NGSPICE_NOTES: silent collapse with transmission lines).
+    # stopped and points at the time step (docs/simulator_notes.md: silent collapse with transmission lines).
     err = short_run(4.2e-9, 1e-8, "stdout No. of Data Rows : 420\n")
     assert "stopped at t = 4.2e-09 s, before the requested 1e-08 s without an error message" in str(err)
     assert "minbreak" in err.hint

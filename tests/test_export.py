@@ -1,4 +1,4 @@
-"""Hand-off pack (netgen.handoff.export) and `netgen export`.
+"""Hand-off pack (netgen.handoff.export) and `pashape export`.
 
 Outside references: the pack's portable netlist is re-run by the ngspice
 executable in its SPICE3 compatibility mode (ngspice user's manual,
@@ -12,6 +12,7 @@ reflection coefficient), compared with the network's impedance.
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -99,6 +100,12 @@ def test_pack_contents(pack):
     readme = (result.outdir / "README.md").read_text()
     for words in ("TSTEP", "TMAX", "TSTOP", "Initial conditions", "Which window to read", "Safety cautions"):
         assert words in readme
+    # the full cautions: high voltage, RF burns and exposure, emission limits, codes and licensed practice
+    for words in ("High voltage", "RF burns and exposure", "Emission limits", "local codes", "licensed practice"):
+        assert words in readme
+    # every IC= line of the README names its element (transmission lines are folded cards)
+    ic_items = [line for line in readme.splitlines() if line.startswith("  - `") and "IC=" in line]
+    assert ic_items and all(re.match(r"  - `[A-Za-z]\w*[ :]", line) for line in ic_items)
     wave = np.loadtxt(result.outdir / "expected_waveforms.csv", delimiter=",", skiprows=1)
     assert wave.shape[0] == 2 * design.sim.points_per_cycle  # two periods
     # no temporary folder is left beside the pack
@@ -166,5 +173,27 @@ def test_export_command_refuses_a_foreign_folder(tmp_path):
     (target / "notes.txt").write_text("keep me", encoding="utf-8")
     out = CliRunner().invoke(export_command, [str(DESIGN), "-o", str(target), "--no-verify"])
     assert out.exit_code == 2, out.output
-    assert "is not a netgen pack" in out.output
+    assert "is not a pashape pack" in out.output
     assert (target / "notes.txt").read_text() == "keep me"
+
+
+def test_ic_lines_name_the_element_of_folded_line_cards():
+    from netgen.handoff.export import _ic_lines
+
+    netlist = ("* a line folded onto a continuation card\n"
+               "L_feed vdd drain 6e-07 IC=0.33\n"
+               "T_line_1 a 0 b 0 Z0=53.7 TD=9.1e-11\n"
+               "+ IC=25.0,0.31,12.2,-0.51\n"
+               "RLOAD b 0 50\n")
+    assert _ic_lines(netlist) == ["L_feed vdd drain 6e-07 IC=0.33", "T_line_1: IC=25.0,0.31,12.2,-0.51"]
+
+
+def test_pack_readme_cautions_in_full_even_after_the_report_module_loaded():
+    # the report module loaded first (as in a run) must not shadow the caution texts the pack uses
+    import netgen.results.report  # noqa: F401
+    from netgen.handoff.export import _cautions_section
+
+    text = "\n".join(_cautions_section({"peak_vd_over_vdd": 3.56}))
+    for words in ("High voltage", "3.56 x Vdd", "RF burns and exposure", "Emission limits", "local codes",
+                  "licensed practice"):
+        assert words in text

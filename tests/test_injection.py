@@ -349,7 +349,7 @@ def test_no_marker_file_was_created():
 # ------------------------------------------------------------ the injection corpus (CLI)
 #
 # Each case tries to make ngspice create a marker file, through a user template, a model file
-# or an include; netgen must refuse it before ngspice starts: exit code 2, one 'Error:' line
+# or an include; pashape must refuse it before ngspice starts: exit code 2, one 'Error:' line
 # naming the file and line, no marker, no output folder. The routes are the ones ngspice 39
 # executes (measured, docs/reliability.md): control blocks matched by prefix in any case,
 # '*#' comment lines, backquotes, 'source'/'cd'/'set' in control blocks, control blocks of
@@ -487,7 +487,7 @@ def test_clean_user_template_and_model_file_still_render(tmp_path, netgen_cli):
 @pytest.mark.parametrize("backend", ["shared", "batch"])
 def test_spiceinit_in_working_or_home_folder_is_not_run(backend, tmp_path, monkeypatch):
     # ngspice 39 runs '.spiceinit' from the working folder, else from HOME (measured,
-    # docs/reliability.md); netgen starts it with -n (batch) and, for both paths, in a fresh
+    # docs/reliability.md); pashape starts it with -n (batch) and, for both paths, in a fresh
     # private folder that is also HOME, so neither file is read. A template could never write
     # one (no control block gets through), but a colleague's folder may hold one.
     cwd, home = tmp_path / "work", tmp_path / "home"

@@ -185,7 +185,7 @@ def test_fundamental_is_ropt(topology):
 
 @pytest.mark.parametrize("topology", ["class_f_line", "class_f_feed"])
 def test_class_f_line_harmonics(topology):
-    # Quarter-wave line (common practice, REFERENCES.md): even harmonics see a short, odd an open.
+    # Quarter-wave line (common practice; docs/check_values.md): even harmonics see a short, odd an open.
     # Asserted ratios: |Z(2f0)|, |Z(4f0)| < Ropt/5 (a short within the class-F sense: the
     # second-harmonic voltage stays below ~20 % of ideal) and |Z(3f0)|, |Z(5f0)| > 5 Ropt.
     s = near_lossless(topology)
@@ -199,7 +199,7 @@ def test_class_f_lumped_harmonics():
     # each parallel resonator is an open at its own harmonic and the resonators' small inductive
     # reactance (Zr S_m, Zr ~ 0.1 Ropt) plus the shunt tank's capacitor make the even harmonics
     # low. Asserted as for class F in general (Raab 2001: class F needs opens at odd and shorts
-    # at even harmonics; REFERENCES.md): |Z(2f0)|, |Z(4f0)| < Ropt/4 (the even-harmonic voltage
+    # at even harmonics; docs/check_values.md): |Z(2f0)|, |Z(4f0)| < Ropt/4 (the even-harmonic voltage
     # stays below a quarter of what the fundamental load would give) and |Z(3f0)|, |Z(5f0)| > 4 Ropt,
     # with the example's inductor Q (40) and capacitor ESR (0.1 ohm), and near-lossless too.
     for s in (example("class_f_lumped"), near_lossless("class_f_lumped")):
@@ -268,7 +268,7 @@ def test_quarter_wave_transformer():
     (100, [100.0, 1.061, 8378, 0.4244, 15080]),
 ])
 def test_references_tank_table(c_pf, expected):
-    # REFERENCES.md worked example (Pozar quarter-wave transformer): lossless line Z0 = 70.71 ohm,
+    # Worked example of docs/check_values.md (Pozar, the quarter-wave transformer): lossless line Z0 = 70.71 ohm,
     # 50 ohm || tank resonant at 1 GHz; choke 1 H and block 1 F make feed and block vanish.
     c = c_pf * 1e-12
     lval = 1 / ((2 * np.pi * 1e9) ** 2 * c)

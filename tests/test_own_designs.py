@@ -60,7 +60,7 @@ def _evaluate(doc):
 
 
 def _sweep_metrics(doc, **plan_args):
-    """Metrics of every point of a sweep plan (the network pinned as `netgen sweep` pins it)."""
+    """Metrics of every point of a sweep plan (the network pinned as `pashape sweep` pins it)."""
     from netgen.studies.plan import make_plan
 
     plan = make_plan(copy.deepcopy(doc), **plan_args)

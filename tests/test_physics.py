@@ -137,7 +137,7 @@ def test_class_e_at_sokal_values():
     assert m["settled"]
     # Sokal & Sokal 1975: ideal class E is 100 % efficient; a near-ideal switch >= 95 %
     assert m["drain_efficiency"] >= 0.95
-    # peak switch voltage 3.562 Vdd (Sokal & Sokal 1975; Raab 1977), 3.616 at Q = 30 (REFERENCES.md): within 5 %
+    # peak switch voltage 3.562 Vdd (Sokal & Sokal 1975; Raab 1977), 3.616 at Q = 30 (recalled, docs/check_values.md): within 5 %
     assert m["peak_vd_over_vdd"] == pytest.approx(3.562, rel=0.05)
     # zero-voltage and zero-slope switching at turn-on (the switch closes at the start of each stored period)
     v = np.asarray(wf.v["drain"])
@@ -179,7 +179,7 @@ def test_third_harmonic_class_f_drive_sweep_stays_within_raab_bound():
 
 def test_a_design_that_cannot_settle_is_flagged():
     # a 50 uH choke on a 1 GHz stage (bias-network resonance far below f0, thousands of cycles,
-    # NGSPICE_NOTES.md) started cold with a 40-cycle limit
+    # measured in docs/simulator_notes.md) started cold with a 40-cycle limit
     r = run({
         "design": {"name": "phys_ns", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V",
                    "ropt": "100 ohm", "load": "50 ohm"},

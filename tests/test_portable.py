@@ -158,7 +158,7 @@ def _sims_designs():
 
 @pytest.mark.parametrize("path", _sims_designs(), ids=lambda p: p.stem)
 def test_render_portable_dialect_itself_is_portable(path):
-    # what `netgen export` puts in a pack is render(dialect="portable") as it comes, with the
+    # what `pashape export` puts in a pack is render(dialect="portable") as it comes, with the
     # warm-start ICs; it must pass the checker and PySpice's parser (rendering needs no simulator)
     from netgen.design.schema import load_design
     from netgen.netlist.renderer import render
@@ -171,7 +171,7 @@ def test_render_portable_dialect_itself_is_portable(path):
     pyspice_read_check(text)
     low = text.lower()
     assert ".save" not in low  # SPICE3 has no .save card; every node is kept by default
-    # minbreak only where there is a T line (NGSPICE_NOTES.md: the breakpoint collapse of T lines),
+    # minbreak only where there is a T line (docs/simulator_notes.md: the breakpoint collapse of T lines),
     # placed before .tran at TMAX/100
     lines = text.splitlines()
     has_t = any(ln[:1] == "T" for ln in lines)

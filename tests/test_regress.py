@@ -1,6 +1,6 @@
-"""Golden-metric regression (netgen.handoff.regress), `netgen check` / `netgen diff`, and the pytest plugin.
+"""Golden-metric regression (netgen.handoff.regress), `pashape check` / `pashape diff`, and the pytest plugin.
 
-Synthetic metrics come from published closed forms (REFERENCES.md): ideal class F,
+Synthetic metrics come from published closed forms (docs/check_values.md): ideal class F,
 square drain voltage with half-sine current (Raab 1997; Cripps): V1 = (4/pi) Vdd,
 Pout = 8 Vdd^2 / (pi^2 Ropt), efficiency 100 %; its drain-voltage harmonics
 V3 = V1/3, V5 = V1/5 (Fourier series of a square wave).
@@ -62,6 +62,19 @@ def test_five_percent_ropt_change_fails_on_power_not_efficiency():
     assert row.deviation.endswith("(-4.76%)")
 
 
+def test_dbc_deviation_is_a_difference_in_db():
+    # a level in dBc differs from another by a number of dB; a percentage of a logarithm means
+    # nothing (common practice): -30 dBc -> -28.5 dBc is +1.5 dB
+    tol = regress.Tolerance(abs=1.0, floor=-60.0)
+    row = regress.Row("h3_dbc", -30.0, -28.5, tol, tol.allows(-30.0, -28.5))
+    assert row.deviation == "+1.5 dB" and "%" not in row.deviation and not row.ok
+    assert tol.describe("dB", "dBc") == "+/-1 dB (<= -60 dBc equal)"
+    assert regress.Row("pout_w", 2.0, 1.9, regress.Tolerance(rel=0.01), False).deviation == "-0.1 (-5.00%)"
+    result = regress.CheckResult(Path("a.toml"), Path("a.expect.json"), (row,), True, None, (), None)
+    line = next(x for x in regress.format_result(result).splitlines() if "h3_dbc" in x)
+    assert "+1.5 dB" in line and "+/-1 dB (<= -60 dBc equal)" in line and "%" not in line
+
+
 def test_half_percent_change_passes():
     golden = regress.make_golden(Path("x.toml"), class_f_metrics(ropt_ohm=100.0), "d1")
     rows = regress.compare(golden, class_f_metrics(ropt_ohm=100.5))
@@ -92,6 +105,19 @@ def test_golden_round_trip_and_hand_tolerance_kept(tmp_path):
     assert again["metrics"]["pdc_w"]["rel"] == 0.01
 
 
+def test_golden_of_the_earlier_format_tag_still_loads(tmp_path):
+    # goldens written before the command was renamed carry "netgen-expect-1" and "netgen_version"
+    path = tmp_path / "a.expect.json"
+    golden = regress.make_golden(tmp_path / "a.toml", class_f_metrics(), "abc")
+    assert golden["format"] == "pashape-expect-1" and regress.VERSION_KEY in golden
+    old = {**{k: v for k, v in golden.items() if k != regress.VERSION_KEY},
+           "format": "netgen-expect-1", "netgen_version": "0.0.9"}
+    path.write_text(json.dumps(old), encoding="utf-8")
+    back = regress.read_golden(path)
+    assert back["format"] == regress.GOLDEN_FORMAT and back[regress.VERSION_KEY] == "0.0.9"
+    assert back["metrics"] == golden["metrics"]
+
+
 def test_bad_golden_names_the_file(tmp_path):
     path = tmp_path / "a.expect.json"
     path.write_text("{not json", encoding="utf-8")
@@ -107,7 +133,7 @@ def test_find_designs(tmp_path):
     (tmp_path / "b.toml").write_text("", encoding="utf-8")
     regress.write_golden(tmp_path / "a.expect.json", regress.make_golden(tmp_path / "a.toml", class_f_metrics(), "x"))
     assert regress.find_designs([tmp_path]) == [tmp_path / "a.toml"]
-    with pytest.raises(DesignError, match=r"b\.toml: no golden file b\.expect\.json; create it with 'netgen check --accept"):
+    with pytest.raises(DesignError, match=r"b\.toml: no golden file b\.expect\.json; create it with 'pashape check --accept"):
         regress.find_designs([tmp_path / "b.toml"])
     assert regress.find_designs([tmp_path / "b.toml"], include_new=True) == [tmp_path / "b.toml"]
     with pytest.raises(DesignError, match="no such file or folder"):
@@ -207,9 +233,12 @@ def test_five_percent_component_change_fails_check_and_names_the_metric(tmp_path
 @pytest.mark.slow
 def test_pytest_plugin_runs_a_design_folder(pytester, tmp_path):
     folder, _ = _design_folder(tmp_path)
-    result = pytester.runpytest(f"--netgen-designs={folder}", "-p", "no:cacheprovider")
+    result = pytester.runpytest(f"--pashape-designs={folder}", "-p", "no:cacheprovider")
     result.assert_outcomes(passed=1, failed=1)
     result.stdout.fnmatch_lines(["*FAIL*bumped.toml*", "*pout_w*FAIL*"])
+    # the option's name before the rename still works
+    result = pytester.runpytest(f"--netgen-designs={folder}", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1, failed=1)
     # without the option the plugin collects nothing
     result = pytester.runpytest(str(folder), "-p", "no:cacheprovider")
     result.assert_outcomes()

@@ -52,7 +52,7 @@ def test_examples_render_all_modes(path):
     for dialect in ("ngspice", "portable"):
         for mode in ("tran", "ac", "op"):
             text = render(s, mode, dialect)
-            assert text.startswith("* netgen ") and text.endswith(".end\n")
+            assert text.startswith("* pashape ") and text.endswith(".end\n")
             assert "VDD vdd 0 DC " in text and re.search(r"^RLOAD load 0 ", text, re.M)
 
 
@@ -71,7 +71,7 @@ def test_examples_tran_runs_in_ngspice(path, tmp_path):
 @pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.stem)
 def test_portable_dialect_runs_in_ngspice(path, tmp_path):
     # Every example as the portable dialect writes it; the line topologies carry
-    # .options minbreak=TMAX/100 (NGSPICE_NOTES.md: without it ngspice 39 can stall on T lines in
+    # .options minbreak=TMAX/100 (docs/simulator_notes.md, measured: without it ngspice 39 can stall on T lines in
     # switching circuits), the others no .options at all (docs/portable_dialect.md).
     d = load_design(path)
     s = size(d)
@@ -92,7 +92,7 @@ def test_conventions_tran_ac_op():
         assert line in tran
     # abrupt S switch, fully off at t = 0: the control pulse starts at 0 V, below VT - VH
     assert "S_SW dsw 0 ctrl 0 SWMOD" in tran and "PULSE(0 1 0 " in tran
-    # tmax = T/points_per_cycle, tstop = max_cycles periods, minbreak = 0.01 tmax (NGSPICE_NOTES)
+    # tmax = T/points_per_cycle, tstop = max_cycles periods, minbreak = 0.01 tmax (docs/simulator_notes.md)
     assert ".tran 5e-12 2e-08 0 5e-12 uic" in tran and "minbreak=5e-14" in tran
     assert "vdd#branch" in tran and "vidrain#branch" in tran and "visw#branch" in tran
     ac = render(s, "ac")
@@ -121,7 +121,7 @@ def test_header_lists_components_and_digest():
     text = render(s)
     from netgen import __version__
 
-    assert f"netgen {__version__} netlist" in text.splitlines()[0]
+    assert f"pashape {__version__} netlist" in text.splitlines()[0]
     assert f"digest {s.digest()}" in text
     for name, c in s.components.items():
         assert f"*   {name} = " in text and c.how in text
@@ -214,8 +214,8 @@ def test_bad_mode_and_dialect():
     s = size(make())
     with pytest.raises(RenderError, match=r"^mode: 'dc'"):
         render(s, "dc")
-    with pytest.raises(RenderError, match=r"^dialect: 'hspice'"):
-        render(s, dialect="hspice")
+    with pytest.raises(RenderError, match=r"^dialect: 'zorb'"):
+        render(s, dialect="zorb")
 
 
 def test_ac_grid_contains_harmonics_exactly():

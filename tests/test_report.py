@@ -24,7 +24,7 @@ from netgen.results.report import format_table, write_metrics_json, write_report
 F0, VDD, PPC = 1e9, 10.0, 400
 
 
-def synthetic_run(outdir: Path, settled: bool = True, plots: bool = True):
+def synthetic_run(outdir: Path, settled: bool = True, plots: bool = True, pout_w: float | None = None):
     """A class-F-like run built from Fourier series (square-ish voltage, half-sine current)."""
     t = np.arange(3 * PPC) / (PPC * F0)  # three periods, so the CSV must cut to two
     th = 2 * math.pi * F0 * t
@@ -32,7 +32,7 @@ def synthetic_run(outdir: Path, settled: bool = True, plots: bool = True):
     imax = 8 * VDD / (math.pi * 100)
     i_d = np.maximum(-imax * np.sin(th), 0.0)
     vl = 8.8 * np.sin(th)
-    design = Design(name="bench_f", topology="class_f_line", f0_hz=F0, vdd_v=VDD, sim=SimSpec(harmonics=5))
+    design = Design(name="bench_f", topology="class_f_line", f0_hz=F0, vdd_v=VDD, pout_w=pout_w, sim=SimSpec(harmonics=5))
     comps = {"tank_l": Component("tank_l", "L", 1.59e-9, "Ropt/(w0 QL), parallel tank", "tank")}
     sized = SizedDesign(design, 100.0, comps, {"line_length_m": (0.075, "m", "lambda/4 in air")})
     hist = {"pdc_w": 0.8 + 0.1 * np.exp(-np.arange(30) / 5), "pload_w": 0.77 + 0.1 * np.exp(-np.arange(30) / 6)}
@@ -72,7 +72,7 @@ class _Imgs(HTMLParser):
 
 def test_plots_are_png_files(run):
     tmp_path, _, _, _, plots, _ = run
-    assert set(plots) == {"waveforms", "load_line", "harmonics", "smith", "impedance", "convergence"}
+    assert set(plots) == {"waveforms", "load_line", "harmonics", "smith", "impedance", "settling"}
     for p in plots.values():
         data = Path(p).read_bytes()
         assert data[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification)
@@ -90,8 +90,42 @@ def test_report_references_existing_images_only(run):
         assert "/" not in src and (tmp_path / src).is_file()
     assert p.external == []  # self-contained: no external resources
     assert "NOT SETTLED" not in text
-    for needle in ("tank_l", "Ropt/(w0 QL), parallel tank", "Raab", "Loss budget", "compliance", "RF power causes"):
+    for needle in ("tank_l", "Ropt/(w0 QL), parallel tank", "Raab", "Loss budget", "compliance", "RF burns"):
         assert needle in text
+
+
+def test_report_short_caution_beside_the_summary_full_text_at_the_end(run):
+    text = run[5].read_text(encoding="utf-8")
+    summary, metrics_heading, cautions_heading = (text.index("class=summary"), text.index("<h2>Metrics</h2>"),
+                                                 text.index("<h2 id=cautions>"))
+    short = text.index("id=caution-short")
+    assert summary < short < metrics_heading < cautions_heading
+    full = text[cautions_heading:]
+    # the usual cautions of RF power work: high voltage, burns and exposure, emissions, codes
+    for needle in ("High voltage", "RF burns and exposure", "Emission limits", "local codes", "licensed practice"):
+        assert needle in full
+    assert f"{run[3]['peak_vd_over_vdd']:.2f} x Vdd" in full  # this design's simulated peak
+
+
+def test_report_shows_the_pout_target_beside_what_was_achieved(tmp_path):
+    *_, metrics, _, report = synthetic_run(tmp_path, plots=False, pout_w=1.0)
+    text = report.read_text(encoding="utf-8")
+    dev = round(100 * (metrics["pout_w"] - 1.0))
+    from netgen.design import format_quantity
+
+    assert f"target 1 W, achieved {format_quantity(metrics['pout_w'], 'W')}, {dev:+d} %" in text
+    assert "Pout target, design.pout (W)" in text
+    # sized from design.ropt: no target to compare with
+    *_, report = synthetic_run(tmp_path / "b", plots=False)
+    assert "none (sized from design.ropt)" in report.read_text(encoding="utf-8")
+
+
+def test_report_colours_are_our_own(run):
+    # the stock greys of a well-known code-hosting site's stylesheet (text #1f2328 and #24292f,
+    # code background #f6f8fa, borders #d0d7de and #d8dee4, muted #656d76 and #57606a) are not used
+    css = run[5].read_text(encoding="utf-8").lower()
+    for stock in ("#1f2328", "#24292f", "#f6f8fa", "#d0d7de", "#d8dee4", "#656d76", "#57606a", "#eaeef2"):
+        assert stock not in css
 
 
 def test_report_banner_when_not_settled(tmp_path):
@@ -143,6 +177,50 @@ def test_smith_reference_and_output(tmp_path):
          "harmonics": [{"n": 1, "z_re_ohm": 50.0, "z_im_ohm": 0.0}, {"n": 2, "z_re_ohm": None, "z_im_ohm": None}]}
     p = plot_smith(tmp_path / "s.png", m, z_ref_ohm=50.0)
     assert p.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_smith_reactance_labels_in_the_trades_form():
+    # common practice on Smith charts: normalised reactance written +j0.5, -j2 (j before the number)
+    from netgen.results.plots import reactance_label
+
+    assert [reactance_label(x) for x in (0.2, 0.5, 1.0, -2.0, -5.0)] == ["+j0.2", "+j0.5", "+j1", "-j2", "-j5"]
+
+
+def test_smith_labels_clear_of_circle_footnote_and_edges(run, tmp_path, monkeypatch):
+    # Looking at the figure as drawn: every reactance label lies outside the outer circle, none
+    # overlaps the footnote, and the title and footnote stay inside the figure (nothing clipped).
+    import netgen.results.plots as plots
+
+    drawn = {}
+
+    def keep(fig, path):
+        fig.canvas.draw()
+        drawn["fig"] = fig
+        return Path(path)
+
+    monkeypatch.setattr(plots, "_save", keep)
+    metrics = dict(run[3], design=dict(run[3]["design"], name="a_rather_long_design_name_for_a_field_unit"))
+    plots.plot_smith(tmp_path / "s.png", metrics)
+    fig = drawn["fig"]
+    ax = fig.axes[0]
+    renderer = fig.canvas.get_renderer()
+    fig_box = fig.bbox
+    centre = ax.transData.transform((0.0, 0.0))
+    radius = ax.transData.transform((1.0, 0.0))[0] - centre[0]
+    (footnote,) = [t for t in fig.texts if "reference" in t.get_text()]
+    foot_box = footnote.get_window_extent(renderer)
+    labels = [t for t in ax.texts if t.get_text().startswith(("+j", "-j"))]
+    assert len(labels) == 10
+    for label in labels:
+        box = label.get_window_extent(renderer)
+        corners = np.array([[box.x0, box.y0], [box.x0, box.y1], [box.x1, box.y0], [box.x1, box.y1]])
+        nearest = np.hypot(*(np.clip(centre, [box.x0, box.y0], [box.x1, box.y1]) - centre))
+        assert nearest >= radius * 0.99 or np.all(np.hypot(*(corners - centre).T) > radius), label.get_text()
+        assert not box.overlaps(foot_box), label.get_text()
+    for text in (ax.title, ax._left_title, footnote):
+        box = text.get_window_extent(renderer)
+        if text.get_text():
+            assert fig_box.x0 <= box.x0 and box.x1 <= fig_box.x1 and fig_box.y0 <= box.y0 and box.y1 <= fig_box.y1
 
 
 # ------------------------------------------------------------- browser

@@ -44,7 +44,7 @@ def test_inverse_f_and_class_b_ropt():
 
 
 def test_class_e_sokal_values():
-    # Sokal & Sokal 1975; Raab 1977 (REFERENCES.md): R = 0.5768 Vdd^2/P, C = 0.1836/(omega R),
+    # Sokal & Sokal 1975; Raab 1977 (docs/check_values.md): R = 0.5768 Vdd^2/P, C = 0.1836/(omega R),
     # X = 1.1525 R. A 1 micro-ohm switch makes Vdd_eff = Vdd to 1e-7.
     d = make("class_e", device={"model": "switch", "ron": "1e-6 ohm", "cout": "1 pF"})
     s = size(d)
@@ -81,13 +81,13 @@ def test_switch_ron_reduces_effective_supply():
 
 def test_gm_imax_and_idc():
     # Tuned class B at drive 1: I1 = Imax/2 and V1 = Vdd_eff = I1 Ropt -> Imax = 2 Vdd_eff/Ropt,
-    # Idc = Imax/pi (Cripps; REFERENCES.md half-sine Fourier series). Knee 1 V: Vdd_eff = 9 V.
+    # Idc = Imax/pi (Cripps; half-sine Fourier series, docs/check_values.md). Knee 1 V: Vdd_eff = 9 V.
     s = size(make("class_b_tuned", device={"model": "gm", "vknee": "1 V"}))
     assert_allclose(s.ropt_ohm, 81 / 4.0, rtol=1e-12)
     imax = s.derived["imax_a"][0]
     assert_allclose(imax, 2 * 9.0 / s.ropt_ohm, rtol=1e-12)
     assert_allclose(s.idc_est_a, imax / PI, rtol=1e-12)
-    # class F with gm device: Ropt = 8 Vdd/(pi Imax) (REFERENCES.md, Raab 1997)
+    # class F with gm device: Ropt = 8 Vdd/(pi Imax) (Raab 1997; docs/check_values.md)
     sf = size(make("class_f_line"))
     assert_allclose(sf.ropt_ohm, 8 * 10.0 / (PI * sf.derived["imax_a"][0]), rtol=1e-12)
     # class A (360 deg): Idc = I1 = Imax/2 (Cripps, reduced conduction angle)
@@ -106,7 +106,7 @@ def test_ropt_override_and_switch():
 
 def test_quarter_wave_line_sizing():
     # Pozar, the quarter-wave transformer: Z0 = sqrt(Ropt RL), TD = 1/(4 f0),
-    # length = c0/(4 f0 sqrt(eps_eff)) (75 mm in air at 1 GHz, REFERENCES.md common practice)
+    # length = c0/(4 f0 sqrt(eps_eff)) (75 mm in air at 1 GHz: common practice, docs/check_values.md)
     s = size(make(network={"eps_eff": 4.0}))
     assert_allclose(s.value("line_z0"), math.sqrt(s.ropt_ohm * 50), rtol=1e-12)
     assert s.value("line_td") == 0.25e-9
@@ -122,7 +122,7 @@ def test_tank_from_loaded_q():
 
 
 def test_feed_and_block_defaults_and_keys():
-    # feed reactance 60 Ropt, block Ropt/60 (NGSPICE_NOTES.md, measured settling advice)
+    # feed reactance 60 Ropt, block Ropt/60 (measured: docs/simulator_notes.md, "Bias network")
     s = size(make())
     w = 2 * PI * 1e9
     assert_allclose(w * s.value("feed_l"), 60 * s.ropt_ohm, rtol=1e-12)
@@ -316,7 +316,7 @@ def test_every_topology_has_an_example():
 
 
 def test_ron_estimate_against_measured_sanity_circuit():
-    # NGSPICE_NOTES.md sanity circuit (measured there, ngspice 39, S switch Ron = 0.2 ohm, 1 GHz,
+    # Sanity circuit of docs/simulator_notes.md (measured there, ngspice 39, S switch Ron = 0.2 ohm, 1 GHz,
     # Vdd 10 V, Ropt 100 ohm, quarter-wave line): Pdc = 0.8054 W. Our Vdd_eff estimate predicts
     # Pdc = Vdd Idc_est; it must land within 0.5 % of that measurement. The sized network must
     # also be the one measured there: 1.59 nH || 15.9 pF tank, ~1 uH choke, ~100 pF block.

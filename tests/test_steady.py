@@ -13,11 +13,11 @@ VDD = 10.0
 
 
 def class_f_line(ic, tstop_s, *, choke="1u", block="100p", mode="tran", idc_a=0.0, line_r=0.0):
-    """Quarter-wave class-F sanity circuit of NGSPICE_NOTES.md, following docs/netlist_conventions.md.
+    """Quarter-wave class-F sanity circuit of docs/simulator_notes.md, following docs/netlist_conventions.md.
 
     Z0 = sqrt(Ropt*RL) = sqrt(100*50) = 70.71 ohm, TD = T/4 (Pozar, quarter-wave transformer);
     load tank 1.59 nH || 15.9 pF resonant at 1 GHz; S switch Ron 0.2 ohm; TMAX = T/1000;
-    minbreak = 0.01*TMAX (NGSPICE_NOTES: avoids the timestep collapse with lines).
+    minbreak = 0.01*TMAX (docs/simulator_notes.md: avoids the timestep collapse with lines).
     ``line_r`` > 0 splits the line into two T/8 halves with that series resistance between them
     (line loss; 0.5 ohm on 70.71 ohm is r/(2 Z0) = 3.5 mNp = 0.03 dB, a short low-loss board line).
     """
@@ -60,13 +60,13 @@ def test_quarter_wave_class_f_settles_with_expected_powers():
     np.testing.assert_allclose(np.diff(w.t_s), 1e-12, rtol=1e-9)
     pdc = VDD * np.mean(w.i["supply"])
     p1 = _harmonic(w.v["load"], 1) ** 2 / 2 / 50
-    # Measured values of NGSPICE_NOTES.md (sanity results; measured, not theory):
+    # Measured values of docs/simulator_notes.md (sanity circuits; measured, not theory):
     # Pdc 0.8054 W, P1 0.8002 W, eta 99.35 %. 1 % allows the 0.1 % settle tolerance and resampling.
     assert pdc == pytest.approx(0.8054, rel=0.01)
     assert p1 == pytest.approx(0.8002, rel=0.01)
     assert p1 / pdc >= 0.95  # task acceptance: eta >= 95 %
     # Drain voltage close to a square wave: V1 = (4/pi) Vdd, V3 = V1/3, V5 = V1/5
-    # (Fourier series of a square wave, REFERENCES.md); the notes measured 1.264/0.430/0.256.
+    # (Fourier series of a square wave, docs/check_values.md); the notes measured 1.264/0.430/0.256.
     v = [_harmonic(w.v["drain"], n) / VDD for n in (1, 3, 5)]
     np.testing.assert_allclose(v, [4 / np.pi, 4 / (3 * np.pi), 4 / (5 * np.pi)], rtol=0.03)
     # Drain current sense: in steady state mean drain current = mean supply current
@@ -76,7 +76,7 @@ def test_quarter_wave_class_f_settles_with_expected_powers():
 
 @pytest.mark.ngspice
 def test_huge_choke_cold_start_is_reported_not_settled():
-    # 100 uH choke, no warm start: NGSPICE_NOTES measured ~8000 cycles to settle cold.
+    # 100 uH choke, no warm start: docs/simulator_notes.md measured ~8000 cycles to settle cold.
     sim = SimSpec(max_cycles=40, warm_start=False, points_per_cycle=500)
     w = steady.simulate_netlist(lambda ic, ts: class_f_line(ic, ts, choke="100u", block="1n"),
                                 f0_hz=F0, vdd_v=VDD, sim=sim)
@@ -91,7 +91,7 @@ def test_slow_drift_with_agreeing_cycles_is_not_settled():
     # 100 uH choke warm-started from a 12 % low Idc (0.07 A; the circuit draws ~0.0805 A):
     # the choke current creeps with a time constant of thousands of cycles, so consecutive
     # cycles agree to better than 0.1 % while Pdc is still ~13 % below its final value
-    # (the trap NGSPICE_NOTES describes). It must not be declared settled. (The DC warm start:
+    # (the trap docs/simulator_notes.md describes). It must not be declared settled. (The DC warm start:
     # the periodic start would begin on the right choke current, see the tests below.)
     sim = SimSpec(max_cycles=80, points_per_cycle=500, periodic_start=False)
     w = steady.simulate_netlist(
@@ -101,7 +101,7 @@ def test_slow_drift_with_agreeing_cycles_is_not_settled():
     pdc = w.history["pdc_w"]
     step = np.abs(np.diff(pdc[20:])) / np.abs(pdc[21:])
     assert step.max() < 1e-3  # the naive consecutive-cycle test would pass
-    assert pdc[-1] < 0.95 * 0.8054  # still far from the final Pdc (NGSPICE_NOTES, measured)
+    assert pdc[-1] < 0.95 * 0.8054  # still far from the final Pdc (docs/simulator_notes.md, measured)
     assert not w.settled and "still changing" in w.note
 
 
@@ -182,7 +182,7 @@ def test_window_fourier_uses_the_simulators_points_and_sign_conventions():
     # A square drain voltage 0/20 V whose edge falls between points of a coarse uniform grid, with
     # the jump held as two points at one time (as ngspice returns a switching edge), and a
     # constant 0.08 A drawn from VDD (ngspice reports it as a negative vdd#branch). Fourier
-    # series of a square wave: V1 = (4/pi) Vdd, V3 = V1/3 (REFERENCES.md); the supply current is
+    # series of a square wave: V1 = (4/pi) Vdd, V3 = V1/3 (docs/check_values.md); the supply current is
     # reported positive when it supplies power (Waveforms.i convention).
     T = 1 / F0
     t_parts, v_parts = [], []
@@ -248,7 +248,7 @@ def lossy_line(ic, tstop_s, **kw):
 @pytest.mark.slow
 @pytest.mark.parametrize("make, idc, ref_cycles, warm_bound", [
     # Idc estimates: lumped 0.457 A (measured mean supply current of a cold run), line 0.08 A
-    # (NGSPICE_NOTES sanity circuit: Pdc 0.8054 W / 10 V). Bounds: measured cycle counts with the
+    # (sanity circuit of docs/simulator_notes.md: Pdc 0.8054 W / 10 V). Bounds: measured cycle counts with the
     # bias-mode nulling (lumped 28, line 184 since the judge also waits for the switching-edge
     # peaks) with margin; cold needs 455 and 255 or more.
     # The line carries 0.03 dB of loss (measured): a perfectly lossless quarter-wave line keeps a
@@ -306,7 +306,7 @@ def test_periodic_start_settles_in_a_few_cycles_and_matches_long_reference(make,
 @pytest.mark.ngspice
 def test_periodic_start_needs_no_long_run_with_a_huge_choke():
     # 100 uH choke and 1 nF block: the bias network's mode is so slow that a cold start needs
-    # ~8000 cycles and the DC warm start hundreds (NGSPICE_NOTES.md, measured). The periodic
+    # ~8000 cycles and the DC warm start hundreds (docs/simulator_notes.md, measured). The periodic
     # state contains the choke's and the block's states, so the run starts settled. The choke
     # reactance (628 kohm) loads the drain even less than the 1 uH choke of the notes' sanity
     # circuit, whose values (Pdc 0.8054 W, P1 0.8002 W, measured) hold here within 1 %.

@@ -504,7 +504,7 @@ def test_real_vdd_sweep_power_scales_with_vdd_squared(tmp_path):
     # A switch (resistance switched by time, not by voltage) into a fixed linear network is a linear
     # circuit: every voltage scales with Vdd, so Pout ~ Vdd^2 and the efficiency does not change
     # (superposition, common practice). At 10 V the ideal class-F power is 8 Vdd^2 / (pi^2 Ropt)
-    # = 0.8106 W (Raab 1997; REFERENCES.md), approached within the Ron = 0.2 ohm loss.
+    # = 0.8106 W (Raab 1997; docs/check_values.md), approached within the Ron = 0.2 ohm loss.
     plan = make_plan(REAL, vary=["design.vdd=5V,10V,20V"])
     with SweepStore(tmp_path / STORE_NAME) as st:
         sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)

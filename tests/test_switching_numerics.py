@@ -50,7 +50,7 @@ def _run(sized):
     return wf, analyse(wf, sized, render(sized, mode="tran"))
 
 
-def switched_network_pss(sized, n_harm: int, *, t_on_s: float) -> dict:
+def switched_network_periodic(sized, n_harm: int, *, t_on_s: float) -> dict:
     """Periodic steady state of the network driven by an ideal switch, without SPICE.
 
     The switch is a conductance g(t) = 1/Ron for ``duty*T`` from ``t_on_s``, else 1/Roff;
@@ -167,7 +167,7 @@ def test_demo_with_cout_matches_the_fourier_series_solution_and_dissipates_cv2_p
     sized = _sized("demo", cout_f=cout, ppc=2000, max_cycles=400)
     wf, m = _run(sized)
     assert wf.settled, wf.note
-    ref = switched_network_pss(sized, 2000, t_on_s=_t_on(sized))
+    ref = switched_network_periodic(sized, 2000, t_on_s=_t_on(sized))
     # measured: Pdc 8.246 (SPICE) vs 8.250 W (series), Pout 6.617 vs 6.631 W
     assert m["pdc_w"] == pytest.approx(ref["pdc_w"], rel=5e-3)
     assert m["pout_w"] == pytest.approx(ref["pout_w"], rel=5e-3)
@@ -207,7 +207,7 @@ def test_class_e_is_unchanged_and_step_independent():
     assert m_c["drain_efficiency"] == pytest.approx(m_f["drain_efficiency"], rel=1e-3)
     assert m_c["pout_w"] == pytest.approx(m_f["pout_w"], rel=1e-3)
     # Sokal & Sokal (IEEE JSSC 1975): peak switch voltage 3.562 Vdd at high Q; the loaded
-    # Q of 10 moves it up a little (REFERENCES.md: 3.616 at Q = 30), so 3 %.
+    # Q of 10 moves it up a little (3.616 at Q = 30, recalled from memory; docs/check_values.md), so 3 %.
     assert m_c["peak_vd_over_vdd"] == pytest.approx(3.562, rel=0.03)
 
 

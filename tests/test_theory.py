@@ -1,4 +1,4 @@
-"""Ideal bounds and closed forms against published values (REFERENCES.md gives the sources)."""
+"""Ideal bounds and closed forms against published values (docs/check_values.md gives the sources)."""
 
 from __future__ import annotations
 
@@ -27,7 +27,7 @@ from netgen.synthesis.theory import (
 INF = math.inf
 
 # Raab, "Maximum efficiency and output of class-F power amplifiers", IEEE Trans. MTT, 2001
-# (values as listed in REFERENCES.md, recomputed there by linear programming)
+# (values as listed in docs/check_values.md; tests/test_check_values.py recomputes them by linear programming)
 RAAB_V1 = {1: 1.0, 3: 1.1547, 5: 1.2071, 7: 1.2311, INF: 4 / math.pi}
 RAAB_I1 = {1: 1.0, 2: 1.4142, 4: 1.5000, 6: 1.5307, INF: math.pi / 2}
 RAAB_ETA = {
@@ -40,7 +40,7 @@ RAAB_ETA = {
 
 @pytest.mark.parametrize("n", list(RAAB_V1))
 def test_max_v1(n):
-    # Raab 2001 table (REFERENCES.md); table values are rounded to 4 decimals
+    # Raab 2001 table (docs/check_values.md); table values are rounded to 4 decimals
     assert_allclose(max_v1_over_vdc(n), RAAB_V1[n], rtol=1e-3)
 
 
@@ -52,13 +52,13 @@ def test_max_v1_closed_forms():
 
 @pytest.mark.parametrize("m", list(RAAB_I1))
 def test_max_i1(m):
-    # Raab 2001 table (REFERENCES.md)
+    # Raab 2001 table (docs/check_values.md)
     assert_allclose(max_i1_over_idc(m), RAAB_I1[m], rtol=1e-3)
 
 
 @pytest.mark.parametrize("m", list(RAAB_ETA))
 def test_raab_efficiency_table(m):
-    # Raab 2001 efficiency table, rows m, columns n = 1, 3, 5, 7, inf (REFERENCES.md), 1e-3 relative
+    # Raab 2001 efficiency table, rows m, columns n = 1, 3, 5, 7, inf (docs/check_values.md), 1e-3 relative
     got = [raab_max_efficiency(n, m) for n in (1, 3, 5, 7, INF)]
     assert_allclose(got, RAAB_ETA[m], rtol=1e-3)
 
@@ -83,7 +83,7 @@ def test_maxflat_waveform_is_flat_and_nonnegative():
 
 
 def test_ideal_waveform_series():
-    # Fourier series (REFERENCES.md): square V1 = 1.2732 Vdd, V3 = 0.4244, V5 = 0.2546;
+    # Fourier series (docs/check_values.md): square V1 = 1.2732 Vdd, V3 = 0.4244, V5 = 0.2546;
     # half sine Idc = 0.3183 Imax, I1 = 0.5, I2 = 0.2122, I4 = 0.04244
     sq = square_wave_harmonics(5, 1.0)
     assert_allclose(sq[[0, 1, 3, 5]], [1.0, 1.2732, 0.4244, 0.2546], rtol=1e-3)
@@ -100,7 +100,7 @@ def test_ideal_waveform_series():
 
 
 def test_class_e_ideal_values():
-    # Sokal & Sokal 1975; Raab 1977 (REFERENCES.md)
+    # Sokal & Sokal 1975; Raab 1977 (docs/check_values.md)
     e = class_e_ideal()
     assert_allclose(e["vdd_check"], 1.0, rtol=1e-6)
     assert_allclose(e["r_norm"], 0.5768, rtol=1e-3)

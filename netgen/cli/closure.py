@@ -1,4 +1,4 @@
-"""``netgen tune`` and ``netgen loadpull``: design closure at estimate speed. Parse, call, print.
+"""``pashape tune`` and ``pashape loadpull``: design closure at estimate speed. Parse, call, print.
 
 The work is in :mod:`netgen.studies.tune` / :mod:`netgen.studies.tune_report` and
 :mod:`netgen.studies.loadpull` / :mod:`netgen.studies.loadpull_run`.
@@ -35,7 +35,7 @@ OUT/confirm/ (the tuned design run in ngspice).
 
 \b
 Example:
-  netgen tune my_pa.toml --free network.values.line_z0=30ohm:70ohm \\
+  pashape tune my_pa.toml --free network.values.line_z0=30ohm:70ohm \\
       --target pout=8W --maximise drain_efficiency -o tuned/
 """
 
@@ -113,7 +113,7 @@ peak drain voltage, OUT/summary.json.
 
 \b
 Example:
-  netgen loadpull my_pa.toml --z1 grid:15 --z3 open -o lp/
+  pashape loadpull my_pa.toml --z1 grid:15 --z3 open -o lp/
 """
 
 

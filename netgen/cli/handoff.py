@@ -1,7 +1,7 @@
 """Click commands ``check`` (golden regression), ``diff`` (two designs) and ``export`` (hand-off pack).
 
 Thin wrappers: parse, call netgen.handoff.regress / netgen.handoff.export, print. The lead's
-``netgen.cli.root`` adds them to the ``netgen`` group.
+``netgen.cli.root`` adds them to the ``pashape`` group.
 """
 
 from __future__ import annotations
@@ -37,9 +37,9 @@ def check_command(paths: tuple[Path, ...], accept: bool, jobs: int | None, failu
 
     \b
     Example:
-      netgen check                       # every design in sims/
-      netgen check sims/class_e.toml -j 1
-      netgen check --accept sims/my_pa.toml   # create or refresh its golden
+      pashape check                       # every design in sims/
+      pashape check sims/class_e.toml -j 1
+      pashape check --accept sims/my_pa.toml   # create or refresh its golden
     """
     from netgen import handoff as regress
 
@@ -50,7 +50,7 @@ def check_command(paths: tuple[Path, ...], accept: bool, jobs: int | None, failu
         raise _user_error(exc) from None
     if not results:
         err = click.ClickException(f"no design with a golden file in {', '.join(map(str, targets))}; "
-                                   "create one with 'netgen check --accept DESIGN.toml'.")
+                                   "create one with 'pashape check --accept DESIGN.toml'.")
         err.exit_code = 2
         raise err
     for r in results:
@@ -82,8 +82,8 @@ def diff_command(design_a: str, design_b: str, no_run: bool, changed_only: bool)
 
     \b
     Example:
-      netgen diff sims/demo.toml my_pa.toml --no-run
-      netgen diff git:HEAD~1:sims/demo.toml sims/demo.toml
+      pashape diff sims/demo.toml my_pa.toml --no-run
+      pashape diff git:HEAD~1:sims/demo.toml sims/demo.toml
     """
     from netgen import handoff as regress
 
@@ -110,7 +110,7 @@ def export_command(design_file: Path, outdir: Path, z0_ohm: float, no_verify: bo
 
     \b
     Example:
-      netgen export sims/demo.toml -o demo-pack/
+      pashape export sims/demo.toml -o demo-pack/
     """
     from netgen.design import load_design
     from netgen.handoff import export_pack

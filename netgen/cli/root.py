@@ -1,4 +1,4 @@
-"""The ``netgen`` command line: parse, call the pipeline, print. No physics here.
+"""The ``pashape`` command line: parse, call the pipeline, print. No physics here.
 
 Every error a user can cause ends as one ``Error: ...`` line on stderr and exit
 code 2, with no traceback and no half-written output. A run that finished but did not reach
@@ -94,7 +94,7 @@ class _Progress:
                 click.echo("\r" + " " * 79 + "\r", nl=False, err=True)
 
 
-# Paths are checked by netgen itself (design.load_design, fileio, pipeline.atomic_folder), so
+# Paths are checked by pashape itself (design.load_design, fileio, pipeline.atomic_folder), so
 # every problem with them is one 'Error:' line naming the path.
 DESIGN_ARG = click.argument(
     "design_file", type=click.Path(path_type=Path), metavar="DESIGN.toml"
@@ -115,27 +115,28 @@ def _check_outdir(outdir: Path) -> None:
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
-@click.version_option(__version__, prog_name="netgen")
+@click.version_option(__version__, prog_name="pashape")
 def cli() -> None:
-    """netgen: size, render and simulate RF power-amplifier output networks.
+    """pashape: size, render and simulate RF power-amplifier output networks.
 
     \b
     Typical use:
-      netgen demo                         # the whole pipeline on the built-in example
-      netgen size my_pa.toml -o sized.toml
-      netgen render my_pa.toml -o out/
-      netgen run my_pa.toml -o out/       # metrics.json, waveforms.csv, plots, report.html
-      netgen sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep/
-      netgen check sims/                  # regression against golden metrics
-      netgen export my_pa.toml -o pack/   # hand-off pack for other simulators
-      netgen doctor                       # is ngspice installed and usable?
+      pashape demo                         # the whole pipeline on the built-in example
+      pashape size my_pa.toml -o sized.toml
+      pashape render my_pa.toml -o out/
+      pashape run my_pa.toml -o out/       # metrics.json, waveforms.csv, plots, report.html
+      pashape sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep/
+      pashape check sims/                  # regression against golden metrics
+      pashape export my_pa.toml -o pack/   # hand-off pack for other simulators
+      pashape doctor                       # is ngspice installed and usable?
     """
 
 
 @cli.command()
-@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), default=Path("netgen-demo"), show_default=True, help="Output folder.")
+@click.option("-o", "--out", "outdir", type=click.Path(path_type=Path), default=Path("pashape-demo"), show_default=True, help="Output folder.")
 @click.option("--write-design", type=click.Path(path_type=Path, dir_okay=False), default=None, help="Only copy the demo design file to this path (a starting point for your own) and stop.")
-def demo(outdir: Path, write_design: Path | None) -> None:
+@click.option("--force", is_flag=True, help="With --write-design: replace the file if it exists.")
+def demo(outdir: Path, write_design: Path | None, force: bool) -> None:
     """Run the whole pipeline on the built-in demo design.
 
     The demo is an invented 8 W, 915 MHz class-F stage for a field-telemetry
@@ -145,12 +146,15 @@ def demo(outdir: Path, write_design: Path | None) -> None:
 
     \b
     Example:
-      netgen demo -o demo-out/
-      netgen demo --write-design my_pa.toml
+      pashape demo -o demo-out/
+      pashape demo --write-design my_pa.toml
     """
     src = _demo_path()
     if write_design is not None:
+        from netgen.errors import OutputError
 
+        if (write_design.exists() or write_design.is_symlink()) and not force:
+            raise OutputError(f"{write_design}: exists; choose another file name, or add --force to replace it.")
         atomic_write_text(write_design, src.read_text(encoding="utf-8"))
         click.echo(f"Wrote the demo design to {write_design}.")
         return
@@ -161,13 +165,16 @@ def demo(outdir: Path, write_design: Path | None) -> None:
 
 def _run_and_print(design, outdir: Path) -> None:
     from netgen.pipeline import run_design
-    from netgen.results import format_table
+    from netgen.results import CAUTION_LINE, format_table
 
     progress = _Progress(f"simulating {design.name}", enabled=True)
     try:
         result = run_design(design, outdir, progress=progress)
     finally:
         progress.done()
+    # on every run that produced results (a user error stays one 'Error:' line); on stderr, so
+    # the table on stdout stays clean
+    click.echo(CAUTION_LINE, err=True)
     click.echo(format_table(result.metrics))
     click.echo(f"Report: {result.files['report']}")
     click.echo(f"Metrics: {result.files['metrics']}  Waveforms: {result.files['waveforms']}  Netlist: {result.files['netlist']}")
@@ -190,7 +197,7 @@ def size(design_file: Path, outfile: Path) -> None:
 
     \b
     Example:
-      netgen size sims/demo.toml -o sized.toml
+      pashape size sims/demo.toml -o sized.toml
     """
     from netgen.synthesis import size as size_design
     from netgen.synthesis import write_sized_toml
@@ -213,7 +220,7 @@ def render(design_file: Path, outdir: Path, dialect: str) -> None:
 
     \b
     Example:
-      netgen render sims/demo.toml -o out/ --dialect both
+      pashape render sims/demo.toml -o out/ --dialect both
     """
     from netgen.netlist import render as render_netlist
     from netgen.pipeline import atomic_folder
@@ -246,7 +253,7 @@ def run(design_file: Path, outdir: Path, backend: str | None) -> None:
 
     \b
     Example:
-      netgen run sims/class_e.toml -o out/class_e
+      pashape run sims/class_e.toml -o out/class_e
     """
     import dataclasses
 
@@ -265,7 +272,7 @@ def doctor() -> None:
 
     \b
     Example:
-      netgen doctor
+      pashape doctor
     """
     from netgen.simulator import doctor_report
 
@@ -311,12 +318,12 @@ def _one_line(text: str) -> str:
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the CLI, turning user errors into one line and exit code 2."""
     try:
-        code = cli.main(args=argv, prog_name="netgen", standalone_mode=False)
+        code = cli.main(args=argv, prog_name="pashape", standalone_mode=False)
     except click.exceptions.Abort:
         click.echo("Aborted.", err=True)
         sys.exit(130)
     except click.UsageError as exc:  # one line, like every other user error
-        where = f" (see 'netgen {exc.ctx.info_name} --help')" if exc.ctx is not None and exc.ctx.parent is not None else " (see 'netgen --help')"
+        where = f" (see 'pashape {exc.ctx.info_name} --help')" if exc.ctx is not None and exc.ctx.parent is not None else " (see 'pashape --help')"
         click.echo(f"Error: {_one_line(exc.format_message())}{where}", err=True)
         sys.exit(exc.exit_code)
     except click.ClickException as exc:
@@ -329,10 +336,10 @@ def main(argv: list[str] | None = None) -> None:
         click.echo("Interrupted.", err=True)
         sys.exit(130)
     except Exception as exc:  # a bug of ours: say so plainly; the traceback only on request
-        if os.environ.get("NETGEN_DEBUG"):
+        if os.environ.get("PASHAPE_DEBUG") or os.environ.get("NETGEN_DEBUG"):  # the latter: name before the rename
             raise
-        click.echo(f"Internal error ({type(exc).__name__}: {exc}). This is a netgen bug; "
-                   "re-run with NETGEN_DEBUG=1 for the traceback and report it.", err=True)
+        click.echo(f"Internal error ({type(exc).__name__}: {exc}). This is a pashape bug; "
+                   "re-run with PASHAPE_DEBUG=1 for the traceback and report it.", err=True)
         sys.exit(1)
     sys.exit(code if isinstance(code, int) else 0)
 

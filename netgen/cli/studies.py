@@ -1,4 +1,4 @@
-"""``netgen sweep``: grids, load circles and tolerance Monte Carlo into a resumable store.
+"""``pashape sweep``: grids, load circles and tolerance Monte Carlo into a resumable store.
 
 Parses the options, calls :mod:`netgen.studies.plan` / :mod:`netgen.studies.store` /
 :mod:`netgen.studies.plots`, prints a summary. No physics here.
@@ -54,8 +54,8 @@ ngspice's. Points the estimate cannot model run in ngspice and say so.
 
 \b
 Example:
-  netgen sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep_vdd/
-  netgen sweep my_pa.toml --tolerance "C*=5%" --samples 200 \\
+  pashape sweep my_pa.toml --vary design.vdd=20V:28V:5 -o sweep_vdd/
+  pashape sweep my_pa.toml --tolerance "C*=5%" --samples 200 \\
       --spec "drain_efficiency>=0.70" -o mc/
 """
 
@@ -113,7 +113,7 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
     design = load_design(design_file)
     spec_list = [parse_spec(s) for s in specs]
     if not vary and not vswr and not tolerance:
-        raise DesignError("nothing to sweep; give --vary, --vswr or --tolerance (see netgen sweep --help).")
+        raise DesignError("nothing to sweep; give --vary, --vswr or --tolerance (see pashape sweep --help).")
     plan = make_plan(design.raw, source=design.source, vary=vary, vswr=vswr, tolerance=tolerance,
                      samples=samples, seed=seed, dist=dist, resize=resize)
     if list_only:
@@ -212,7 +212,7 @@ def _echo_confirmation(conf: dict | None) -> None:
 def main(argv=None) -> None:
     """Run the command alone (``python -m netgen.cli.studies``), errors as one line and exit code 2."""
     try:
-        sweep_command.main(args=argv, prog_name="netgen sweep", standalone_mode=False)
+        sweep_command.main(args=argv, prog_name="pashape sweep", standalone_mode=False)
     except click.ClickException as exc:
         exc.show()
         sys.exit(exc.exit_code)

@@ -123,7 +123,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "feed_l": Key("feed_l_h", "H", None, "DC-feed choke inductance (default: reactance 60 x Ropt at f0).", lo=0.0, hi=1.0, lo_open=True),
         "block_c": Key("block_c_f", "F", None, "DC-block capacitance (default: reactance Ropt/60 at f0).", lo=0.0, hi=1.0, lo_open=True),
         "match": Key("match", "str", "lowpass", "Ropt -> RL matching section where the topology needs one: lowpass or highpass L-section.", choices=("lowpass", "highpass")),
-        "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `netgen size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
+        "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `pashape size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
         "values": Key("values", "values", {}, "Explicit component values by name (e.g. tank_l = \"2.4 nH\"); they override sizing."),
     },
     "sim": {
@@ -280,7 +280,7 @@ def load_design(path: str | Path) -> Design:
             f"{path}: not UTF-8 text (bad byte at offset {exc.start}); save the file as UTF-8."
         ) from None
     if not text.strip():
-        raise DesignError(f"{path}: the file is empty; start from 'netgen demo --write-design FILE' or sims/demo.toml.")
+        raise DesignError(f"{path}: the file is empty; start from 'pashape demo --write-design FILE' or sims/demo.toml.")
     _check_nesting_text(text, path)
     try:
         doc = tomllib.loads(text)

@@ -5,7 +5,7 @@ hand-off packs (portable and ngspice netlists, Touchstone, expected metrics) for
 other simulators.
 
 Modules: ``regress`` (goldens and check), ``diff`` (two designs compared), ``export`` (packs), ``pytest_plugin``
-(``--netgen-designs=DIR`` runs a folder of designs as tests).
+(``--pashape-designs=DIR`` runs a folder of designs as tests).
 """
 
 from importlib import import_module

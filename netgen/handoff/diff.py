@@ -1,7 +1,7 @@
 """Design-to-design comparison: sized components, Ropt and (optionally) metrics of two designs.
 
 Either design may be a path or ``git:REV:path`` (that file as of a revision). Library code:
-nothing here prints; ``netgen diff`` (netgen.cli.handoff) presents :func:`format_diff`.
+nothing here prints; ``pashape diff`` (netgen.cli.handoff) presents :func:`format_diff`.
 """
 
 from __future__ import annotations

@@ -6,8 +6,8 @@ beside the target, then renamed into place):
 * ``<name>_portable.cir``: the transient netlist in the portable dialect
   (SPICE3 subset, models inline, no paths, no control block), checked by
   :func:`netgen.netlist.portable.check_portable`;
-* ``<name>_ngspice.cir``: the netlist netgen itself runs;
-* ``expected_metrics.json``: the metrics of netgen's settled run (the
+* ``<name>_ngspice.cir``: the netlist pashape itself runs;
+* ``expected_metrics.json``: the metrics of pashape's settled run (the
   metrics.json contract) plus the pack's analysis settings;
 * ``expected_waveforms.csv``: two settled periods (time from the start of the
   reading window);
@@ -22,7 +22,7 @@ beside the target, then renamed into place):
 The portable netlist's ``TSTOP`` is chosen so that a plain transient run from
 the pack's initial conditions is settled; with ``verify`` the pack re-runs the
 portable netlist in ngspice and lengthens ``TSTOP`` until the last two periods
-reproduce netgen's metrics within :data:`REPRODUCE_TOL`.
+reproduce pashape's metrics within :data:`REPRODUCE_TOL`.
 """
 
 from __future__ import annotations
@@ -55,9 +55,9 @@ __all__ = [
     "MANIFEST",
 ]
 
-#: Relative agreement required between the portable run and netgen's metrics.
+#: Relative agreement required between the portable run and pashape's metrics.
 REPRODUCE_TOL = 5e-3
-#: The file that marks a folder as a netgen pack (so an existing pack may be replaced).
+#: The file that marks a folder as a pashape pack (so an existing pack may be replaced).
 MANIFEST = "pack_manifest.json"
 #: Metrics compared when verifying a portable run.
 _VERIFY_KEYS = ("pdc_w", "pout_w", "drain_efficiency")
@@ -75,7 +75,7 @@ class Pack:
     tstop_s : float
         TSTOP of the portable netlist, s.
     settled : bool
-        Whether netgen's own run settled.
+        Whether pashape's own run settled.
     verify_note : str
         How the portable run compared (empty when not verified).
     metrics : dict
@@ -189,7 +189,7 @@ def reproduce_error(expected: dict, got: dict) -> float:
 def _warm_ic(sized, backend: str) -> dict:
     """Initial conditions of the pack's run: the DC state of chokes and blocks.
 
-    The same warm start netgen's steady-state run uses
+    The same warm start pashape's steady-state run uses
     (:func:`netgen.periodic.steady.dc_initial_conditions`: a DC operating point of the
     passive network sinking the estimated Idc at the drain).
     """
@@ -202,7 +202,7 @@ def _warm_ic(sized, backend: str) -> dict:
 
 
 def _periodic_state(sized):
-    """The periodic steady state netgen starts its own run on (:mod:`netgen.periodic.estimator`), or None
+    """The periodic steady state pashape starts its own run on (:mod:`netgen.periodic.estimator`), or None
     where the netlist is outside what it models (the pack then starts from the DC state)."""
     from netgen.netlist import render
 
@@ -226,14 +226,32 @@ def _tran_settings(netlist: str) -> dict:
 
 
 def _ic_lines(netlist: str) -> list[str]:
-    out = []
+    """The netlist's initial conditions, one entry per element, each naming its element.
+
+    A card folded onto ``+`` continuation lines (a transmission line's four values) is read as
+    one card and shown as ``<element>: IC=...`` (for a ``T`` line, the port-1 voltage and
+    current, then port 2's).
+    """
+    cards: list[str] = []
     for line in netlist.splitlines():
         s = line.strip()
         if not s or s.startswith("*"):
             continue
-        low = s.lower()
-        if low.startswith(".ic") or " ic=" in low:
-            out.append(s)
+        if s.startswith("+") and cards:
+            cards[-1] += " " + s
+        else:
+            cards.append(s)
+    out = []
+    for card in cards:
+        low = card.lower()
+        if low.startswith(".ic"):
+            out.append(card)
+        elif " ic=" in low:
+            if " + " in card:  # folded: the element's name and its IC= part
+                at = low.index(" ic=")
+                out.append(f"{card.split()[0]}: {card[at + 1:]}")
+            else:
+                out.append(card)
     return out
 
 
@@ -269,7 +287,7 @@ def _check_target(target: Path) -> None:
         if not target.is_dir():
             raise OutputError(f"{target}: exists and is not a folder; choose another pack folder with -o.")
         if any(target.iterdir()) and not (target / MANIFEST).is_file():
-            raise OutputError(f"{target}: exists and is not a netgen pack (no {MANIFEST}); "
+            raise OutputError(f"{target}: exists and is not a pashape pack (no {MANIFEST}); "
                               "choose an empty or new folder with -o so nothing of yours is replaced.")
 
 
@@ -303,7 +321,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         Reference impedance of the Touchstone files, ohm (default 50).
     verify : bool
         Re-run the portable netlist in ngspice and lengthen TSTOP until its
-        last two periods reproduce netgen's Pdc, Pout and efficiency within
+        last two periods reproduce pashape's Pdc, Pout and efficiency within
         :data:`REPRODUCE_TOL`.
     backend : {"shared", "batch"}, optional
         Simulator path (default: the design's ``sim.backend``).
@@ -352,7 +370,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         err = reproduce_error(metrics, got)
         if err <= REPRODUCE_TOL:
             verify_note = (f"Portable netlist re-run in ngspice: Pdc, Pout and efficiency within {100 * err:.3f} % "
-                           f"of netgen's run (TSTOP = {cycles} periods).")
+                           f"of pashape's run (TSTOP = {cycles} periods).")
             break
         if cycles >= design.sim.max_cycles:
             raise SimulationError(
@@ -376,7 +394,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     tran = _tran_settings(portable)
     expected = dict(metrics)
     expected["pack"] = {
-        "netgen_version": __version__,
+        "pashape_version": __version__,
         "sized_digest": sized.digest(),
         "portable_netlist": f"{name}_portable.cir",
         "tstop_s": tstop,
@@ -386,7 +404,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         "ac_vs_network_max_rel_dev": z_dev,
         "verify": verify_note,
     }
-    comment = (f"netgen {__version__} design {name}: 1-port at the drain, device removed, load attached; "
+    comment = (f"pashape {__version__} design {name}: 1-port at the drain, device removed, load attached; "
                f"reference impedance {z0_ohm:g} ohm; digest {sized.digest()}")
     files = {
         f"{name}_portable.cir": portable,
@@ -398,7 +416,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     }
     files["README.md"] = _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev,
                                  verify_note, f_hz, z_ac, harm, list(files))
-    files[MANIFEST] = json.dumps({"netgen_version": __version__, "design": name, "files": sorted(files)}, indent=2) + "\n"
+    files[MANIFEST] = json.dumps({"pashape_version": __version__, "design": name, "files": sorted(files)}, indent=2) + "\n"
 
     parent = outdir.parent if str(outdir.parent) else Path(".")
     try:
@@ -441,16 +459,17 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
     lines = [
         f"# Hand-off pack: {name}",
         "",
-        f"Made by netgen {__version__} from the design `{name}` (topology `{design.topology}`, "
+        f"Made by pashape {__version__} from the design `{name}` (topology `{design.topology}`, "
         f"f0 = {f0 / 1e6:.6g} MHz, Vdd = {design.vdd_v:g} V, RL = {design.load_ohm:g} ohm, "
         f"Ropt = {sized.ropt_ohm:.5g} ohm; sized-design digest `{sized.digest()}`).",
         "",
+        *_cautions_section(metrics),
         "## What is in the pack",
         "",
         f"- `{name}_portable.cir`: the circuit for any SPICE3-compatible simulator: every model inline, no file "
         "references, no control block, one transient analysis.",
-        f"- `{name}_ngspice.cir`: the same circuit as netgen runs it in ngspice (for comparison).",
-        "- `expected_metrics.json`: the metrics netgen obtained (key `pack` holds the settings below).",
+        f"- `{name}_ngspice.cir`: the same circuit as pashape runs it in ngspice (for comparison).",
+        "- `expected_metrics.json`: the metrics pashape obtained (key `pack` holds the settings below).",
         "- `expected_waveforms.csv`: two settled periods: time from the start of the reading window (s), "
         "drain/load/supply voltages (V), drain, switch and supply currents (A).",
         f"- `{name}_drain_z.s1p`: S11 of the passive output network seen from the drain (device removed, load "
@@ -468,12 +487,15 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         f"- Initial conditions: {'`uic` with the element IC= values below' if tran['uic'] else 'none (DC operating point)'}:",
     ]
     lines += [f"  - `{s}`" for s in ics] or ["  - (none)"]
+    if any(s.lower().startswith("t") for s in ics):
+        lines.append("  - A transmission line's `IC=v1,i1,v2,i2` is the voltage and current at its first port, "
+                     "then at its second.")
     if any(ln.startswith(("Vhist_", "Ihist_")) for ln in portable.splitlines()):
         lines += [
             "- Line history: the sources `Vhist_*` (in series with each transmission-line port) and `Ihist_*` "
             "(into each port) give every line the waves it carries in the periodic steady state during its first "
             "delay, and are zero from then on, so that the circuit is the plain one after that. With them and "
-            "the IC= values the run starts on the periodic state netgen computed and needs only a few periods. "
+            "the IC= values the run starts on the periodic state pashape computed and needs only a few periods. "
             "To start from zero instead, delete them, the IC= values and `uic`, and run several hundred periods.",
         ]
     lines += [
@@ -499,7 +521,7 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         "",
         "| metric | value |",
         "| --- | --- |",
-        f"| settled (netgen) | {metrics.get('settled')} after {metrics.get('cycles')} cycles |",
+        f"| settled (pashape) | {metrics.get('settled')} after {metrics.get('cycles')} cycles |",
         f"| Pdc | {_fmt(metrics.get('pdc_w'))} W |",
         f"| Pout (fundamental) | {_fmt(metrics.get('pout_w'))} W |",
         f"| drain efficiency | {_fmt(None if eff is None else 100 * eff)} % |",
@@ -525,17 +547,20 @@ def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev
         lines.append(f"| {f / f0:.0f} | {z.real:.5g} | {z.imag:.5g} |")
     lines += [
         "",
-        f"The AC analysis agrees with netgen's frequency-domain network model within {100 * z_dev:.3g} % over the grid.",
-        "",
-        "## Safety cautions",
-        "",
-        "These are idealised simulations: the device is an idealised switch or simple model, components are "
-        "ideal apart from the stated losses, and nothing here checks breakdown, thermal limits, stability or "
-        f"regulatory emission limits. The drain swings to {_fmt(metrics.get('peak_vd_over_vdd'))} x Vdd; check real "
-        "parts against their ratings before building, and take RF exposure and high-voltage precautions on the bench.",
+        f"The AC analysis agrees with pashape's frequency-domain network model within {100 * z_dev:.3g} % over the grid.",
         "",
     ]
     return "\n".join(lines)
+
+
+def _cautions_section(metrics: dict) -> list[str]:
+    """The pack README's full safety cautions (the same texts as the report's, netgen.results.cautions)."""
+    from netgen.results import caution_texts
+
+    peak = metrics.get("peak_vd_over_vdd")
+    return ["## Safety cautions", "",
+            "The circuit in this pack, once built, can hurt people. Read these before building or powering it:", "",
+            *[f"- {text}" for text in caution_texts(peak if isinstance(peak, (int, float)) else None)], ""]
 
 
 def _fmt(x) -> str:

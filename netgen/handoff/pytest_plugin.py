@@ -1,11 +1,11 @@
 """pytest plugin: run a folder of designs with golden metrics as tests.
 
-Registered as the ``pytest11`` entry point ``netgen_designs``, so it is active
-wherever netgen is installed; it does nothing unless ``--netgen-designs`` is
-given::
+Registered as the ``pytest11`` entry point ``pashape_designs``, so it is active
+wherever pashape is installed; it does nothing unless ``--pashape-designs`` is
+given (``--netgen-designs``, the name before the rename, is still accepted)::
 
-    pytest --netgen-designs=designs/            # one test per design with a golden
-    pytest --netgen-designs=designs/ -n 2       # in parallel with pytest-xdist
+    pytest --pashape-designs=designs/            # one test per design with a golden
+    pytest --pashape-designs=designs/ -n 2       # in parallel with pytest-xdist
 
 Each design ``x.toml`` with ``x.expect.json`` beside it becomes one test item
 ``x.expect.json::x``; it fails with the table of deviations (netgen.handoff.regress).
@@ -19,23 +19,27 @@ from pathlib import Path
 
 import pytest
 
-OPTION = "--netgen-designs"
+OPTION = "--pashape-designs"
+#: the option's name before the command was renamed (still accepted)
+OLD_OPTION = "--netgen-designs"
 
 
 def pytest_addoption(parser):
-    group = parser.getgroup("netgen", "netgen design regression")
+    group = parser.getgroup("pashape", "pashape design regression")
     group.addoption(
         OPTION,
+        OLD_OPTION,
+        dest="pashape_designs",
         action="append",
         default=[],
         metavar="PATH",
-        help="Folder (or design file) of netgen designs with golden *.expect.json files; "
+        help="Folder (or design file) of pashape designs with golden *.expect.json files; "
              "each becomes a test. May be repeated.",
     )
 
 
 def _roots(config) -> list[Path]:
-    return [Path(p).resolve() for p in config.getoption("netgen_designs") or []]
+    return [Path(p).resolve() for p in config.getoption("pashape_designs") or []]
 
 
 def pytest_configure(config):
@@ -115,4 +119,4 @@ class DesignItem(pytest.Item):
         return super().repr_failure(excinfo)
 
     def reportinfo(self):
-        return self.path, None, f"netgen design {self.design_path.name}"
+        return self.path, None, f"pashape design {self.design_path.name}"

@@ -1,11 +1,11 @@
 """Template regression against golden metrics.
 
 A golden file ``<design>.expect.json`` sits beside ``<design>.toml``. It holds
-the metrics a known-good run produced, a tolerance per metric, the netgen
+the metrics a known-good run produced, a tolerance per metric, the pashape
 version and the sized-design digest it came from (format in
 docs/regression.md). :func:`check_designs` re-runs designs (in a process pool)
 and compares; :func:`accept` rewrites goldens after an intended change.
-Comparing two designs (``netgen diff``) is :mod:`netgen.handoff.diff`.
+Comparing two designs (``pashape diff``) is :mod:`netgen.handoff.diff`.
 
 Library code: nothing here prints or exits; the CLI (netgen.cli.handoff) and the
 pytest plugin (netgen.handoff.pytest_plugin) present the results.
@@ -48,7 +48,12 @@ __all__ = [
 ]
 
 GOLDEN_SUFFIX = ".expect.json"
-GOLDEN_FORMAT = "netgen-expect-1"
+GOLDEN_FORMAT = "pashape-expect-1"
+#: Format tags read as well: the same layout under the name before the rename (its version key
+#: was ``netgen_version``).
+OLD_GOLDEN_FORMATS = ("netgen-expect-1",)
+#: Key of the version that wrote a golden (``netgen_version`` in goldens before the rename).
+VERSION_KEY = "pashape_version"
 #: Harmonics compared (n = 1..HARMONICS_COMPARED).
 HARMONICS_COMPARED = 5
 #: Harmonic load power at or below this (dBc) counts as "absent": two such values agree.
@@ -80,17 +85,20 @@ class Tolerance:
             return True
         return abs(new - golden) <= self.abs + self.rel * abs(golden) + 1e-15
 
-    def describe(self) -> str:
+    def describe(self, diff_unit: str = "", level_unit: str = "") -> str:
+        """The tolerance as text: the absolute part in ``diff_unit`` (e.g. "dB"), floor and ceiling
+        in ``level_unit`` (e.g. "dBc"); without units as plain numbers."""
+        du, lu = (f" {diff_unit}" if diff_unit else ""), (f" {level_unit}" if level_unit else "")
         parts = []
         if self.abs:
-            parts.append(f"+/-{self.abs:g}")
+            parts.append(f"+/-{self.abs:g}{du}")
         if self.rel:
             parts.append(f"+/-{100 * self.rel:g}%")
         text = " ".join(parts) or "exact"
         if self.floor is not None:
-            text += f" (<= {self.floor:g} equal)"
+            text += f" (<= {self.floor:g}{lu} equal)"
         if self.ceiling is not None:
-            text += f" (>= {self.ceiling:.4g} equal)"
+            text += f" (>= {self.ceiling:.4g}{lu} equal)"
         return text
 
     def to_json(self) -> dict:
@@ -119,6 +127,8 @@ class Row:
         if not (math.isfinite(self.golden) and math.isfinite(self.new)):
             return "n/a"
         d = self.new - self.golden
+        if self.metric.endswith("_dbc"):  # levels in dB: their difference is in dB, a percentage means nothing
+            return f"{d:+.3g} dB"
         text = f"{d:+.4g}"
         if self.golden != 0:
             text += f" ({100 * d / abs(self.golden):+.2f}%)"
@@ -183,7 +193,7 @@ def find_designs(paths: Iterable[str | Path], *, include_new: bool = False) -> l
             out.append(design)
         elif p.suffix == ".toml":
             if not include_new and not golden_path(p).is_file():
-                raise DesignError(f"{p}: no golden file {golden_path(p).name}; create it with 'netgen check --accept {p}'.")
+                raise DesignError(f"{p}: no golden file {golden_path(p).name}; create it with 'pashape check --accept {p}'.")
             out.append(p)
         else:
             raise DesignError(f"{p}: not a design (*.toml) or golden (*{GOLDEN_SUFFIX}) file.")
@@ -264,7 +274,7 @@ def make_golden(design_path: Path, metrics: dict, digest: str, old: dict | None 
     return {
         "format": GOLDEN_FORMAT,
         "design_file": Path(design_path).name,
-        "netgen_version": __version__,
+        VERSION_KEY: __version__,
         "sized_digest": digest,
         "settled": bool(metrics.get("settled", False)),
         "cycles": metrics.get("cycles"),
@@ -284,17 +294,22 @@ def read_golden(path: str | Path) -> dict:
     try:
         doc = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise DesignError(f"{path}: golden file missing; create it with 'netgen check --accept <design.toml>'.") from None
+        raise DesignError(f"{path}: golden file missing; create it with 'pashape check --accept <design.toml>'.") from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise DesignError(f"{path}: not a readable golden file ({exc}); regenerate it with 'netgen check --accept'.") from None
-    if not isinstance(doc, dict) or doc.get("format") != GOLDEN_FORMAT or not isinstance(doc.get("metrics"), dict):
-        raise DesignError(f"{path}: not a golden file of format '{GOLDEN_FORMAT}'; regenerate it with 'netgen check --accept'.")
+        raise DesignError(f"{path}: not a readable golden file ({exc}); regenerate it with 'pashape check --accept'.") from None
+    if not isinstance(doc, dict) or doc.get("format") not in (GOLDEN_FORMAT, *OLD_GOLDEN_FORMATS) \
+            or not isinstance(doc.get("metrics"), dict):
+        raise DesignError(f"{path}: not a golden file of format '{GOLDEN_FORMAT}'; regenerate it with 'pashape check --accept'.")
     for key, entry in doc["metrics"].items():
         if not isinstance(entry, dict) or "value" not in entry:
             raise DesignError(f"{path}: metrics.{key} needs a 'value' (and optional abs, rel, floor, ceiling).")
         for k in ("value", "abs", "rel", "floor", "ceiling"):
             if k in entry and entry[k] is not None and not isinstance(entry[k], (int, float)):
                 raise DesignError(f"{path}: metrics.{key}.{k} must be a number.")
+    if doc["format"] != GOLDEN_FORMAT:  # read the older layout as the current one
+        doc = {**doc, "format": GOLDEN_FORMAT}
+        if "netgen_version" in doc:
+            doc[VERSION_KEY] = doc.pop("netgen_version")
     return doc
 
 
@@ -359,8 +374,8 @@ def _result(design: Path, run: dict, accept: bool) -> CheckResult:
         rows = compare(old, metrics)
         if old.get("sized_digest") != run["digest"]:
             notes.append(f"sized design changed since the golden (digest {old.get('sized_digest')} -> {run['digest']})")
-        if old.get("netgen_version") != __version__:
-            notes.append(f"golden made by netgen {old.get('netgen_version')}, this is {__version__}")
+        if old.get(VERSION_KEY) != __version__:
+            notes.append(f"golden made by version {old.get(VERSION_KEY)}, this is {__version__}")
     else:
         notes.append("no golden yet")
     new_golden = make_golden(design, metrics, run["digest"], old) if accept else None
@@ -475,7 +490,8 @@ def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
     rows = [row for row in r.rows if not (only_failures and row.ok)]
     if rows:
         table = [("metric", "golden", "new", "deviation", "tolerance", "result")]
-        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation, row.tolerance.describe(),
+        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation,
+                   row.tolerance.describe(*(("dB", "dBc") if row.metric.endswith("_dbc") else ())),
                    "ok" if row.ok else "FAIL") for row in rows]
         widths = [max(len(t[i]) for t in table) for i in range(6)]
         for t in table:

@@ -259,7 +259,7 @@ def device_expression(text: str, element: str):
         if not isinstance(node, _ALLOWED):
             raise Unsupported(f"{element}: the expression '{text}' uses '{type(node).__name__}'")
         if isinstance(node, ast.Call) and not (isinstance(node.func, ast.Name) and node.func.id in _FUNCS):
-            raise Unsupported(f"{element}: the expression '{text}' calls a function netgen does not evaluate")
+            raise Unsupported(f"{element}: the expression '{text}' calls a function pashape does not evaluate")
         if isinstance(node, ast.Subscript) and not (isinstance(node.value, ast.Name) and node.value.id == "V"):
             raise Unsupported(f"{element}: the expression '{text}' could not be read")
         if isinstance(node, ast.Name) and node.id != "V" and node.id not in _FUNCS:

@@ -127,7 +127,7 @@ def _comp_ctx(sized: SizedDesign) -> dict:
 def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
     d = sized.design
     lines = [
-        f"netgen {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
+        f"pashape {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
         f"f0 = {_fmt(d.f0_hz)} Hz, Vdd = {_fmt(d.vdd_v)} V, RL = {_fmt(d.load_ohm)} ohm, load_x = {_fmt(d.load_x_ohm)} ohm, device {d.device.model}",
         f"Ropt = {_fmt(sized.ropt_ohm)} ohm; sized-design digest {sized.digest()}",
         "components (name = value unit: how):",
@@ -456,7 +456,7 @@ def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
 PORTABLE_CARD_CHARS = 80
 #: comment-line width of the portable dialect (netgen.netlist.portable.MAX_COMMENT_CHARS)
 PORTABLE_COMMENT_CHARS = 255
-#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (NGSPICE_NOTES.md)
+#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (measured: docs/simulator_notes.md)
 MINBREAK_DIVISOR = 100.0
 
 
@@ -466,7 +466,7 @@ def portable_cards(text: str) -> str:
     1. ``.save`` cards (and their ``+`` lines) are dropped: vector selection is
        simulator-specific, and a SPICE3 reader keeps every node anyway.
     2. When the netlist has a ``T`` line, ``.options minbreak=<TMAX/100>`` goes right
-       before ``.tran``. Measured in ngspice 39 (NGSPICE_NOTES.md): a lossless T line in
+       before ``.tran``. Measured in ngspice 39 (docs/simulator_notes.md): a lossless T line in
        a switching circuit makes the time step collapse after a few hundred periods unless
        near-coincident breakpoints are merged; 0.01 TMAX cured every case tried.
        docs/portable_dialect.md says what a simulator without the option should do.

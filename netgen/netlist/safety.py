@@ -4,7 +4,7 @@ ngspice runs commands from a netlist in more ways than a list of spellings can c
 (measured with ngspice 39, docs/reliability.md): ``.control`` / ``.exec`` blocks matched by
 prefix and in any case (``.CONTROLxyz`` opens one), comment lines starting ``*#`` (even after
 leading blanks), shell command substitution in backquotes inside control lines, ``source`` of a
-file named by a variable or after ``cd``, and control blocks of included files. netgen writes no
+file named by a variable or after ``cd``, and control blocks of included files. pashape writes no
 control block into a netlist (it sends every simulator command itself), so the rule here is an
 allow-list, checked on every physical line as ngspice reads it:
 
@@ -89,7 +89,7 @@ def _scan(text: str, where: str, error, *, model: bool, title: bool) -> list[tup
         if _CONTROL.match(line):
             word = _CONTROL.match(line).group(1)
             raise error(f"{at}: '{word[:12]}' starts an ngspice control command, which could run shell "
-                        f"commands; netgen sends every simulator command itself, so remove the line.")
+                        f"commands; pashape sends every simulator command itself, so remove the line.")
         body = line.strip()
         if not body or body.startswith("*"):
             continue  # a comment (a '*#' one was refused above)
@@ -136,7 +136,7 @@ def check_model_file(target: str, where: str, error, roots: list[Path] | None = 
     path = Path(target)
     if not path.is_absolute():
         raise error(f"{where}: the include '{shown}' is not an absolute path (ngspice runs in a private "
-                    "folder); use device.include in the design, which netgen writes as an absolute path.")
+                    "folder); use device.include in the design, which pashape writes as an absolute path.")
     try:
         real = path.resolve(strict=True)
         st = os.stat(real)

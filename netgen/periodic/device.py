@@ -70,7 +70,7 @@ def read_device(cards: list[Card], models: dict, period_s: float, points: int) -
     cands = switches + [c for c in touching if c.name[0] == "B"]
     others = [c for c in touching if c.name[0] != "B"]
     if others:
-        raise Unsupported(f"{others[0].tokens[0]}: the device is a subcircuit or model netgen does not solve directly")
+        raise Unsupported(f"{others[0].tokens[0]}: the device is a subcircuit or model pashape does not solve directly")
     if len(cands) != 1:
         raise Unsupported("the netlist has no single device element between 'dsw' and ground")
     dev = cands[0]

@@ -1,4 +1,4 @@
-"""Periodic steady state computed directly from the transient netlist (netgen's warm start).
+"""Periodic steady state computed directly from the transient netlist (pashape's warm start).
 
 :func:`estimate` reads the transient netlist that :mod:`netgen.periodic.steady` is about to run and
 computes its periodic steady state without time stepping; :func:`with_initial_state` writes

@@ -5,7 +5,7 @@ dict (the metrics.json contract, docs/metrics.md), PNG figures and report.html, 
 table and the metrics/waveform files.
 
 Modules: ``analysis`` (metrics, loss budget, warnings), ``plots`` (the only matplotlib user of
-a single run), ``report`` (HTML, table, JSON and CSV writers).
+a single run), ``report`` (HTML, table, JSON and CSV writers), ``cautions`` (the safety texts every output carries).
 """
 
 from importlib import import_module
@@ -14,7 +14,10 @@ from importlib import import_module
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
     "CAUTIONS": "report",
+    "CAUTION_LINE": "cautions",
+    "CAUTION_SHORT": "cautions",
     "analyse": "analysis",
+    "caution_texts": "cautions",
     "design_warnings": "analysis",
     "format_table": "report",
     "plot_all": "plots",

@@ -4,7 +4,7 @@ Input: :class:`netgen.design.records.Waveforms` (an integer number of periods on
 uniform grid), the :class:`netgen.design.records.SizedDesign` and the netlist text
 (for the ``RLOAD`` value and the ``RLOSS_*`` loss resistors). Output: a plain
 dict (JSON-ready; ``None`` where a value does not exist) with the keys of the
-contract in docs/DESIGN.md plus a few extras (``idc_a``, ``pin_w``,
+contract in docs/metrics.md plus a few extras (``idc_a``, ``pin_w``,
 ``p1_drain_w``, ``loss_balance_error``, ``h2_dbc`` ...).
 
 Conventions (docs/netlist_conventions.md)
@@ -334,7 +334,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     Returns
     -------
     dict
-        See docs/DESIGN.md "metrics.json". Powers in W, voltages in V,
+        See docs/metrics.md. Powers in W, voltages in V,
         currents in A, angles in degrees, efficiencies as fractions.
 
     Raises

@@ -12,6 +12,7 @@ grey), units in every axis label.
 from __future__ import annotations
 
 import io
+import math
 from pathlib import Path
 
 import matplotlib
@@ -29,8 +30,9 @@ __all__ = [
     "plot_harmonics",
     "plot_network_impedance",
     "plot_smith",
-    "plot_convergence",
+    "plot_settling",
     "plot_all",
+    "reactance_label",
 ]
 
 #: Our palette: one colour per quantity in every figure.
@@ -255,9 +257,7 @@ def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
             for sign in (1, -1):
                 g = _gamma(np.concatenate([[0.0], rr]) + 1j * sign * x)
                 ax.plot(g.real, g.imag, color="#c9c9c9", lw=0.8)
-                ge = _gamma(1j * sign * x)
-                ax.annotate(f"{sign * x:+g}j", (ge.real, ge.imag), xytext=(4 * ge.real, 4 * ge.imag),
-                            textcoords="offset points", fontsize=7, color="#888888", ha="center", va="center")
+                _reactance_label(ax, sign * x)
         ax.plot([-1, 1], [0, 0], color="#c9c9c9", lw=0.8)
         colors = plt.get_cmap("viridis")
         rows = [r for r in metrics["harmonics"] if r["z_re_ohm"] is not None]
@@ -271,17 +271,34 @@ def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
             ax.annotate(", ".join(names), (gx, gy), xytext=(7, 7), textcoords="offset points", fontsize=9,
                         fontweight="bold", zorder=4, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
         ax.set_aspect("equal")
-        ax.set_xlim(-1.15, 1.15)
-        ax.set_ylim(-1.15, 1.15)
+        ax.set_xlim(-1.22, 1.22)
+        ax.set_ylim(-1.22, 1.22)
         ax.axis("off")
-        ax.set_title(_title(metrics, "Harmonic impedances at the drain"), loc="left")
-        ax.text(-1.12, -1.12, f"reference {ref_name} = {z_ref_ohm:.4g} ohm; left end short, right end open;"
-                "\nharmonics with negligible current are not shown", fontsize=8, color="#555555")
-        fig.tight_layout()
+        # the design on a second line, so a long name is never cut off at the figure's edge
+        ax.set_title(_title(metrics, "Harmonic impedances at the drain").replace(" - ", "\n", 1), loc="left")
+        # the footnote sits below the chart, clear of the circle and its labels
+        fig.tight_layout(rect=(0.0, 0.07, 1.0, 1.0))
+        fig.text(0.03, 0.02, f"reference {ref_name} = {z_ref_ohm:.4g} ohm; left end short, right end open;"
+                 "\nharmonics with negligible current are not shown", fontsize=8, color="#555555", va="bottom")
         return _save(fig, path)
 
 
-def plot_convergence(path, history: dict, *, settled: bool = True, metrics: dict | None = None,
+def reactance_label(x_norm: float) -> str:
+    """Normalised reactance as the trade writes it on a Smith chart: ``+j0.5``, ``-j2``."""
+    return f"{'-' if x_norm < 0 else '+'}j{abs(x_norm):g}"
+
+
+def _reactance_label(ax, x_norm: float) -> None:
+    """Label the reactance circle x_norm where it meets the outer circle, just outside it."""
+    g = _gamma(1j * x_norm)
+    angle = np.angle(g)
+    ux, uy = math.cos(angle), math.sin(angle)
+    ha = "left" if ux > 0.2 else "right" if ux < -0.2 else "center"
+    va = "bottom" if uy > 0.2 else "top" if uy < -0.2 else "center"
+    ax.annotate(reactance_label(x_norm), (1.03 * ux, 1.03 * uy), fontsize=7.5, color="#777777", ha=ha, va=va)
+
+
+def plot_settling(path, history: dict, *, settled: bool = True, metrics: dict | None = None,
                      tol: float | None = None, start: dict | None = None, window: int = 6) -> Path:
     """DC power and load power per simulated cycle, for judging settling.
 
@@ -334,7 +351,7 @@ def plot_all(outdir, sized, wf, metrics: dict, z_f_hz=None, z_ohm=None) -> dict[
     if z_f_hz is not None and z_ohm is not None and len(z_f_hz):
         out["impedance"] = plot_network_impedance(outdir / "impedance.png", z_f_hz, z_ohm, d.f0_hz, metrics)
     if wf.history and any(len(v) for v in wf.history.values()):
-        out["convergence"] = plot_convergence(outdir / "convergence.png", wf.history,
+        out["settling"] = plot_settling(outdir / "settling.png", wf.history,
                                               settled=wf.settled, metrics=metrics, tol=d.sim.settle_tol,
                                               start=getattr(wf, "start", None), window=d.sim.average_periods)
     return out

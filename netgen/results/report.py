@@ -21,43 +21,39 @@ import numpy as np
 from netgen.design import format_quantity
 from netgen.fileio import atomic_write_text
 
+from .cautions import CAUTION_SHORT, caution_texts
+
 __all__ = ["write_report", "format_table", "write_waveforms_csv", "write_metrics_json", "clean_for_json"]
 
-CAUTIONS = (
-    "Supply and peak drain voltages can be several times Vdd (class E about 3.6 Vdd, inverse class F "
-    "about 3.1 Vdd); check device ratings and keep clear of live circuits.",
-    "RF power causes deep burns on contact and RF exposure near antennas and open lines; never touch "
-    "an energised output, and keep exposure within the limits that apply to you.",
-    "Harmonic and spurious emissions are limited by regulation; a simulated harmonic level is not "
-    "compliance evidence. Measure the built amplifier with filters and a calibrated set-up.",
-    "Idealised models (switch, ideal lines) leave out parasitics, thermal effects and device limits; "
-    "follow local codes and licensed practice before building or transmitting.",
-)
-
 _CSS = """
-body{font-family:Helvetica,Arial,sans-serif;margin:0;background:#f4f5f2;color:#1f2328}
-main{max-width:1100px;margin:0 auto;padding:18px 26px 40px;background:#fff}
-h1{font-size:24px;margin:8px 0 2px;color:#14394f}
-h2{font-size:17px;margin:28px 0 8px;padding-bottom:3px;border-bottom:2px solid #1d5f8a;color:#14394f}
-.sub{color:#5c636a;margin:0 0 14px}
-.banner{background:#b3261e;color:#fff;font-weight:bold;font-size:20px;padding:14px 18px;margin:10px 0;border-radius:4px}
-.warn{background:#fff4e0;border-left:4px solid #c77700;padding:8px 12px}
+body{font-family:Helvetica,Arial,sans-serif;margin:0;background:#e9e4da;color:#2b2620}
+main{max-width:1100px;margin:0 auto;padding:18px 26px 40px;background:#fffcf6}
+h1{font-size:24px;margin:8px 0 2px;color:#123f3c}
+h2{font-size:17px;margin:28px 0 8px;padding-bottom:3px;border-bottom:2px solid #b5652b;color:#123f3c}
+.sub{color:#6e6457;margin:0 0 14px}
+.banner{background:#9c2218;color:#fff;font-weight:bold;font-size:20px;padding:14px 18px;margin:10px 0;border-radius:4px}
+.warn{background:#fbf0da;border-left:4px solid #b7780a;padding:8px 12px}
 .banner small{display:block;font-weight:normal;font-size:14px;margin-top:4px}
-.ok{background:#e6f2e4;color:#24571f;padding:6px 12px;border-radius:4px;display:inline-block}
-.cards{display:flex;flex-wrap:wrap;gap:10px}
-.card{border:1px solid #d6dadf;border-radius:5px;padding:8px 14px;min-width:140px}
-.card b{display:block;font-size:20px;color:#1d5f8a}
-.card span{font-size:12px;color:#5c636a}
+.ok{background:#e2efe7;color:#1d5a40;padding:6px 12px;border-radius:4px;display:inline-block}
+.summary{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
+.cards{display:flex;flex-wrap:wrap;gap:10px;flex:1 1 600px}
+.card{border:1px solid #dcd3c3;border-radius:5px;padding:8px 14px;min-width:140px;background:#fffefb}
+.card b{display:block;font-size:20px;color:#123f3c}
+.card span{font-size:12px;color:#6e6457}
+.card em.target{display:block;font-size:12px;font-style:normal;color:#8a4a1c;margin-top:2px}
+.caution-short{flex:0 1 260px;background:#fcecdc;border-left:5px solid #c2561c;padding:8px 12px;font-size:13px}
+.caution-short b{display:block;color:#8f3a10;margin-bottom:2px}
 table{border-collapse:collapse;font-size:13px;margin:6px 0}
-th,td{border:1px solid #d6dadf;padding:3px 8px;text-align:right;vertical-align:top}
-th{background:#eef2f5}
+th,td{border:1px solid #dcd3c3;padding:3px 8px;text-align:right;vertical-align:top}
+th{background:#f1eadd}
 td.l,th.l{text-align:left}
 figure{margin:12px 0;display:inline-block;max-width:100%}
-figure img{max-width:100%;border:1px solid #d6dadf}
-figcaption{font-size:12px;color:#5c636a}
-.caution{background:#fff6df;border-left:5px solid #d08a00;padding:8px 14px}
+figure img{max-width:100%;border:1px solid #dcd3c3}
+figcaption{font-size:12px;color:#6e6457}
+.caution{background:#fcecdc;border-left:5px solid #c2561c;padding:8px 14px}
 .caution li{margin:4px 0}
-pre{background:#f6f8fa;border:1px solid #d6dadf;padding:8px;font-size:12px;overflow:auto}
+a{color:#1d6a63}
+pre{background:#f6f1e8;border:1px solid #dcd3c3;padding:8px;font-size:12px;overflow:auto}
 """
 
 _PLOT_CAPTIONS = {
@@ -67,7 +63,7 @@ _PLOT_CAPTIONS = {
     "impedance": "Impedance of the output network seen from the drain (network analysis) with the "
                  "harmonic impedances measured in the transient.",
     "smith": "Harmonic impedances presented to the device (Smith chart).",
-    "convergence": "DC and load power per simulated cycle (settling).",
+    "settling": "Settling: DC and load power per simulated cycle.",
 }
 
 
@@ -216,7 +212,7 @@ def write_waveforms_csv(path, wf, periods: int = 2) -> Path:
     cols += [(f"v_{k}_v", np.asarray(v, float)[sl]) for k, v in wf.v.items()]
     cols += [(f"i_{k}_a", np.asarray(v, float)[sl]) for k, v in wf.i.items()]
     buf = io.StringIO()
-    buf.write(f"# netgen waveforms; f0_hz={wf.f0_hz:.12g}; settled={'true' if wf.settled else 'false (NOT SETTLED)'}; "
+    buf.write(f"# pashape waveforms; f0_hz={wf.f0_hz:.12g}; settled={'true' if wf.settled else 'false (NOT SETTLED)'}; "
               f"cycles={wf.cycles}\n")
     buf.write(",".join(name for name, _ in cols) + "\n")
     np.savetxt(buf, np.column_stack([c for _, c in cols]), delimiter=",", fmt="%.9g")
@@ -259,6 +255,45 @@ def _design_rows(design) -> list[tuple[str, str]]:
     return rows
 
 
+def target_deviation(achieved, target) -> float | None:
+    """(achieved - target)/target, or None when either is missing or the target is not positive."""
+    try:
+        a, g = float(achieved), float(target)
+    except (TypeError, ValueError):
+        return None
+    return (a - g) / g if math.isfinite(a) and math.isfinite(g) and g > 0 else None
+
+
+def _target_row(achieved, target) -> str:
+    dev = target_deviation(achieved, target)
+    if target is None:
+        return "none (sized from design.ropt)"
+    return f"{_num(target)} (achieved {_num(achieved)}, {_num(None if dev is None else 100 * dev, '{:+.0f}')} %)"
+
+
+def _summary(metrics: dict, design) -> str:
+    """The cards of the headline numbers, the Pout target beside what was achieved, and a short caution."""
+    bound = metrics.get("bound") or {}
+    pout = metrics.get("pout_w")
+    dev = target_deviation(pout, design.pout_w)
+    target = ("" if design.pout_w is None else
+              f"target {_si(design.pout_w, 'W')}, achieved {_si(pout, 'W')}, "
+              f"{_num(None if dev is None else 100 * dev, '{:+.0f}')} %")
+    cards = [
+        ("output power (fundamental)", _si(pout, "W"), target),
+        ("drain efficiency", _pct(metrics.get("drain_efficiency")) + " %", ""),
+        ("ideal bound", _pct(bound.get("efficiency")) + " %", ""),
+        ("PAE", _pct(metrics.get("pae")) + (" %" if metrics.get("pae") is not None else ""), ""),
+        ("DC power", _si(metrics.get("pdc_w"), "W"), ""),
+        ("peak drain voltage", f"{_si(metrics.get('peak_vd_v'), 'V')} ({_num(metrics.get('peak_vd_over_vdd'), '{:.2f}')} Vdd)", ""),
+    ]
+    html_cards = "".join(f"<div class=card><b>{_e(v)}</b><span>{_e(k)}</span>"
+                         + (f"<em class=target>{_e(extra)}</em>" if extra else "") + "</div>" for k, v, extra in cards)
+    return (f"<div class=summary><div class=cards>{html_cards}</div>"
+            f"<aside class=caution-short id=caution-short><b>Caution</b>{_e(CAUTION_SHORT)} "
+            f"<a href=\"#cautions\">All cautions</a> are at the end.</aside></div>")
+
+
 def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: str) -> Path:
     """Write ``outdir/report.html`` and return its path.
 
@@ -279,7 +314,7 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
     design = sized.design
     settled = bool(metrics.get("settled", False))
     bound = metrics.get("bound") or {}
-    parts = [f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{_e(d.get('name', 'netgen'))} - netgen report"
+    parts = [f"<!DOCTYPE html><html lang=en><head><meta charset=utf-8><title>{_e(d.get('name', 'design'))} - pashape report"
              f"</title><style>{_CSS}</style></head><body><main>"]
     parts.append(f"<h1>{_e(d.get('name', design.name))}</h1><p class=sub>{_e(design.topology)} &middot; "
                  f"f0 {_e(_si(design.f0_hz, 'Hz'))} &middot; Vdd {_e(_si(design.vdd_v, 'V'))} &middot; "
@@ -299,20 +334,13 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
     for text in metrics.get("warnings") or ():
         parts.append(f"<p class=warn>Note: {_e(text)}.</p>")
 
-    cards = [
-        ("output power (fundamental)", _si(metrics.get("pout_w"), "W")),
-        ("drain efficiency", _pct(metrics.get("drain_efficiency")) + " %"),
-        ("ideal bound", _pct(bound.get("efficiency")) + " %"),
-        ("PAE", _pct(metrics.get("pae")) + (" %" if metrics.get("pae") is not None else "")),
-        ("DC power", _si(metrics.get("pdc_w"), "W")),
-        ("peak drain voltage", f"{_si(metrics.get('peak_vd_v'), 'V')} ({_num(metrics.get('peak_vd_over_vdd'), '{:.2f}')} Vdd)"),
-    ]
-    parts.append("<div class=cards>" + "".join(f"<div class=card><b>{_e(v)}</b><span>{_e(k)}</span></div>" for k, v in cards) + "</div>")
+    parts.append(_summary(metrics, design))
 
     parts.append("<h2>Metrics</h2>")
     rows = [
         ("DC power Pdc (W)", _num(metrics.get("pdc_w"))), ("DC current (A)", _num(metrics.get("idc_a"))),
         ("fundamental load power Pout (W)", _num(metrics.get("pout_w"))),
+        ("Pout target, design.pout (W)", _target_row(metrics.get("pout_w"), design.pout_w)),
         ("total load power (W)", _num(metrics.get("pload_total_w"))),
         ("fundamental power leaving the drain (W)", _num(metrics.get("p1_drain_w"))),
         ("drive power Pin (W)", _num(metrics.get("pin_w"))),
@@ -369,7 +397,8 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                      f"<td class=l></td><td class=l>{_e(how)}</td></tr>")
     parts.append("</table>")
 
-    parts.append("<h2>Cautions</h2><div class=caution><ul>" + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+    parts.append("<h2 id=cautions>Cautions</h2><div class=caution><ul>"
+                 + "".join(f"<li>{_e(c)}</li>" for c in caution_texts(metrics.get("peak_vd_over_vdd"))) + "</ul></div>")
     parts.append(f"<h2>Netlist</h2><details><summary>show the simulated netlist</summary><pre>{_e(netlist_text)}</pre></details>")
     parts.append("</main></body></html>\n")
     return atomic_write_text(outdir / "report.html", "\n".join(parts))

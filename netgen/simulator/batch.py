@@ -53,7 +53,7 @@ class _BatchSession:
             raise SimulatorNotFoundError(
                 "The ngspice executable was not found on PATH.",
                 hint=f"install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} to its path")
-        self.dir = tempfile.TemporaryDirectory(prefix="netgen-ng-")
+        self.dir = tempfile.TemporaryDirectory(prefix="pashape-ng-")
         self.deadline = _time.monotonic() + timeout_s
         self.timeout_s = timeout_s
         # -n: no .spiceinit from the working or home folder; the working folder and HOME are a
@@ -108,7 +108,7 @@ class _BatchSession:
         code = self.proc.wait(timeout=5)
         return SimulationError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
                                log="\n".join(self.log[-200:]),
-                               hint="see ngspice's messages in the log; run 'netgen doctor'")
+                               hint="see ngspice's messages in the log; run 'pashape doctor'")
 
     def close(self, kill: bool = False):
         if self.proc.poll() is None and not kill:

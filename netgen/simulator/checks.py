@@ -29,7 +29,7 @@ def check_netlist(netlist: str, *, allow_shell: bool = False, base_dir: str | Pa
     """Refuse a netlist that could make ngspice run a command or read a file it should not.
 
     The rules are :func:`netgen.netlist.check_netlist_text`'s (docs/reliability.md): no control
-    block or ``*#`` line at all (netgen sends every simulator command itself), no backquote,
+    block or ``*#`` line at all (pashape sends every simulator command itself), no backquote,
     only known dot cards; included files named by absolute paths, regular and non-empty,
     holding only ``.model`` / ``.subckt`` / ``.ends`` / ``.param`` and element cards (no
     nested include). With ``base_dir``, included files must lie inside that folder after
@@ -135,7 +135,7 @@ def diagnose(log: str) -> tuple[str, str]:
             hint = text
             break
     if error and not hint:
-        hint = "see ngspice's messages in the log; run 'netgen doctor' if the installation is in doubt"
+        hint = "see ngspice's messages in the log; run 'pashape doctor' if the installation is in doubt"
     return error, hint
 
 

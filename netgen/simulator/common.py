@@ -20,7 +20,9 @@ __all__ = ["MAX_COMMAND_CHARS", "EXECUTABLE_ENV", "LIBRARY_ENV", "SENTINEL", "ca
 #: ngspice's shared API rejects longer command lines (PySpice enforces the same limit).
 MAX_COMMAND_CHARS = 1023
 #: Environment variable naming the ngspice executable when it is not on PATH.
-EXECUTABLE_ENV = "NETGEN_NGSPICE"
+EXECUTABLE_ENV = "PASHAPE_NGSPICE"
+#: The same variable under the name before the command was renamed (still read).
+OLD_EXECUTABLE_ENV = "NETGEN_NGSPICE"
 #: PySpice's own variable for a non-standard libngspice (a path or a pattern with '{}').
 LIBRARY_ENV = "NGSPICE_LIBRARY_PATH"
 
@@ -114,7 +116,7 @@ def next_stop(t_next: float, t_end: float, chunk: float, action: Resume | None) 
 
 
 def executable_path() -> str | None:
-    env = os.environ.get(EXECUTABLE_ENV)
+    env = os.environ.get(EXECUTABLE_ENV) or os.environ.get(OLD_EXECUTABLE_ENV)
     if env:
         return env if Path(env).exists() else shutil.which(env)
     return shutil.which("ngspice")

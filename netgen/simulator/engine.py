@@ -156,7 +156,7 @@ def run_op(netlist: str, *, backend: str = "shared", timeout_s: float = 60.0,
 
 # ---------------------------------------------------------------- doctor (engine.find_ngspice / doctor_report)
 
-_TRIVIAL = """netgen doctor check
+_TRIVIAL = """pashape doctor check
 V1 in 0 DC 10
 R1 in out 1k
 R2 out 0 1k
@@ -195,7 +195,7 @@ def doctor_report(timeout_s: float = 60.0) -> dict:
         ``executable``, ``version``, ``library`` (paths or None), ``shared_ok``,
         ``batch_ok`` (bool), ``shared_error`` / ``batch_error`` (text or None),
         ``fixes`` (list of sentences; empty when all is well), ``checks`` (one dict
-        per path: ``what``, ``ok``, ``detail``, ``fix``; what ``netgen doctor`` prints).
+        per path: ``what``, ``ok``, ``detail``, ``fix``; what ``pashape doctor`` prints).
     """
     report = find_ngspice()
     fixes: list[str] = []

@@ -339,7 +339,7 @@ class _Worker:
             code = None
         return SimulationError(
             f"The ngspice worker process died during the run (exit code {code}); ngspice crashed or was killed.",
-            hint="run 'netgen doctor'; try sim.backend = \"batch\" to use the ngspice executable instead")
+            hint="run 'pashape doctor'; try sim.backend = \"batch\" to use the ngspice executable instead")
 
 
 _WORKER: _Worker | None = None

@@ -166,7 +166,7 @@ def run_sweep(
         ``cluster``. With 1 the points run one after another in this process.
     cluster : str, optional
         Address of a Dask distributed scheduler (``tcp://host:port``); the
-        workers there must have netgen installed.
+        workers there must have pashape installed.
     evaluator : callable(Design) -> metrics, optional
         Module-level function (it is pickled); default :func:`netgen.pipeline.evaluate`.
     wave_dir : path, optional

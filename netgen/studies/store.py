@@ -149,7 +149,7 @@ class SweepStore:
             have = {r[1] for r in self.con.execute(f"PRAGMA table_info({table})")}
             missing = [c for c in wanted if c not in have]
             if missing:
-                raise OutputError(f"{self.path}: is not a netgen sweep store (table '{table}' has no column "
+                raise OutputError(f"{self.path}: is not a pashape sweep store (table '{table}' has no column "
                                   f"'{missing[0]}'); choose another output folder or remove the file.")
 
     def _corrupt(self, what: str) -> OutputError:
@@ -207,7 +207,7 @@ class SweepStore:
         row = (self.con.execute(q + " ORDER BY id").fetchone() if sweep_id is None
                else self.con.execute(q + " WHERE id = ?", (sweep_id,)).fetchone())
         if row is None:
-            raise OutputError(f"{self.path}: holds no sweep; run 'netgen sweep' with -o pointing here first.")
+            raise OutputError(f"{self.path}: holds no sweep; run 'pashape sweep' with -o pointing here first.")
         keys = ("id", "design_digest", "design_toml", "spec", "seed", "n_points", "created")
         out = dict(zip(keys, row))
         try:

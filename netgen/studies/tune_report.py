@@ -55,7 +55,7 @@ def tuned_toml(source_text: str, result: TuneResult) -> str:
         section, key, *rest = path.split(".")
         text = f"{x:.6g} {f.unit}".strip() if f.unit else float(f"{x:.6g}")
         item = tomlkit.string(text) if isinstance(text, str) else tomlkit.item(text)
-        how = (f"tuned by netgen tune from {_fmt_si(x0, f.unit)} within {_fmt_si(f.lo, f.unit)}..{_fmt_si(f.hi, f.unit)} "
+        how = (f"tuned by pashape tune from {_fmt_si(x0, f.unit)} within {_fmt_si(f.lo, f.unit)}..{_fmt_si(f.hi, f.unit)} "
                f"toward {', '.join(sorted({g.text for g in result.problem.goals}))}")
         item.comment(how)
         if rest:

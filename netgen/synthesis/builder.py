@@ -36,7 +36,8 @@ CLASS_SOURCE = {
 #: Class-E constants (Sokal & Sokal, IEEE JSSC 1975; Raab, IEEE Trans. CAS 1977)
 E_SHUNT_K = 0.1836
 E_EXCESS_K = 1.1525
-#: feed reactance = FEED_X_RATIO * Ropt, block reactance = Ropt / FEED_X_RATIO (NGSPICE_NOTES)
+#: feed reactance = FEED_X_RATIO * Ropt, block reactance = Ropt / FEED_X_RATIO
+#: (a measured choice: settles fast without detuning; docs/simulator_notes.md, "Bias network")
 FEED_X_RATIO = 60.0
 #: class E: the feed choke's reactance in units of R (Sokal's equations assume an RF choke)
 E_FEED_X_RATIO = 300.0
@@ -99,12 +100,13 @@ class Builder:
         self.add(f"{base}_td", "TD", 1.0 / (4.0 * self.design.f0_hz), "quarter wave at f0: TD = 1/(4 f0) (Pozar)", role)
 
     def feed(self, r_ohm: float, name: str = "feed_l", ratio: float = FEED_X_RATIO) -> None:
-        """DC-feed choke: reactance ``ratio`` x R at f0 (default 60, NGSPICE_NOTES), or network.feed_l."""
+        """DC-feed choke: reactance ``ratio`` x R at f0 (default 60, measured: docs/simulator_notes.md), or network.feed_l."""
         net = self.design.network
         if net.feed_l_h is not None:
             self.add(name, "L", net.feed_l_h, "set by network.feed_l", "feed", lossy=False)
         else:
-            self.inductor_x(name, ratio * r_ohm, f"{ratio:g} x {r_ohm:.6g} ohm (common practice: RF choke)", "feed", lossy=False)
+            why = "measured ratio, docs/simulator_notes.md" if ratio == FEED_X_RATIO else "class E, docs/topologies.md"
+            self.inductor_x(name, ratio * r_ohm, f"{ratio:g} x {r_ohm:.6g} ohm (RF choke; {why})", "feed", lossy=False)
 
     def block(self, r_ohm: float, name: str = "block_c") -> None:
         """DC block (or RF bypass): reactance R/60 at f0, or network.block_c."""
@@ -112,7 +114,7 @@ class Builder:
         if net.block_c_f is not None:
             self.add(name, "C", net.block_c_f, "set by network.block_c", "block")
         else:
-            self.capacitor_x(name, r_ohm / FEED_X_RATIO, f"{r_ohm:.6g} ohm / {FEED_X_RATIO:g} (common practice: RF short)", "block")
+            self.capacitor_x(name, r_ohm / FEED_X_RATIO, f"{r_ohm:.6g} ohm / {FEED_X_RATIO:g} (RF short; measured ratio, docs/simulator_notes.md)", "block")
 
 
 def ropt_from_power(design: Design, cls: str) -> tuple[float, float, str]:

@@ -323,7 +323,7 @@ def sized_toml_text(sized: SizedDesign) -> str:
 
     raw = sized.design.raw or {}
     doc = tomlkit.document()
-    doc.add(tomlkit.comment(f"Sized design '{sized.design.name}' written by netgen; edit and load again."))
+    doc.add(tomlkit.comment(f"Sized design '{sized.design.name}' written by pashape; edit and load again."))
     doc.add(tomlkit.comment("[network.values] holds every component; each overrides sizing when loaded."))
     for section, table in raw.items():
         if not isinstance(table, dict):

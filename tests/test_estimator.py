@@ -7,7 +7,7 @@ What is checked, and against what:
 * a switched first-order RC against its closed-form periodic solution (exponential charge and
   discharge, any circuits textbook);
 * class F, class E and tuned class B estimates against Fourier series, Sokal's and Raab's values
-  (REFERENCES.md) -- without running ngspice;
+  (docs/check_values.md) -- without running ngspice;
 * the state written back into a netlist: ngspice started on it stays on the periodic orbit
   from the first cycle (a linear line circuit), and agrees with long cold ngspice runs;
 * what the estimate does not model is said in one sentence, and the simulation falls back.
@@ -23,7 +23,7 @@ import pytest
 
 from netgen.periodic import initial_state
 from netgen.netlist import cards as netlist_cards
-from netgen.periodic import estimator as pss
+from netgen.periodic import estimator
 from netgen.periodic.pwl_fourier import fourier_pwl
 from netgen.design.schema import design_from_dict, load_design
 from netgen.netlist.renderer import render
@@ -36,7 +36,7 @@ PI = math.pi
 
 def _estimate(sized):
     d = sized.design
-    return pss.estimate(render(sized, mode="tran"), d.f0_hz, d.sim.points_per_cycle)
+    return estimator.estimate(render(sized, mode="tran"), d.f0_hz, d.sim.points_per_cycle)
 
 
 def _harmonic(state, node, n):
@@ -58,7 +58,7 @@ def test_port_impedance_matches_scikit_rf(topology):
     raw = dict(d.raw)
     raw["device"] = {**raw.get("device", {}), "cout": "0 F"}
     sized = size(design_from_dict(raw, source=d.source))
-    state = pss.estimate(render(sized, mode="tran"), sized.design.f0_hz, 16384, cap=False)
+    state = estimator.estimate(render(sized, mode="tran"), sized.design.f0_hz, 16384, cap=False)
     f = np.arange(1, 6) * sized.design.f0_hz
     z_sk = SkrfModel(sized, f).build()
     np.testing.assert_allclose(state.z_port[1:6], z_sk, rtol=1e-3)
@@ -94,7 +94,7 @@ def test_switched_rc_matches_the_closed_form():
     # Va = vdd + (v_on + (Va - v_on) a_on - vdd) a_off  ->  linear in Va
     va = (vdd + (v_on * (1 - a_on) - vdd) * a_off) / (1 - a_on * a_off)
     vb = v_on + (va - v_on) * a_on
-    state = pss.estimate(_switched_rc(), 1e6, 2000)
+    state = estimator.estimate(_switched_rc(), 1e6, 2000)
     h = period / state.points
     # the grid puts the switching instants half-way between samples: compare the samples half a
     # step before each switching instant with the closed form there
@@ -112,7 +112,7 @@ def test_switched_rc_matches_the_closed_form():
 
 def test_class_f_estimate_is_a_square_voltage_with_half_sine_current():
     # Raab 1997 / Cripps: square voltage, half-sine current, efficiency -> 100 % for an ideal
-    # switch. Fourier series of a square wave swinging 0..2 Vdd (REFERENCES.md):
+    # switch. Fourier series of a square wave swinging 0..2 Vdd (docs/check_values.md):
     # V1 = (4/pi) Vdd, V3 = V1/3, even harmonics ~0.
     sized = size(design_from_dict({
         "design": {"name": "est_f", "topology": "class_f_line", "f0": "1 GHz", "vdd": "10 V",
@@ -130,7 +130,7 @@ def test_class_f_estimate_is_a_square_voltage_with_half_sine_current():
     vl = state.series["load"]
     p1 = (2 * abs(np.fft.rfft(vl)[1]) / len(vl)) ** 2 / (2 * 50.0)
     assert p1 / pdc >= 0.95
-    # half-sine current pulse train: Idc = Imax/pi, I1 = Imax/2 (REFERENCES.md), within 3 %
+    # half-sine current pulse train: Idc = Imax/pi, I1 = Imax/2 (Fourier series, docs/check_values.md), within 3 %
     i_d = state.series["vidrain#branch"]
     imax = float(np.max(i_d))
     assert _harmonic(state, "vidrain#branch", 0) == pytest.approx(imax / PI, rel=0.03)
@@ -138,8 +138,8 @@ def test_class_f_estimate_is_a_square_voltage_with_half_sine_current():
 
 
 def test_class_e_estimate_at_sokal_values():
-    # Sokal & Sokal 1975 (REFERENCES.md): peak switch voltage 3.562 Vdd at high Q; 3.579 at a
-    # loaded Q of 100 (computed there from the class-E conditions); zero-voltage turn-on.
+    # Sokal & Sokal 1975 (docs/check_values.md): peak switch voltage 3.562 Vdd at high Q; 3.579 at a
+    # loaded Q of 100 (recalled from memory, Raab 1977); zero-voltage turn-on.
     sized = size(design_from_dict({
         "design": {"name": "est_e", "topology": "class_e", "f0": "10 MHz", "vdd": "12 V",
                    "pout": "5 W", "load": "50 ohm"},
@@ -201,7 +201,7 @@ def test_a_line_started_on_the_estimate_carries_its_periodic_waves_from_the_firs
     f0 = 1e9
     T = 1 / f0
     net = _line_circuit(f0)
-    state = pss.estimate(net, f0, 1000)
+    state = estimator.estimate(net, f0, 1000)
     started = initial_state.with_initial_state(net, state)
     assert "Vhist_t1_1 a hist_t1_1 PWL(" in started and "IC=" in started
     lumped_only = dataclasses.replace(state, elements={k: v for k, v in state.elements.items() if v[0] != "T"})
@@ -233,7 +233,7 @@ class _Release:
 def test_history_sources_are_retired_after_the_longest_delay_at_a_half_period():
     f0 = 1e9
     T = 1 / f0
-    state = pss.estimate(_line_circuit(f0), f0, 1000)
+    state = estimator.estimate(_line_circuit(f0), f0, 1000)
     t_s, commands = initial_state.history_release(state)
     assert t_s == pytest.approx(T / 2)  # TD = T/7: the first half period after it
     assert len(commands) == 4  # V and I source at each of the two ports
@@ -256,7 +256,7 @@ def test_retiring_the_history_sources_changes_no_result(backend):
     f0 = 1e9
     T = 1 / f0
     net = _line_circuit(f0)
-    state = pss.estimate(net, f0, 1000)
+    state = estimator.estimate(net, f0, 1000)
     started = initial_state.with_initial_state(net, state)
     t_s, commands = initial_state.history_release(state)
     plain = engine.run_transient(started, save=["b"], backend=backend)
@@ -308,7 +308,7 @@ def test_a_subcircuit_device_is_not_estimated(tmp_path):
                    "ropt": "100 ohm"},
         "device": {"model": "spice", "include": str(model), "subckt": "mydev", "pins": ["drain", "gate", "source"]},
     }, source=tmp_path / "d.toml"))
-    with pytest.raises(pss.Unsupported, match="subcircuit"):
+    with pytest.raises(estimator.Unsupported, match="subcircuit"):
         _estimate(sized)
 
 
@@ -316,7 +316,7 @@ def test_a_subcircuit_device_is_not_estimated(tmp_path):
     "__import__('os').system('true')", "v(dsw).real", "open('x')", "v(dsw)[0]", "lambda: 1", "i(vdd)*2",
 ])
 def test_device_expressions_outside_the_safe_set_are_refused(expr):
-    with pytest.raises(pss.Unsupported):
+    with pytest.raises(estimator.Unsupported):
         f, _ = netlist_cards.device_expression(expr, "BDEV")
         f({"dsw": np.zeros(3), "time": np.zeros(3)})
 
