@@ -46,7 +46,7 @@ def test_duplicate_index_is_ignored(store):
     rows = list(store.rows(sid))
     assert len(rows) == 1 and rows[0]["status"] == "failed" and rows[0]["metrics"] is None
     assert store.done_indices(sid) == {1}
-    assert store.count(sid) == {"ok": 0, "not_settled": 0, "failed": 1}
+    assert store.count(sid) == {"ok": 0, "not_settled": 0, "failed": 1, "lost": 0}
 
 
 def test_same_spec_resumes_the_same_sweep(tmp_path):

@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-from netgen.errors import SimulationError, SimulatorNotFoundError
+from netgen.errors import SimulationError, SimulatorCrashError, SimulatorNotFoundError
 
 from .checks import looks_failed, short_run, simulation_failure, tran_stop
 from .common import (
@@ -101,11 +101,11 @@ class _BatchSession:
             out.append(line)
             self.log.append(line)
 
-    def _crashed(self) -> SimulationError:
+    def _crashed(self) -> SimulatorCrashError:
         code = self.proc.wait(timeout=5)
-        return SimulationError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
-                               log="\n".join(self.log[-200:]),
-                               hint="see ngspice's messages in the log; run 'netgen doctor'")
+        return SimulatorCrashError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
+                                   log="\n".join(self.log[-200:]),
+                                   hint="see ngspice's messages in the log; run 'netgen doctor'")
 
     def close(self, kill: bool = False):
         if self.proc.poll() is None and not kill:
@@ -154,6 +154,7 @@ class _BatchSession:
 def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -> dict:
     """Run one analysis (``kind`` = "tran" | "ac" | "op") with the executable; the engine's result dict."""
     sess = _BatchSession(timeout_s)
+    interrupted = False
     try:
         sess.load(netlist, opts.get("save"))
         if kind == "op":
@@ -224,7 +225,10 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
             start = max(int(np.searchsorted(t, t[-1] - keep)) - 1, 0)
             vecs = {k: v[start:] for k, v in vecs.items()}
         return {"vectors": vecs, "log": "\n".join(sess.log), "stopped": stopped, "checker": check}
+    except BaseException:
+        interrupted = True  # an error, Ctrl-C or SIGTERM: end ngspice at once, do not ask it to quit
+        raise
     finally:
-        sess.close()
+        sess.close(kill=interrupted)  # the temporary folder goes in every case
 
 
