@@ -27,7 +27,8 @@ import threading
 import time
 from typing import Callable
 
-__all__ = ["Terminated", "raise_on_sigterm", "watch_parent", "EXIT_SIGTERM", "EXIT_PARENT_GONE"]
+__all__ = ["Terminated", "raise_on_sigterm", "watch_parent", "death_signal_preexec", "EXIT_SIGTERM",
+           "EXIT_PARENT_GONE"]
 
 #: exit status of a process ended by SIGTERM (128 + 15, the shell convention)
 EXIT_SIGTERM = 128 + signal.SIGTERM
@@ -110,3 +111,25 @@ def watch_parent(parent_pid: int, *, kernel_signal: int | None = None, on_death:
         os._exit(EXIT_PARENT_GONE)
 
     threading.Thread(target=watch, name="netgen-parent-watch", daemon=True).start()
+
+
+def death_signal_preexec(sig: int = signal.SIGKILL) -> Callable[[], None] | None:
+    """A ``preexec_fn`` for :class:`subprocess.Popen` that gives the child the parent-death signal.
+
+    For a child that is not Python (the ngspice executable) and so cannot watch for itself.
+    Returns None (start the child without it) off Linux, or when called outside the main
+    thread (the kernel sends the signal when the *thread* that started the child ends). The
+    function only makes one prctl(2) call through a ``ctypes`` function looked up beforehand.
+    """
+    if not sys.platform.startswith("linux") or threading.current_thread() is not threading.main_thread():
+        return None
+    try:
+        prctl = ctypes.CDLL(None, use_errno=True).prctl
+    except (OSError, AttributeError):
+        return None
+    sig = int(sig)
+
+    def preexec() -> None:
+        prctl(_PR_SET_PDEATHSIG, sig, 0, 0, 0)
+
+    return preexec

@@ -83,6 +83,42 @@ def slow_eval(design) -> dict:
     return tuned_b_eval(design)
 
 
+def _first_time(design, what: str) -> bool:
+    """True the first time this point (by Vdd) gets here, across processes (a marker file in
+    $NETGEN_TEST_MARKS), so an evaluator can fail like the machinery does: once."""
+    marks = Path(os.environ["NETGEN_TEST_MARKS"])
+    mark = marks / f"{what}_{design.vdd_v:g}"
+    try:
+        mark.touch(exist_ok=False)
+    except FileExistsError:
+        return False
+    return True
+
+
+def crash_once_eval(design) -> dict:
+    """Kills its worker process the first time at Vdd = 11 V and 13 V (a kill or the OOM killer)."""
+    if design.vdd_v in (11.0, 13.0) and _first_time(design, "crash"):
+        os._exit(9)
+    return tuned_b_eval(design)
+
+
+def simulator_dies_once_eval(design) -> dict:
+    """The simulator process dies once at Vdd = 11 V (what shared.py reports when libngspice's worker dies)."""
+    from netgen.errors import SimulatorCrashError
+
+    if design.vdd_v == 11.0 and _first_time(design, "sim"):
+        raise SimulatorCrashError("The ngspice worker process died during the run (exit code -9).")
+    return tuned_b_eval(design)
+
+
+def simulator_always_dies_eval(design) -> dict:
+    from netgen.errors import SimulatorCrashError
+
+    if design.vdd_v == 11.0:
+        raise SimulatorCrashError("The ngspice worker process died during the run (exit code -11).")
+    return tuned_b_eval(design)
+
+
 # ---------------------------------------------------------------- grammar
 
 def test_vary_linear_matches_numpy_linspace():
@@ -286,6 +322,52 @@ def test_worker_crash_is_isolated(tmp_path):
     assert rows[2]["error"].startswith("WorkerCrash")
 
 
+def test_a_worker_killed_once_costs_no_point(tmp_path, monkeypatch):
+    # a worker process killed from outside is the machine's fault: the points re-run, none is failed
+    monkeypatch.setenv("NETGEN_TEST_MARKS", str(tmp_path))
+    plan, counts, rows = _run(tmp_path, crash_once_eval, vary=["design.vdd=10V,11V,12V,13V,14V"])
+    assert [r["status"] for r in rows] == ["ok"] * 5
+    assert (tmp_path / "crash_11").exists() and (tmp_path / "crash_13").exists()  # the crashes did happen
+    assert counts["failed"] == 0 and counts["lost_left"] == 0
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_a_simulator_that_dies_once_is_tried_again(tmp_path, monkeypatch, workers):
+    monkeypatch.setenv("NETGEN_TEST_MARKS", str(tmp_path))
+    plan, counts, rows = _run(tmp_path, simulator_dies_once_eval, workers=workers, vary=["design.vdd=10V,11V,12V"])
+    assert [r["status"] for r in rows] == ["ok"] * 3
+    assert [r["attempts"] for r in rows] == [1, 2, 1]
+    assert (counts["lost"], counts["retried"], counts["failed"]) == (1, 1, 0)
+
+
+def test_a_simulator_that_dies_every_time_fails_the_point(tmp_path):
+    plan, counts, rows = _run(tmp_path, simulator_always_dies_eval, workers=1, vary=["design.vdd=10V,11V"])
+    assert [r["status"] for r in rows] == ["ok", "failed"]
+    assert rows[1]["attempts"] == 3
+    assert rows[1]["error"].startswith("SimulatorCrash: The ngspice worker process died")
+    assert "in each of 3 attempts at this point alone, so the crash is taken as the design's" in rows[1]["error"]
+
+
+def test_lost_points_run_again_on_resume_up_to_the_attempts(tmp_path):
+    plan = make_plan(BASE, vary=["design.vdd=10V:13V:4"])
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)
+        st.record(sid, 1, plan.point(1), "lost", None, "SchedulerLost: x", 0.0)
+        st.record(sid, 2, plan.point(2), "lost", None, "TaskLost: y", 0.0)
+        st.record(sid, 2, plan.point(2), "lost", None, "TaskLost: y", 0.0)  # 2 attempts
+        counts = run_sweep(plan, st, sid, workers=1, evaluator=tuned_b_eval, attempts=2)
+        rows = list(st.rows(sid))
+        assert [r["status"] for r in rows] == ["ok", "ok", "lost", "ok"]
+        assert counts["ran"] == 3 and counts["lost_left"] == 1
+        s = summarize(rows, [parse_spec("drain_efficiency>=0.7")], plan.n_points)
+        # the lost point is missing, not failing: the yield is over the 3 points with a result
+        assert (s["results"], s["missing"], s["lost"], s["passed"], s["yield"]) == (3, 1, 1, 3, 1.0)
+        counts = run_sweep(plan, st, sid, workers=1, evaluator=tuned_b_eval, attempts=3)  # a higher limit
+        rows = list(st.rows(sid))
+    assert [r["status"] for r in rows] == ["ok"] * 4 and rows[2]["attempts"] == 3
+    assert counts["ran"] == 1
+
+
 def test_not_settled_status_and_summary(tmp_path):
     plan, counts, rows = _run(tmp_path, tuned_b_eval, workers=1, vary=["design.vdd=20V,30V"])
     assert [r["status"] for r in rows] == ["ok", "not_settled"]
@@ -387,8 +469,8 @@ def _design_file(tmp_path, extra: str = "") -> Path:
     return p
 
 
-def _cli(args, **kw):
-    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+def _cli(args, env_extra: dict | None = None, **kw):
+    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""), **(env_extra or {}))
     return subprocess.Popen([sys.executable, "-m", "netgen.cli", "sweep", *args], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, **kw)
 
@@ -429,6 +511,107 @@ def test_kill_and_resume(tmp_path):
     _, stderr = proc.communicate()
     assert proc.returncode == 2
     assert "holds a sweep with different variations" in stderr
+
+
+def _family(pid: int) -> list:
+    """The process ``pid`` and all its descendants now (psutil, a dependency of distributed)."""
+    import psutil
+
+    proc = psutil.Process(pid)
+    return [proc, *proc.children(recursive=True)]
+
+
+def _alive(procs) -> list:
+    import psutil
+
+    out = []
+    for p in procs:
+        try:
+            if p.is_running() and p.status() != psutil.STATUS_ZOMBIE:  # is_running also checks the start time
+                out.append(p)
+        except psutil.NoSuchProcess:
+            pass
+    return out
+
+
+def _wait_gone(procs, tries: int = 600) -> list:
+    """Wait (at most ``tries`` x 0.05 s) for the processes to end; the ones still alive."""
+    for _ in range(tries):
+        left = _alive(procs)
+        if not left:
+            return []
+        time.sleep(0.05)
+    return left
+
+
+def _end(procs) -> None:
+    """Kill by PID whatever a failed test would otherwise leave running."""
+    for p in _alive(procs):
+        try:
+            p.kill()
+        except Exception:
+            pass
+
+
+def _wait_rows(db: Path, proc, at_least: int, tries: int = 2400) -> int:
+    """Wait (bounded) until the store holds ``at_least`` rows while ``proc`` runs; the row count."""
+    n = 0
+    for _ in range(tries):
+        if proc.poll() is not None:
+            break
+        if db.exists():
+            try:
+                with sqlite3.connect(db) as con:
+                    n = con.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+            except sqlite3.OperationalError:
+                n = 0
+            if n >= at_least:
+                break
+        time.sleep(0.05)
+    return n
+
+
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
+def test_signal_to_the_sweep_alone_leaves_nothing_behind_and_resumes(tmp_path, sig):
+    # SIGTERM is what timeout(1), CI cancellation and cluster managers send; SIGKILL cannot be caught.
+    # Only the sweep's own process gets the signal (by PID): its pool workers must end by themselves.
+    design = _design_file(tmp_path)
+    out, tmp = tmp_path / "out", tmp_path / "tmp"
+    tmp.mkdir()
+    args = [str(design), "--vary", "design.vdd=10V:20V:8", "--vary", "design.ropt=90ohm,110ohm",
+            "-o", str(out), "--workers", "2", "--quiet", "--no-plots", "--evaluator", "test_sweep:slow_eval"]
+    proc = _cli(args, env_extra={"TMPDIR": str(tmp)})
+    family = []
+    try:
+        _wait_rows(out / STORE_NAME, proc, 3)
+        assert proc.poll() is None, "the sweep ended before it could be interrupted"
+        family = _family(proc.pid)
+        assert len(family) >= 3  # the sweep and its two pool workers at least
+        os.kill(proc.pid, sig)
+        _, stderr = proc.communicate()
+        assert _wait_gone(family) == []  # no pool worker, resource tracker or simulator left
+    finally:
+        _end(family)
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    if sig == signal.SIGTERM:  # handled like Ctrl-C (exit 128 + 15, the shell convention)
+        assert proc.returncode == 143, stderr
+        assert stderr.strip().splitlines()[-1] == "Terminated."
+        assert "points have a result in" in stderr and "run the same command to resume" in stderr
+    else:
+        assert proc.returncode == -signal.SIGKILL
+    assert list(tmp.iterdir()) == []  # no temporary folder left
+    with sqlite3.connect(out / STORE_NAME) as con:
+        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        partial = con.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+    assert 3 <= partial < 16
+    proc = _cli(args)
+    stdout, stderr = proc.communicate()
+    assert proc.returncode == 0, stderr
+    with sqlite3.connect(out / STORE_NAME) as con:
+        assert con.execute("SELECT COUNT(*), COUNT(DISTINCT idx) FROM points").fetchone() == (16, 16)
+        assert con.execute("SELECT COUNT(*) FROM points WHERE status != 'ok'").fetchone()[0] == 0
 
 
 def test_cli_monte_carlo_summary_and_csv(tmp_path):

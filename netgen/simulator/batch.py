@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from netgen.errors import SimulationError, SimulatorCrashError, SimulatorNotFoundError
+from netgen.lifeline import death_signal_preexec
 
 from .checks import looks_failed, short_run, simulation_failure, tran_stop
 from .common import (
@@ -55,14 +56,24 @@ class _BatchSession:
         self.dir = tempfile.TemporaryDirectory(prefix="netgen-ng-")
         self.deadline = _time.monotonic() + timeout_s
         self.timeout_s = timeout_s
-        self.proc = subprocess.Popen([exe, "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
-                                     stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
-                                     encoding="utf-8", errors="replace")
-        self.lines: queue.Queue = queue.Queue()
-        self.log: list[str] = []
-        threading.Thread(target=self._reader, daemon=True).start()
-        self.count = 0
-        self.send(["set noaskquit", "set filetype=binary"])
+        self.proc = None
+        try:
+            # ngspice ends with this process even when it is killed outright (the parent-death signal on
+            # Linux; elsewhere ngspice quits at the end of its standard input once its command is done)
+            self.proc = subprocess.Popen([exe, "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                                         stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
+                                         encoding="utf-8", errors="replace", preexec_fn=death_signal_preexec())
+            self.lines: queue.Queue = queue.Queue()
+            self.log: list[str] = []
+            threading.Thread(target=self._reader, daemon=True).start()
+            self.count = 0
+            self.send(["set noaskquit", "set filetype=binary"])
+        except BaseException:  # interrupted while starting (Ctrl-C, SIGTERM) or ngspice failed to start
+            if self.proc is not None and self.proc.poll() is None:
+                self.proc.kill()
+                self.proc.wait()
+            self.dir.cleanup()
+            raise
 
     def _reader(self):
         for line in self.proc.stdout:
