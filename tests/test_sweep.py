@@ -119,6 +119,45 @@ def simulator_always_dies_eval(design) -> dict:
     return tuned_b_eval(design)
 
 
+#: an RC driven by a fast pulse for a long time: ngspice runs for minutes unless stopped
+LONG_RUN = ("* long run\nV1 in 0 PULSE(0 1 0 1n 1n 4n 10n)\nR1 in out 1k\nC1 out 0 1p\n"
+            ".tran 0.5n 50m\n.end\n")
+
+
+def long_batch_eval(design) -> dict:
+    """Runs the ngspice executable (backend "batch") on LONG_RUN: a point that is killed mid-run."""
+    from netgen.simulator import run_transient
+
+    run_transient(LONG_RUN, backend="batch", save=["out"], timeout_s=120.0)
+    return tuned_b_eval(design)
+
+
+def long_shared_eval(design) -> dict:
+    """Runs libngspice in its worker process (backend "shared") on LONG_RUN."""
+    from netgen.simulator import run_transient
+
+    run_transient(LONG_RUN, backend="shared", save=["out"], timeout_s=120.0)
+    return tuned_b_eval(design)
+
+
+def small_disk_main() -> None:  # pragma: no cover - run as a separate process by a test
+    """netgen's command line with a sweep store that may grow by $NETGEN_TEST_PAGES pages only:
+    SQLite then fails with SQLITE_FULL, exactly as on a full disk (PRAGMA max_page_count,
+    sqlite.org/pragma.html)."""
+    from netgen.cli import main
+    from netgen.studies import store
+
+    opened = store.SweepStore.__init__
+
+    def limited(self, path):
+        opened(self, path)
+        pages = self.con.execute("PRAGMA page_count").fetchone()[0]
+        self.con.execute(f"PRAGMA max_page_count = {pages + int(os.environ['NETGEN_TEST_PAGES'])}")
+
+    store.SweepStore.__init__ = limited
+    main()
+
+
 # ---------------------------------------------------------------- grammar
 
 def test_vary_linear_matches_numpy_linspace():
@@ -614,6 +653,70 @@ def test_signal_to_the_sweep_alone_leaves_nothing_behind_and_resumes(tmp_path, s
         assert con.execute("SELECT COUNT(*) FROM points WHERE status != 'ok'").fetchone()[0] == 0
 
 
+def test_a_full_disk_stops_the_sweep_in_one_line_and_resume_works(tmp_path):
+    design = _design_file(tmp_path)
+    out = tmp_path / "out"
+    args = [str(design), "--vary", "design.vdd=10V:20V:60", "-o", str(out), "--workers", "1", "--quiet",
+            "--no-plots", "--evaluator", "test_sweep:tuned_b_eval"]
+    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""), NETGEN_TEST_PAGES="3")
+    proc = subprocess.run([sys.executable, "-c", "import test_sweep; test_sweep.small_disk_main()", "sweep", *args],
+                          env=env, capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 2, proc.stderr
+    (line,) = proc.stderr.strip().splitlines()  # one line, no traceback
+    assert line.startswith(f"Error: {out / STORE_NAME}: the disk is full; the ") and "point(s) stored so far are kept" in line
+    assert line.endswith("free some space and run the same command to resume.")
+    assert not (out / "sweep.csv").exists()  # nothing half-written after the store failed
+    with sqlite3.connect(out / STORE_NAME) as con:
+        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        partial = con.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+    assert 0 < partial < 60
+    done = _cli(args)  # space freed (no limit): the same command resumes
+    stdout, stderr = done.communicate(timeout=300)
+    assert done.returncode == 0, stderr
+    assert f"60 points: 60 ok, 0 not settled, 0 failed ({partial} already stored, {60 - partial} run now)." in stdout
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("evaluator, workers, sig", [
+    ("long_batch_eval", 1, signal.SIGTERM),   # the executable run by the sweep's own process
+    ("long_batch_eval", 2, signal.SIGTERM),   # by pool workers, which the sweep ends
+    ("long_batch_eval", 2, signal.SIGKILL),   # by pool workers that notice their parent is gone
+    ("long_shared_eval", 1, signal.SIGKILL),  # libngspice's worker, which notices its parent is gone
+])
+def test_a_killed_sweep_leaves_no_simulator_and_no_temporary_folder(tmp_path, evaluator, workers, sig):
+    design = _design_file(tmp_path)
+    tmp = tmp_path / "tmp"
+    tmp.mkdir()
+    args = [str(design), "--vary", "design.vdd=10V,11V", "-o", str(tmp_path / "out"), "--workers", str(workers),
+            "--quiet", "--no-plots", "--evaluator", f"test_sweep:{evaluator}"]
+    proc = _cli(args, env_extra={"TMPDIR": str(tmp)})
+    family = []
+    try:
+        simulators = []
+        for _ in range(1200):  # bounded wait until every worker runs its simulator
+            if proc.poll() is not None:
+                break
+            family = _family(proc.pid)
+            simulators = [p for p in family if p.name().startswith("ngspice") or "_worker_entry" in " ".join(p.cmdline())]
+            if len(simulators) >= workers and (evaluator != "long_batch_eval" or len(list(tmp.iterdir())) >= workers):
+                break
+            time.sleep(0.05)
+        assert proc.poll() is None and len(simulators) >= workers, proc.communicate()[1]
+        time.sleep(0.5)  # well into the run
+        family = _family(proc.pid)
+        os.kill(proc.pid, sig)
+        _, stderr = proc.communicate(timeout=120)
+        assert _wait_gone(family) == []
+    finally:
+        _end(family)
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == (143 if sig == signal.SIGTERM else -signal.SIGKILL), stderr
+    if workers > 1 or sig == signal.SIGTERM:  # a process killed outright cannot remove its own folder
+        assert list(tmp.iterdir()) == []
+
+
 def test_cli_monte_carlo_summary_and_csv(tmp_path):
     design = _design_file(tmp_path)
     out = tmp_path / "mc"
@@ -731,6 +834,97 @@ def test_real_sizing_failure_is_recorded(tmp_path):
         rows = list(st.rows(sid))
     assert rows[0]["status"] in ("ok", "not_settled"), rows[0]["error"]
     assert rows[1]["status"] == "failed" and rows[1]["error"].startswith("SizingError")
+
+
+def _dask_process(kind: str, *args, env_extra=None):
+    """``dask scheduler`` / ``dask worker`` as a process of this test, on 127.0.0.1 only."""
+    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""), **(env_extra or {}))
+    return subprocess.Popen([sys.executable, "-m", f"distributed.cli.dask_{kind}", *args], env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+
+
+def _start_dask(tmp_path: Path, name: str, procs: list) -> str:
+    """A scheduler and two single-thread workers (no nanny, so each is one process); its address."""
+    info = tmp_path / f"{name}.json"
+    procs.append(_dask_process("scheduler", "--host", "127.0.0.1", "--port", "0", "--no-dashboard",
+                               "--scheduler-file", str(info)))
+    for _ in range(600):  # bounded wait for the scheduler file
+        if info.exists() and info.stat().st_size:
+            try:
+                address = json.loads(info.read_text())["address"]
+                break
+            except (ValueError, KeyError):
+                pass
+        time.sleep(0.05)
+    else:
+        raise AssertionError("the Dask scheduler did not start")
+    assert address.startswith("tcp://127.0.0.1:")
+    for i in range(2):
+        procs.append(_dask_process("worker", address, "--host", "127.0.0.1", "--nthreads", "1", "--no-nanny",
+                                   "--no-dashboard", "--death-timeout", "5", "--name", f"{name}-w{i}"))
+    distributed = pytest.importorskip("distributed")
+    with distributed.Client(address, timeout=30) as client:
+        client.wait_for_workers(2, timeout=60)
+    return address
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
+def test_a_lost_scheduler_is_named_and_its_points_run_on_resume(tmp_path, sig):
+    pytest.importorskip("distributed")
+    design = _design_file(tmp_path)
+    out, tmp = tmp_path / "out", tmp_path / "tmp"
+    tmp.mkdir()
+    procs: list = []
+    family: list = []
+    try:
+        address = _start_dask(tmp_path, "first", procs)
+        args = [str(design), "--vary", "design.vdd=10V:20V:10",
+                "-o", str(out), "--quiet", "--no-plots", "--evaluator", "test_sweep:slow_eval"]
+        sweep = _cli([*args, "--cluster", address], env_extra={"TMPDIR": str(tmp)})
+        _wait_rows(out / STORE_NAME, sweep, 3)
+        assert sweep.poll() is None, "the sweep ended before the scheduler could be stopped"
+        family = _family(sweep.pid)
+        os.kill(procs[0].pid, sig)  # the scheduler, by PID
+        _, stderr = sweep.communicate(timeout=120)
+        # named as such, with what to do, in one line
+        assert sweep.returncode == 2, stderr
+        (last,) = stderr.strip().splitlines()
+        assert last.startswith(f"Error: --cluster {address}: the connection to the Dask scheduler was lost")
+        assert last.endswith("restart the scheduler and its workers, then run the same command to resume.")
+        for p in procs:  # the test ends the rest of the first cluster by PID
+            p.terminate()
+        for p in procs:
+            p.wait(timeout=60)
+        with sqlite3.connect(out / STORE_NAME) as con:
+            statuses = dict(con.execute("SELECT status, COUNT(*) FROM points GROUP BY status").fetchall())
+        assert "failed" not in statuses and statuses.get("lost", 0) >= 1  # in flight: lost, not failed
+        address = _start_dask(tmp_path, "second", procs)
+        again = _cli([*args, "--cluster", address], env_extra={"TMPDIR": str(tmp)})
+        stdout, stderr = again.communicate(timeout=600)
+        assert again.returncode == 0, stderr
+        with sqlite3.connect(out / STORE_NAME) as con:
+            assert con.execute("SELECT COUNT(*), COUNT(DISTINCT idx) FROM points").fetchone() == (10, 10)
+            assert con.execute("SELECT COUNT(*) FROM points WHERE status != 'ok'").fetchone()[0] == 0
+            # the points cut short by the lost scheduler ran again (a second attempt)
+            assert con.execute("SELECT COUNT(*) FROM points WHERE attempts = 2").fetchone()[0] == statuses["lost"]
+        assert "10 points: 10 ok, 0 not settled, 0 failed" in stdout
+    finally:
+        for p in procs:
+            if p.poll() is None:
+                p.terminate()
+        for p in procs:
+            try:
+                p.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                p.kill()
+                p.wait()
+        _end(family)
+    import psutil
+
+    assert _wait_gone([*family, *(psutil.Process(p.pid) for p in procs if p.poll() is None)]) == []
+    assert all(p.poll() is not None for p in procs)
+    assert list(tmp.iterdir()) == []
 
 
 def test_unreachable_cluster_is_a_clear_error(tmp_path):

@@ -139,7 +139,7 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
             counts = run_sweep(plan, store, sid, workers=workers, cluster=cluster, evaluator=fn,
                                wave_dir=(out / "waveforms") if keep_waveforms else None, progress=progress,
                                attempts=attempts)
-        except (KeyboardInterrupt, NetgenError):  # Ctrl-C, SIGTERM, a lost scheduler, a full disk
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM (errors say what to do themselves)
             if bar is not None:
                 bar.close()
                 bar = None

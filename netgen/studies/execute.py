@@ -450,6 +450,18 @@ def _run_dask(address: str, co: _Coordinator, timeout_s: float = 30.0) -> None:
         from distributed import Client, as_completed
     except ImportError:  # pragma: no cover - dask[distributed] is a dependency
         raise NetgenError("--cluster needs the 'distributed' package; pip install 'dask[distributed]'.") from None
+    import logging
+
+    log = logging.getLogger("distributed")  # its reports of the lost connection would repeat ours as tracebacks
+    level = log.level
+    log.setLevel(logging.CRITICAL + 1)
+    try:
+        _dask_session(Client, as_completed, address, co, timeout_s)
+    finally:
+        log.setLevel(level)
+
+
+def _dask_session(Client, as_completed, address: str, co: _Coordinator, timeout_s: float) -> None:
     try:
         client = Client(address, timeout=timeout_s)
     except (OSError, TimeoutError, ValueError) as exc:
