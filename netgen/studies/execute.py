@@ -26,7 +26,7 @@ import signal
 import time
 import traceback
 from pathlib import Path
-from typing import Callable, Iterator
+from typing import Callable
 
 import numpy as np
 
@@ -452,13 +452,17 @@ def _run_dask(address: str, co: _Coordinator, timeout_s: float = 30.0) -> None:
         raise NetgenError("--cluster needs the 'distributed' package; pip install 'dask[distributed]'.") from None
     import logging
 
-    log = logging.getLogger("distributed")  # its reports of the lost connection would repeat ours as tracebacks
-    level = log.level
-    log.setLevel(logging.CRITICAL + 1)
+    # Dask's own reports of a lost connection would repeat our one-line error as tracebacks; its
+    # configuration gives some of its loggers levels of their own, so each is quietened
+    names = ["distributed", *(n for n in logging.root.manager.loggerDict if n.startswith("distributed."))]
+    levels = {n: logging.getLogger(n).level for n in names}
+    for n in names:
+        logging.getLogger(n).setLevel(logging.CRITICAL + 1)
     try:
         _dask_session(Client, as_completed, address, co, timeout_s)
     finally:
-        log.setLevel(level)
+        for n, level in levels.items():
+            logging.getLogger(n).setLevel(level)
 
 
 def _dask_session(Client, as_completed, address: str, co: _Coordinator, timeout_s: float) -> None:
