@@ -14,6 +14,7 @@ __all__ = [
     "RenderError",
     "SimulationError",
     "SimulatorNotFoundError",
+    "SimulatorCrashError",
     "OutputError",
 ]
 
@@ -64,6 +65,14 @@ class SimulationError(NetgenError, RuntimeError):
 
 class SimulatorNotFoundError(SimulationError):
     """Neither libngspice nor the ngspice executable could be found."""
+
+
+class SimulatorCrashError(SimulationError):
+    """The process running ngspice died during a run (a crash, or killed by someone or something).
+
+    The cause may be the machine (out of memory, a kill) rather than the design, so a sweep
+    tries such a point again before it counts it as failed (docs/sweeps.md).
+    """
 
 
 class OutputError(NetgenError, OSError):

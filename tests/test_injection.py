@@ -23,7 +23,7 @@ import pytest
 from conftest import MINIMAL_DOC, write_toml
 from netgen.simulator import engine
 from netgen.design.schema import load_design
-from netgen.errors import DesignError, NetgenError, RenderError, SimulationError, SizingError
+from netgen.errors import DesignError, RenderError, SimulationError, SizingError
 from netgen.netlist.renderer import DIALECTS, MODES, render
 from netgen.synthesis.sizing import size
 

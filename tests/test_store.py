@@ -46,7 +46,7 @@ def test_duplicate_index_is_ignored(store):
     rows = list(store.rows(sid))
     assert len(rows) == 1 and rows[0]["status"] == "failed" and rows[0]["metrics"] is None
     assert store.done_indices(sid) == {1}
-    assert store.count(sid) == {"ok": 0, "not_settled": 0, "failed": 1}
+    assert store.count(sid) == {"ok": 0, "not_settled": 0, "failed": 1, "lost": 0}
 
 
 def test_same_spec_resumes_the_same_sweep(tmp_path):
@@ -99,3 +99,72 @@ def test_export_csv(tmp_path):
     assert rows[1]["status"] == "failed" and rows[1]["error"] == "SizingError: no" and rows[1]["pout_w"] == ""
     with pytest.raises(OutputError, match="no such sweep store"):
         export_csv(tmp_path / "missing.sqlite", tmp_path / "x.csv")
+
+
+# ---------------------------------------------------------------- lost points, attempts, a full disk
+
+def test_a_lost_point_is_replaced_by_its_next_attempt(store):
+    # 'lost' is the machinery's fault, not the design's: the row gives way to the next attempt,
+    # whereas a result (ok, not_settled, failed) is final (docs/sweeps.md)
+    sid = store.open_sweep("abc", "", SPEC, 2)
+    assert store.record(sid, 0, {}, "lost", None, "WorkerCrash: killed", 0.0) is True
+    assert store.done_indices(sid) == set()  # no result: it runs again
+    assert store.lost_attempts(sid) == {0: 1}
+    assert store.record(sid, 0, {}, "lost", None, "SchedulerLost: gone", 0.0) is True
+    assert store.lost_attempts(sid) == {0: 2}
+    assert store.done_indices(sid, max_attempts=2) == {0}  # tried twice: left out when 2 is the limit
+    assert store.done_indices(sid, max_attempts=3) == set()
+    assert store.record(sid, 0, {"axes": {"design.vdd": 10.0}}, "ok", METRICS, None, 1.0) is True
+    (row,) = store.rows(sid)
+    assert (row["status"], row["attempts"], row["error"], row["metrics"]["pout_w"]) == ("ok", 3, None, 0.5)
+    assert store.record(sid, 0, {}, "lost", None, "late", 0.0) is False  # a result is never overwritten
+    assert store.count(sid) == {"ok": 1, "not_settled": 0, "failed": 0, "lost": 0}
+
+
+def test_a_store_from_before_the_lost_status_is_upgraded(tmp_path):
+    # a points table with the old three-status CHECK and no attempts column, as earlier versions wrote it
+    db = tmp_path / STORE_NAME
+    con = sqlite3.connect(db)
+    con.executescript(f"""
+        CREATE TABLE sweeps (id INTEGER PRIMARY KEY, design_digest TEXT NOT NULL, design_toml TEXT NOT NULL,
+            spec TEXT NOT NULL, seed INTEGER, n_points INTEGER NOT NULL, created TEXT NOT NULL);
+        CREATE TABLE points (sweep_id INTEGER NOT NULL REFERENCES sweeps(id), idx INTEGER NOT NULL,
+            inputs TEXT NOT NULL, status TEXT NOT NULL CHECK (status IN ('ok', 'not_settled', 'failed')),
+            metrics TEXT, {", ".join(f"{c} REAL" for c in KEY_COLUMNS)}, settled INTEGER, error TEXT,
+            seconds REAL, UNIQUE (sweep_id, idx));
+        INSERT INTO sweeps VALUES (1, 'abc', '', '{json.dumps(SPEC, sort_keys=True)}', NULL, 2, '2024-01-01');
+        INSERT INTO points (sweep_id, idx, inputs, status, pout_w, settled, seconds) VALUES (1, 0, '{{}}', 'ok', 0.5, 1, 2.0);
+    """)
+    con.commit()
+    con.close()
+    with SweepStore(db) as st:
+        assert st.open_sweep("abc", "", SPEC, 2) == 1
+        (row,) = st.rows(1)
+        assert (row["status"], row["attempts"], row["seconds"]) == ("ok", 1, 2.0)
+        assert st.record(1, 1, {}, "lost", None, "WorkerCrash: x", 0.0)
+        assert st.con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert st.con.execute("SELECT pout_w FROM points WHERE idx = 0").fetchone()[0] == 0.5
+
+
+def test_a_full_disk_is_one_error_and_the_store_stays_whole(tmp_path):
+    # SQLite reports a full disk as SQLITE_FULL; PRAGMA max_page_count produces that very error
+    # (sqlite.org/pragma.html#pragma_max_page_count) without filling a real disk
+    db = tmp_path / STORE_NAME
+    with SweepStore(db) as st:
+        sid = st.open_sweep("abc", "", SPEC, 1000)
+        pages = st.con.execute("PRAGMA page_count").fetchone()[0]
+        st.con.execute(f"PRAGMA max_page_count = {pages + 2}")
+        big = {**METRICS, "note": "x" * 3000}
+        stored = 0
+        with pytest.raises(OutputError) as err:
+            for idx in range(1000):
+                st.record(sid, idx, {}, "ok", big, None, 0.0)
+                stored += 1
+        assert 0 < stored < 1000
+        message = str(err.value)
+        assert "\n" not in message and message.startswith(f"{db}: the disk is full;")
+        assert message.endswith("free some space and run the same command to resume.")
+    with SweepStore(db) as st:  # a new connection: the limit is gone, as after freeing space
+        assert st.con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert st.done_indices(sid) == set(range(stored))
+        assert st.record(sid, stored, {}, "ok", big, None, 0.0)

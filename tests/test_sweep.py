@@ -266,7 +266,7 @@ def test_failed_points_are_recorded_and_the_sweep_finishes(tmp_path):
     assert [r["status"] for r in rows] == ["ok", "failed", "failed", "ok"]
     assert rows[1]["error"].startswith("SimulationError: ngspice: timestep too small Hint: lower points_per_cycle")
     assert rows[2]["error"] == "SizingError: sizing refused this point"
-    assert counts == {"ran": 4, "skipped": 0, "failed": 2}
+    assert counts == {"ran": 4, "skipped": 0, "failed": 2, "lost": 0, "retried": 0, "lost_left": 0}
     # P = Vdd^2/(2 Ropt) for the tuned-load reference (Cripps)
     assert_allclose(rows[3]["metrics"]["pout_w"], 16.0**2 / 200, rtol=1e-12)
 
@@ -389,8 +389,8 @@ def _design_file(tmp_path, extra: str = "") -> Path:
     return p
 
 
-def _cli(args, **kw):
-    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+def _cli(args, env_extra: dict | None = None, **kw):
+    env = dict(os.environ, PYTHONPATH=str(TESTS) + os.pathsep + os.environ.get("PYTHONPATH", ""), **(env_extra or {}))
     return subprocess.Popen([sys.executable, "-m", "netgen.cli", "sweep", *args], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, **kw)
 

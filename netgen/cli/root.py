@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import sys
+import threading
 import time
 from importlib import resources
 from pathlib import Path
@@ -317,9 +318,16 @@ def _one_line(text: str) -> str:
 
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the CLI, turning user errors into one line and exit code 2."""
+    from netgen.lifeline import EXIT_SIGTERM, Terminated, raise_on_sigterm
+
+    if threading.current_thread() is threading.main_thread():
+        raise_on_sigterm()  # SIGTERM unwinds like Ctrl-C: stores closed, children ended, temporary folders removed
     try:
         code = cli.main(args=argv, prog_name="pashape", standalone_mode=False)
-    except click.exceptions.Abort:
+    except click.exceptions.Abort as exc:  # click turns Ctrl-C (and so SIGTERM) into Abort
+        if isinstance(exc.__cause__, Terminated):
+            click.echo("Terminated.", err=True)
+            sys.exit(EXIT_SIGTERM)
         click.echo("Aborted.", err=True)
         sys.exit(130)
     except click.UsageError as exc:  # one line, like every other user error
@@ -332,6 +340,9 @@ def main(argv: list[str] | None = None) -> None:
     except NetgenError as exc:
         click.echo(f"Error: {_one_line(str(exc))}", err=True)
         sys.exit(exc.exit_code)
+    except Terminated:
+        click.echo("Terminated.", err=True)
+        sys.exit(EXIT_SIGTERM)
     except KeyboardInterrupt:
         click.echo("Interrupted.", err=True)
         sys.exit(130)

@@ -89,6 +89,9 @@ def _load_evaluator(text: str | None):
 @click.option("--resize/--fixed-network", "resize", default=None,
               help="Re-size the network at every point, or keep the nominal network (default: fixed, unless a sizing input is swept).")
 @click.option("--no-plots", is_flag=True, help="Skip the PNG plots.")
+@click.option("--attempts", type=int, default=3, show_default=True,
+              help="Runs of a point cut short by the machinery (a killed or crashed worker, a lost scheduler) "
+                   "before it is left out of the yield; a point that crashes its worker every time counts as failed.")
 @click.option("--list", "list_only", is_flag=True, help="Print the points and exit without simulating.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 @click.option("--fast", is_flag=True, help="Evaluate points on the periodic estimate, confirm a sample in ngspice (see above).")
@@ -96,7 +99,7 @@ def _load_evaluator(text: str | None):
               help="With --fast: points re-run in ngspice to confirm (drawn with --seed); 0 for none.")
 @click.option("--evaluator", hidden=True, default=None, help="module:function evaluating a Design (tests, custom flows).")
 def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs, out, workers, cluster,
-                  keep_waveforms, resize, no_plots, list_only, quiet, fast, confirm_n, evaluator):
+                  keep_waveforms, resize, attempts, no_plots, list_only, quiet, fast, confirm_n, evaluator):
     from netgen.design import load_design
     from netgen.studies import (
         STORE_NAME,
@@ -110,6 +113,8 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
 
     if workers is not None and workers < 1:
         raise click.BadParameter("must be at least 1.", param_hint="--workers")
+    if attempts < 1:
+        raise click.BadParameter("must be at least 1.", param_hint="--attempts")
     design = load_design(design_file)
     spec_list = [parse_spec(s) for s in specs]
     if not vary and not vswr and not tolerance:
@@ -152,7 +157,19 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
 
         try:
             counts = run_sweep(plan, store, sid, workers=workers, cluster=cluster, evaluator=fn,
-                               wave_dir=(out / "waveforms") if keep_waveforms else None, progress=progress)
+                               wave_dir=(out / "waveforms") if keep_waveforms else None, progress=progress,
+                               attempts=attempts)
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM (errors say what to do themselves)
+            if bar is not None:
+                bar.close()
+                bar = None
+            try:
+                have = len(store.done_indices(sid))
+                click.echo(f"{have} of {plan.n_points} points have a result in {out / STORE_NAME}; "
+                           "run the same command to resume.", err=True)
+            except Exception:  # noqa: BLE001 - the store may be what failed; the error follows anyway
+                pass
+            raise
         finally:
             if bar is not None:
                 bar.close()
@@ -167,6 +184,10 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         first_failed = store.con.execute(
             "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'failed' ORDER BY idx LIMIT 1", (sid,)
         ).fetchone()
+        first_lost = store.con.execute(
+            "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'lost' ORDER BY idx LIMIT 1", (sid,)
+        ).fetchone()
+        given_up = sum(n >= attempts for n in store.lost_attempts(sid).values())
     csv_path = export_csv(out / STORE_NAME, out / "sweep.csv")
     made = {}
     if not no_plots:
@@ -176,14 +197,24 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
     from netgen.fileio import atomic_write_text
 
     atomic_write_text(out / "summary.json", json.dumps(summary, indent=2, sort_keys=True) + "\n")
+    lost = f", {summary['lost']} lost" if summary["lost"] else ""
     click.echo(f"{plan.n_points} points: {summary['ok']} ok, {summary['not_settled']} not settled, "
-               f"{summary['failed']} failed ({counts['skipped']} already stored, {counts['ran']} run now).")
+               f"{summary['failed']} failed{lost} ({counts['skipped']} already stored, {counts['ran']} run now).")
     for name, n_pass in summary["specs"].items():
-        click.echo(f"  {name}: {n_pass}/{summary['stored']} pass")
+        click.echo(f"  {name}: {n_pass}/{summary['results']} pass")
     if "yield" in summary:
-        click.echo(f"yield {100 * summary['yield']:.1f}% ({summary['passed']}/{summary['stored']}), "
+        missing = (f"; {summary['missing']} point(s) without a result are left out" if summary["missing"] else "")
+        click.echo(f"yield {100 * summary['yield']:.1f}% ({summary['passed']}/{summary['results']}), "
                    f"95% interval {100 * summary['yield_lo']:.1f}%..{100 * summary['yield_hi']:.1f}% "
-                   "(Clopper-Pearson; failed and not-settled points count as failing)")
+                   f"(Clopper-Pearson; failed and not-settled points count as failing{missing})")
+    if summary["lost"]:
+        again = summary["lost"] - given_up
+        click.echo(f"  {summary['lost']} point(s) lost to infrastructure faults, not to the design "
+                   f"(first: point {first_lost[0]}: {first_lost[1].splitlines()[0]}); "
+                   + (f"{again} will run again when the same command is repeated" if again else "")
+                   + ("; " if again and given_up else "")
+                   + (f"{given_up} were tried {attempts} times: repeat with a higher --attempts to try again"
+                      if given_up else "") + ".")
     if fast:
         _echo_confirmation(summary.get("confirmation"))
     if first_failed:
@@ -211,6 +242,9 @@ def _echo_confirmation(conf: dict | None) -> None:
 
 def main(argv=None) -> None:
     """Run the command alone (``python -m netgen.cli.studies``), errors as one line and exit code 2."""
+    from netgen.lifeline import raise_on_sigterm
+
+    raise_on_sigterm()
     try:
         sweep_command.main(args=argv, prog_name="pashape sweep", standalone_mode=False)
     except click.ClickException as exc:
@@ -219,8 +253,10 @@ def main(argv=None) -> None:
     except NetgenError as exc:
         click.echo(f"Error: {exc}", err=True)
         sys.exit(exc.exit_code)
-    except click.exceptions.Abort:
-        sys.exit(130)
+    except click.exceptions.Abort as exc:
+        from netgen.lifeline import EXIT_SIGTERM, Terminated
+
+        sys.exit(EXIT_SIGTERM if isinstance(exc.__cause__, Terminated) else 130)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -26,7 +26,8 @@ from pathlib import Path
 
 import numpy as np
 
-from netgen.errors import SimulationError, SimulatorNotFoundError
+from netgen.errors import SimulationError, SimulatorCrashError, SimulatorNotFoundError
+from netgen.lifeline import death_signal_preexec
 
 from .checks import looks_failed, short_run, simulation_failure, tran_stop
 from .common import (
@@ -56,16 +57,27 @@ class _BatchSession:
         self.dir = tempfile.TemporaryDirectory(prefix="pashape-ng-")
         self.deadline = _time.monotonic() + timeout_s
         self.timeout_s = timeout_s
-        # -n: no .spiceinit from the working or home folder; the working folder and HOME are a
-        # fresh private (0700) folder, so nothing a colleague's files left behind is read
-        self.proc = subprocess.Popen([exe, "-n", "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
-                                     stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
-                                     encoding="utf-8", errors="replace", env=private_env(self.dir.name))
-        self.lines: queue.Queue = queue.Queue()
-        self.log: list[str] = []
-        threading.Thread(target=self._reader, daemon=True).start()
-        self.count = 0
-        self.send(["set noaskquit", "set filetype=binary"])
+        self.proc = None
+        try:
+            # -n: no .spiceinit from the working or home folder; the working folder and HOME are a
+            # fresh private (0700) folder, so nothing a colleague's files left behind is read.
+            # ngspice ends with this process even when it is killed outright (the parent-death signal on
+            # Linux; elsewhere ngspice quits at the end of its standard input once its command is done)
+            self.proc = subprocess.Popen([exe, "-n", "-p"], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                                         stderr=subprocess.STDOUT, cwd=self.dir.name, text=True,
+                                         encoding="utf-8", errors="replace", env=private_env(self.dir.name),
+                                         preexec_fn=death_signal_preexec())
+            self.lines: queue.Queue = queue.Queue()
+            self.log: list[str] = []
+            threading.Thread(target=self._reader, daemon=True).start()
+            self.count = 0
+            self.send(["set noaskquit", "set filetype=binary"])
+        except BaseException:  # interrupted while starting (Ctrl-C, SIGTERM) or ngspice failed to start
+            if self.proc is not None and self.proc.poll() is None:
+                self.proc.kill()
+                self.proc.wait()
+            self.dir.cleanup()
+            raise
 
     def _reader(self):
         for line in self.proc.stdout:
@@ -104,11 +116,11 @@ class _BatchSession:
             out.append(line)
             self.log.append(line)
 
-    def _crashed(self) -> SimulationError:
+    def _crashed(self) -> SimulatorCrashError:
         code = self.proc.wait(timeout=5)
-        return SimulationError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
-                               log="\n".join(self.log[-200:]),
-                               hint="see ngspice's messages in the log; run 'pashape doctor'")
+        return SimulatorCrashError(f"The ngspice executable stopped unexpectedly (exit code {code}).",
+                                   log="\n".join(self.log[-200:]),
+                                   hint="see ngspice's messages in the log; run 'pashape doctor'")
 
     def close(self, kill: bool = False):
         if self.proc.poll() is None and not kill:
@@ -157,6 +169,7 @@ class _BatchSession:
 def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -> dict:
     """Run one analysis (``kind`` = "tran" | "ac" | "op") with the executable; the engine's result dict."""
     sess = _BatchSession(timeout_s)
+    interrupted = False
     try:
         sess.load(netlist, opts.get("save"))
         if kind == "op":
@@ -227,7 +240,10 @@ def run_batch(kind: str, netlist: str, opts: dict, timeout_s: float, progress) -
             start = max(int(np.searchsorted(t, t[-1] - keep)) - 1, 0)
             vecs = {k: v[start:] for k, v in vecs.items()}
         return {"vectors": vecs, "log": "\n".join(sess.log), "stopped": stopped, "checker": check}
+    except BaseException:
+        interrupted = True  # an error, Ctrl-C or SIGTERM: end ngspice at once, do not ask it to quit
+        raise
     finally:
-        sess.close()
+        sess.close(kill=interrupted)  # the temporary folder goes in every case
 
 

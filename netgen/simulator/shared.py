@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from netgen.errors import SimulationError, SimulatorNotFoundError
+from netgen.errors import SimulationError, SimulatorCrashError, SimulatorNotFoundError
 
 from .checks import looks_failed, short_run, simulation_failure, tran_stop
 from .common import (
@@ -240,10 +240,21 @@ def _worker_main(recv, send) -> None:  # pragma: no cover - runs in the worker p
                                "see ngspice's messages in the log", False)))
 
 
-def _worker_entry(read_fd: int, write_fd: int) -> None:  # pragma: no cover - worker process
-    """Entry point of the worker process (started with ``python -c``, so no main module is re-run)."""
+def _worker_entry(read_fd: int, write_fd: int, parent_pid: int | None = None,
+                  kernel_watch: bool = False) -> None:  # pragma: no cover - worker process
+    """Entry point of the worker process (started with ``python -c``, so no main module is re-run).
+
+    The worker ends within about a second of its parent's death (:func:`netgen.lifeline.watch_parent`;
+    the kernel's parent-death signal too when the parent started it from its main thread), so a
+    parent killed with SIGKILL leaves no simulator behind.
+    """
+    import signal
     from multiprocessing.connection import Connection
 
+    if parent_pid is not None:
+        from netgen.lifeline import watch_parent
+
+        watch_parent(parent_pid, kernel_signal=signal.SIGKILL if kernel_watch else None)
     _worker_main(Connection(read_fd, writable=False), Connection(write_fd, readable=False))
 
 
@@ -260,10 +271,12 @@ class _Worker:
 
         p2c_r, p2c_w = os.pipe()
         c2p_r, c2p_w = os.pipe()
-        code = f"from netgen.simulator.shared import _worker_entry; _worker_entry({p2c_r}, {c2p_w})"
+        main_thread = threading.current_thread() is threading.main_thread()
+        code = (f"from netgen.simulator.shared import _worker_entry; "
+                f"_worker_entry({p2c_r}, {c2p_w}, {os.getpid()}, {main_thread})")
         # the worker (and libngspice in it) runs in a fresh private folder that is also its HOME:
         # libngspice reads .spiceinit from the working folder, else HOME (docs/reliability.md)
-        self.dir = tempfile.mkdtemp(prefix="netgen-ngw-")
+        self.dir = tempfile.mkdtemp(prefix="pashape-ngw-")
         env = private_env(self.dir)
         pkg_parent = str(Path(__file__).resolve().parent.parent)
         env["PYTHONPATH"] = pkg_parent + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
@@ -332,12 +345,12 @@ class _Worker:
             if not self.alive():
                 raise self._crashed()
 
-    def _crashed(self) -> SimulationError:
+    def _crashed(self) -> SimulatorCrashError:
         try:
             code = self.proc.wait(timeout=5)
         except subprocess.TimeoutExpired:
             code = None
-        return SimulationError(
+        return SimulatorCrashError(
             f"The ngspice worker process died during the run (exit code {code}); ngspice crashed or was killed.",
             hint="run 'pashape doctor'; try sim.backend = \"batch\" to use the ngspice executable instead")
 

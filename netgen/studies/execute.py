@@ -3,26 +3,43 @@
 Split from :mod:`netgen.studies.plan` (which owns the variation grammar, the plan,
 specs and yield). Every point is independent; a point that fails is returned as
 a failed row and never stops the sweep (see :func:`run_point`).
+
+Two kinds of trouble are kept apart. A point **fails** when the design fails: the validation,
+the sizing or the simulator refuses it; that verdict is final. A point is **lost** when the
+machinery cuts it short: its worker process or the simulator process died (a crash, out of
+memory, a kill), the Dask scheduler went away, a task was cancelled, the disk filled. A lost
+point has no result; it is run again (at once where that makes sense, and on resume) until it
+has been tried ``attempts`` times. A point that killed its worker process in every one of those
+attempts, each time on its own, is then counted as failed: a crash that follows the point is
+the design's. The same coordinator handles the three executors (in this process, a local
+process pool, Dask), so they agree.
 """
 
 from __future__ import annotations
 
+import asyncio
+import collections
+import errno
 import json
 import os
+import signal
 import time
 import traceback
 from pathlib import Path
-from typing import Callable, Iterator
+from typing import Callable
 
 import numpy as np
 
 from netgen.design import COMPONENT_UNITS, design_from_dict, set_dotted
-from netgen.errors import DesignError, NetgenError
+from netgen.errors import DesignError, NetgenError, OutputError, SimulatorCrashError
 
 from .grammar import format_value
 from .plan import Evaluator, ProgressFn, SweepPlan, tolerance_key_value
 
-__all__ = ["run_point", "run_sweep"]
+__all__ = ["run_point", "run_sweep", "DEFAULT_ATTEMPTS"]
+
+#: runs of a point lost to infrastructure faults before it is left out (docs/sweeps.md)
+DEFAULT_ATTEMPTS = 3
 
 
 # ---------------------------------------------------------------- one point (runs in a worker)
@@ -74,9 +91,10 @@ def run_point(
     Returns
     -------
     dict
-        ``idx``, ``status`` (``ok`` / ``not_settled`` / ``failed``), ``metrics``
+        ``idx``, ``status`` (``ok`` / ``not_settled`` / ``failed`` / ``lost``), ``metrics``
         (dict or None), ``error`` (text or None), ``seconds``, ``applied``
-        (component overrides written for tolerances).
+        (component overrides written for tolerances), ``fault`` (for ``lost``: ``crash``
+        when the simulator process died, ``disk`` when the disk is full; else None).
     """
     t0 = time.perf_counter()
     applied: dict = {}
@@ -97,18 +115,46 @@ def run_point(
         metrics = json.loads(json.dumps(metrics, default=_json_default))  # plain, picklable, storable
         status = "ok" if metrics.get("settled") else "not_settled"
         return {"idx": idx, "status": status, "metrics": metrics, "error": None,
-                "seconds": time.perf_counter() - t0, "applied": applied}
+                "seconds": time.perf_counter() - t0, "applied": applied, "fault": None}
+    except SimulatorCrashError as exc:  # the simulator process died: the machine or the design, tried again
+        return _lost(idx, f"SimulatorCrash: {exc}", "crash", t0, applied)
+    except MemoryError:
+        return _lost(idx, "OutOfMemory: the worker ran out of memory on this point", "crash", t0, applied)
     except NetgenError as exc:
+        if _disk_full(exc):
+            return _lost(idx, f"DiskFull: {exc}", "disk", t0, applied)
         error = f"{type(exc).__name__}: {exc}"
         log = str(getattr(exc, "log", "") or "").strip()
         if log:  # the simulator's last words, enough to diagnose without re-running
             error += "\n" + "\n".join(log.splitlines()[-8:])
     except Exception as exc:  # a bug or numerical failure in one point must not stop the sweep
+        if _disk_full(exc):
+            return _lost(idx, f"DiskFull: {type(exc).__name__}: {exc}", "disk", t0, applied)
         tb = traceback.extract_tb(exc.__traceback__)
         where = f" at {Path(tb[-1].filename).name}:{tb[-1].lineno}" if tb else ""
         error = f"{type(exc).__name__}: {exc}{where}"
+    return _failed(idx, error, t0, applied)
+
+
+def _failed(idx: int, error: str, t0: float, applied: dict) -> dict:
     return {"idx": idx, "status": "failed", "metrics": None, "error": error,
-            "seconds": time.perf_counter() - t0, "applied": applied}
+            "seconds": time.perf_counter() - t0, "applied": applied, "fault": None}
+
+
+def _lost(idx: int, error: str, fault: str | None, t0: float | None = None, applied: dict | None = None) -> dict:
+    return {"idx": idx, "status": "lost", "metrics": None, "error": error,
+            "seconds": 0.0 if t0 is None else time.perf_counter() - t0, "applied": applied or {}, "fault": fault}
+
+
+def _disk_full(exc: BaseException | None) -> bool:
+    """True when ``exc`` or an exception it was raised from is "no space left" (ENOSPC, EDQUOT)."""
+    seen = 0
+    while exc is not None and seen < 8:
+        if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
+            return True
+        exc = exc.__cause__ or exc.__context__
+        seen += 1
+    return False
 
 
 def _json_default(obj):
@@ -135,10 +181,68 @@ def _write_waves(path: Path, wf) -> None:
     atomic_write_text(path, buf.getvalue())
 
 
-# ---------------------------------------------------------------- executors
 
-def _pending(plan: SweepPlan, done: set[int]) -> Iterator[int]:
-    return (i for i in range(plan.n_points) if i not in done)
+
+# ---------------------------------------------------------------- the coordinator
+
+class _Coordinator:
+    """What the three executors share: which point runs next, recording, retries, counts.
+
+    ``finish`` stores each attempt as it ends. A lost point is queued to run again while it has
+    attempts left (``retry`` False when the executor itself is going away); a point lost to
+    crashes in all its attempts becomes failed; a full disk stops the sweep (OutputError).
+    """
+
+    def __init__(self, plan: SweepPlan, store, sweep_id: int, attempts: int, progress, make_task):
+        self.plan, self.store, self.sid = plan, store, sweep_id
+        self.max_attempts = max(1, int(attempts))
+        self.progress = progress
+        self.task = make_task
+        done = store.done_indices(sweep_id, self.max_attempts)
+        self.tried = store.lost_attempts(sweep_id)  # idx -> attempts so far, for points still lost
+        self.stored = len(store.done_indices(sweep_id))  # points with a result
+        self.todo = (i for i in range(plan.n_points) if i not in done)
+        self.again: collections.deque[int] = collections.deque()
+        self.counts = {"ran": 0, "skipped": len(done), "failed": 0, "lost": 0, "retried": 0}
+
+    def next_index(self) -> int | None:
+        if self.again:
+            self.counts["retried"] += 1
+            return self.again.popleft()
+        return next(self.todo, None)
+
+    def finish(self, res: dict, retry: bool = True) -> None:
+        idx = res["idx"]
+        inputs = self.plan.point(idx)
+        if res.get("applied"):
+            inputs["values"] = res["applied"]
+        status, error = res["status"], res["error"]
+        if status == "lost":
+            n = self.tried.get(idx, 0) + 1
+            if res.get("fault") == "crash" and n >= self.max_attempts:
+                status = "failed"
+                error = (f"{error} (the worker died in each of {n} attempts at this point alone, "
+                         "so the crash is taken as the design's)")
+            self.tried[idx] = n
+        self.store.record(self.sid, idx, inputs, status, res["metrics"], error, res["seconds"])
+        if res.get("fault") == "disk":
+            raise OutputError(f"{error.split(': ', 1)[-1].splitlines()[0]} (the disk is full; the points stored so far "
+                              "are kept; free some space and run the same command to resume)")
+        if status == "lost":
+            self.counts["lost"] += 1
+            if retry and self.tried[idx] < self.max_attempts:
+                self.again.append(idx)
+        else:
+            self.stored += 1
+            self.counts["ran"] += 1
+            self.counts["failed"] += status == "failed"
+            self.tried.pop(idx, None)
+        if self.progress is not None:
+            self.progress(self.stored, self.plan.n_points, {**res, "status": status})
+
+    def lost_now(self) -> int:
+        """Points stored as lost at the end (no result; left for a resume or given up)."""
+        return len(self.store.lost_attempts(self.sid))
 
 
 def run_sweep(
@@ -152,6 +256,7 @@ def run_sweep(
     wave_dir: str | Path | None = None,
     progress: ProgressFn | None = None,
     cluster_timeout_s: float = 30.0,
+    attempts: int = DEFAULT_ATTEMPTS,
 ) -> dict:
     """Run every point of ``plan`` not yet in ``store`` and commit each as it finishes.
 
@@ -172,19 +277,28 @@ def run_sweep(
     wave_dir : path, optional
         Write each point's settled waveforms there as ``point_<idx>.csv``.
     progress : callable(done, total, result), optional
-        Called after each finished point (``done`` counts stored points).
+        Called after each finished attempt (``done`` counts points with a result).
     cluster_timeout_s : float
         How long to try to reach the Dask scheduler, s.
+    attempts : int
+        Runs of a point lost to infrastructure faults before it is left out (stored as
+        ``lost``, missing from the yield); a point lost to worker crashes in all of them is
+        stored as failed. Points stored as lost with attempts left are run again.
 
     Returns
     -------
     dict
-        ``ran`` (points run now), ``skipped`` (already stored), ``failed`` (of those run).
+        ``ran`` (points given a result now), ``skipped`` (not run: already with a result, or
+        lost ``attempts`` times), ``failed`` (of those run), ``lost`` (attempts lost now),
+        ``retried`` (runs that were retries), ``lost_left`` (points stored as lost at the end).
+
+    Raises
+    ------
+    NetgenError
+        The Dask scheduler cannot be reached or was lost, or the cluster has no workers left.
+    OutputError
+        The store cannot be written (a full disk); what is stored stays consistent.
     """
-    done = store.done_indices(sweep_id)
-    total = plan.n_points
-    todo = _pending(plan, done)
-    counts = {"ran": 0, "skipped": len(done), "failed": 0}
     wd = str(wave_dir) if wave_dir else None
     if wd:
         Path(wd).mkdir(parents=True, exist_ok=True)
@@ -193,51 +307,78 @@ def run_sweep(
     def task(idx: int) -> tuple:
         return (plan.base_doc, src, idx, plan.point(idx), evaluator, wd, plan.sizer)
 
-    def finish(res: dict) -> None:
-        idx = res["idx"]
-        inputs = plan.point(idx)
-        if res.get("applied"):
-            inputs["values"] = res["applied"]
-        store.record(sweep_id, idx, inputs, res["status"], res["metrics"], res["error"], res["seconds"])
-        counts["ran"] += 1
-        counts["failed"] += res["status"] == "failed"
-        if progress is not None:
-            progress(counts["ran"] + counts["skipped"], total, res)
-
+    co = _Coordinator(plan, store, sweep_id, attempts, progress, task)
     if cluster:
-        _run_dask(cluster, todo, task, finish, cluster_timeout_s)
+        _run_dask(cluster, co, cluster_timeout_s)
     else:
         n = max(1, int(workers or os.cpu_count() or 1))
         if n == 1:  # in this process: no pool to start (the engine still runs ngspice in its own process)
-            for idx in todo:
-                finish(run_point(*task(idx)))
+            while (idx := co.next_index()) is not None:
+                co.finish(run_point(*task(idx)))
         else:
-            _run_local(n, todo, task, finish)
-    return counts
+            _run_local(n, co)
+    return {**co.counts, "lost_left": co.lost_now()}
 
 
-def _run_local(n_workers: int, todo: Iterator[int], task, finish) -> None:
+# ---------------------------------------------------------------- local process pool
+
+_TASK_RUNNING = False
+
+
+def _pool_worker_init(parent_pid: int) -> None:  # pragma: no cover - runs in the pool worker
+    """Set up a pool worker: SIGTERM unwinds a running point (its simulator and temporary
+    folder are cleaned up) and ends the process; the parent's death sends SIGTERM."""
+    from netgen.lifeline import raise_on_sigterm, watch_parent
+
+    raise_on_sigterm(busy=lambda: _TASK_RUNNING)
+    watch_parent(parent_pid, kernel_signal=signal.SIGTERM,
+                 on_death=lambda: os.kill(os.getpid(), signal.SIGTERM))
+
+
+def _pool_point(*args) -> dict:  # pragma: no cover - runs in the pool worker
+    """:func:`run_point` in a pool worker; SIGTERM during the point ends the worker after the
+    point's clean-up has run (the pool itself would otherwise carry on with the next point)."""
+    global _TASK_RUNNING
+    from netgen.lifeline import EXIT_SIGTERM, Terminated
+
+    _TASK_RUNNING = True
+    try:
+        return run_point(*args)
+    except Terminated:
+        os._exit(EXIT_SIGTERM)
+    finally:
+        _TASK_RUNNING = False
+
+
+def _new_pool(n_workers: int, ctx):
+    from concurrent.futures import ProcessPoolExecutor
+
+    return ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx, initializer=_pool_worker_init,
+                               initargs=(os.getpid(),))
+
+
+def _run_local(n_workers: int, co: _Coordinator) -> None:
     """Process pool with a bounded window of submitted points (memory flat with sweep size).
 
-    A worker that dies (e.g. the simulator crashes the process) breaks the pool;
-    the points then in flight are re-run one by one in a fresh single-worker pool
-    so that only the point that kills its worker is recorded as failed.
+    A worker that dies (the simulator crashes the process, out of memory, a kill) breaks the
+    pool; the points then in flight are re-run one by one in a fresh single-worker pool, so
+    that a crash is pinned on the point that causes it (each such crash counts as an attempt).
     """
     import multiprocessing as mp
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures import FIRST_COMPLETED, wait
     from concurrent.futures.process import BrokenProcessPool
 
     ctx = mp.get_context("spawn")  # a fresh interpreter per worker: one simulator each, no inherited state
     window = 2 * n_workers
-    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx)
+    pool = _new_pool(n_workers, ctx)
     inflight: dict = {}
     try:
         while True:
             while len(inflight) < window:
-                idx = next(todo, None)
+                idx = co.next_index()
                 if idx is None:
                     break
-                inflight[pool.submit(run_point, *task(idx))] = idx
+                inflight[pool.submit(_pool_point, *co.task(idx))] = idx
             if not inflight:
                 break
             finished, _ = wait(inflight, return_when=FIRST_COMPLETED)
@@ -245,25 +386,29 @@ def _run_local(n_workers: int, todo: Iterator[int], task, finish) -> None:
             for fut in finished:
                 idx = inflight.pop(fut)
                 try:
-                    finish(fut.result())
+                    co.finish(fut.result())
                 except BrokenProcessPool:
                     broken = True
                     inflight[fut] = idx  # re-examined below
             if broken:
                 suspects = sorted(inflight.values())
                 inflight.clear()
-                pool.shutdown(wait=False, cancel_futures=True)
+                _terminate(pool)
                 for idx in suspects:
-                    finish(_run_isolated(ctx, task(idx), idx))
-                pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx)
-    except BaseException:  # interrupted (Ctrl-C) or our own error: do not wait for running points
+                    _run_alone(ctx, co, idx)
+                pool = _new_pool(n_workers, ctx)
+    except BaseException:  # interrupted (Ctrl-C, SIGTERM) or our own error: do not wait for running points
         _terminate(pool)
         raise
     pool.shutdown(wait=True)
 
 
 def _terminate(pool) -> None:
-    """Stop a pool's worker processes now (the points they run are lost and will re-run on resume)."""
+    """Stop a pool's worker processes now (the points they run are lost and will re-run on resume).
+
+    SIGTERM first, so that each worker ends its simulator and removes its temporary folders;
+    SIGKILL for any that has not gone after a few seconds.
+    """
     procs = list(getattr(pool, "_processes", {}).values())  # no public API before Python 3.14
     pool.shutdown(wait=False, cancel_futures=True)
     for proc in procs:
@@ -271,28 +416,62 @@ def _terminate(pool) -> None:
             proc.terminate()
     for proc in procs:
         proc.join(timeout=5)
+        if proc.is_alive():
+            proc.kill()
+            proc.join(timeout=5)
 
 
-def _run_isolated(ctx, args: tuple, idx: int) -> dict:
-    from concurrent.futures import ProcessPoolExecutor
+def _run_alone(ctx, co: _Coordinator, idx: int) -> None:
+    """Run one suspect point in a pool of its own, again while it crashes and has attempts left."""
     from concurrent.futures.process import BrokenProcessPool
 
-    t0 = time.perf_counter()
-    with ProcessPoolExecutor(max_workers=1, mp_context=ctx) as one:
+    while True:
+        t0 = time.perf_counter()
+        one = _new_pool(1, ctx)
         try:
-            return one.submit(run_point, *args).result()
+            res = one.submit(_pool_point, *co.task(idx)).result()
         except BrokenProcessPool:
-            return {"idx": idx, "status": "failed", "metrics": None,
-                    "error": "WorkerCrash: the worker process died while running this point (simulator crash or out of memory).",
-                    "seconds": time.perf_counter() - t0, "applied": {}}
+            res = _lost(idx, "WorkerCrash: the worker process died while running this point alone "
+                             "(simulator crash, out of memory or killed)", "crash", t0)
+        finally:
+            _terminate(one)
+        co.finish(res, retry=False)
+        if res["status"] != "lost" or res.get("fault") != "crash" or idx not in co.tried:
+            return
+        if co.tried[idx] >= co.max_attempts:
+            return
 
 
-def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float = 30.0) -> None:
-    """Submit points to a Dask distributed scheduler with a bounded window; record as they complete."""
+# ---------------------------------------------------------------- Dask
+
+def _run_dask(address: str, co: _Coordinator, timeout_s: float = 30.0) -> None:
+    """Submit points to a Dask distributed scheduler with a bounded window; record as they complete.
+
+    A task that raises there (run_point itself never does) is an infrastructure fault: a
+    cancelled task or a comm failure is lost and tried again; ``KilledWorker`` (Dask gave up
+    after the task's workers died) is lost to a crash. When the connection to the scheduler
+    drops, the points in flight are stored as lost and NetgenError names the scheduler.
+    """
     try:
         from distributed import Client, as_completed
     except ImportError:  # pragma: no cover - dask[distributed] is a dependency
         raise NetgenError("--cluster needs the 'distributed' package; pip install 'dask[distributed]'.") from None
+    import logging
+
+    # Dask's own reports of a lost connection would repeat our one-line error as tracebacks; its
+    # configuration gives some of its loggers levels of their own, so each is quietened
+    names = ["distributed", *(n for n in logging.root.manager.loggerDict if n.startswith("distributed."))]
+    levels = {n: logging.getLogger(n).level for n in names}
+    for n in names:
+        logging.getLogger(n).setLevel(logging.CRITICAL + 1)
+    try:
+        _dask_session(Client, as_completed, address, co, timeout_s)
+    finally:
+        for n, level in levels.items():
+            logging.getLogger(n).setLevel(level)
+
+
+def _dask_session(Client, as_completed, address: str, co: _Coordinator, timeout_s: float) -> None:
     try:
         client = Client(address, timeout=timeout_s)
     except (OSError, TimeoutError, ValueError) as exc:
@@ -304,10 +483,10 @@ def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float 
         keys: dict = {}
 
         def submit() -> bool:
-            idx = next(todo, None)
+            idx = co.next_index()
             if idx is None:
                 return False
-            fut = client.submit(run_point, *task(idx), pure=False)
+            fut = client.submit(run_point, *co.task(idx), pure=False)
             keys[fut.key] = idx
             ac.add(fut)
             return True
@@ -315,25 +494,47 @@ def _run_dask(address: str, todo: Iterator[int], task, finish, timeout_s: float 
         for _ in range(window):
             if not submit():
                 break
-        for fut in _completed(ac, client, keys):
+        for fut in _completed(ac, client, keys, address, co):
             idx = keys.pop(fut.key)
             try:
                 res = fut.result()
-            except Exception as exc:  # KilledWorker and the like: the point is failed, the sweep goes on
-                res = {"idx": idx, "status": "failed", "metrics": None,
-                       "error": f"WorkerCrash: {type(exc).__name__}: {exc}", "seconds": 0.0, "applied": {}}
+            except (Exception, asyncio.CancelledError) as exc:
+                if client.status != "running":  # the futures were cancelled because the scheduler went away
+                    keys[fut.key] = idx
+                    _scheduler_lost(address, co, keys)
+                crash = type(exc).__name__ == "KilledWorker"
+                res = _lost(idx, f"{'WorkerCrash' if crash else 'TaskLost'}: {type(exc).__name__}: {exc}",
+                            "crash" if crash else None)
             fut.release()
-            finish(res)
-            submit()
+            co.finish(res)
+            while len(keys) < window and submit():
+                pass
     finally:
-        client.close()
+        try:
+            client.close(timeout=2)
+        except Exception:  # noqa: BLE001 - a client whose scheduler is gone may complain while closing
+            pass
 
 
-def _completed(ac, client, keys: dict, poll_s: float = 30.0, lost_after: int = 2):
-    """Yield finished futures; raise NetgenError when the cluster has had no workers for a while.
+def _scheduler_lost(address: str, co: _Coordinator, keys: dict):
+    """Store the points in flight as lost and raise the error that names the lost scheduler."""
+    for idx in sorted(keys.values()):
+        co.finish(_lost(idx, f"SchedulerLost: the connection to the Dask scheduler at {address} was lost "
+                             "while this point ran", None), retry=False)
+    n = len(keys)
+    keys.clear()
+    raise NetgenError(
+        f"--cluster {address}: the connection to the Dask scheduler was lost (it stopped or the network "
+        f"failed); {n} point(s) in flight are stored as lost and the finished ones are kept; restart the "
+        "scheduler and its workers, then run the same command to resume.")
 
-    A point may legitimately run for minutes, so waiting is unbounded while workers exist;
-    but a cluster whose workers have all gone would otherwise leave the sweep waiting for ever.
+
+def _completed(ac, client, keys: dict, address: str, co: _Coordinator, poll_s: float = 30.0, lost_after: int = 2):
+    """Yield finished futures; raise NetgenError when the scheduler is lost or has had no workers for a while.
+
+    A point may legitimately run for minutes, so waiting is unbounded while the scheduler is
+    connected and has workers; the connection is checked every 0.05 s (the client notices a
+    closed connection at once), the workers every ``poll_s``.
     """
     empty = 0
     last_check = time.monotonic()
@@ -344,6 +545,8 @@ def _completed(ac, client, keys: dict, poll_s: float = 30.0, lost_after: int = 2
             empty = 0
             last_check = time.monotonic()
             continue
+        if client.status != "running":
+            _scheduler_lost(address, co, keys)
         time.sleep(0.05)
         if time.monotonic() - last_check < poll_s:
             continue

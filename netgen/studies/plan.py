@@ -313,22 +313,35 @@ def summarize(rows: Iterable[dict], specs: Sequence[Spec], n_points: int,
               confidence: float = 0.95, method: str = "clopper-pearson") -> dict:
     """Counts, per-spec pass counts and the yield with its confidence interval.
 
-    ``rows`` are stored points (``status``, ``metrics``). A failed or
-    not-settled point counts as failing every spec; points not yet run are
-    left out of the yield.
+    ``rows`` are stored points (``status``, ``metrics``). Only points with a result count:
+    ``ok``, ``not_settled`` and ``failed`` (a failed or not-settled point fails every spec).
+    A point lost to an infrastructure fault has no result, like a point not yet run: both are
+    left out of the yield and counted in ``missing``, so a crash of the machinery cannot bias
+    the yield.
+
+    Returns
+    -------
+    dict
+        ``points`` (in the plan), ``stored`` (rows), ``results`` (rows with a result),
+        ``missing`` (points without a result), ``ok``, ``not_settled``, ``failed``, ``lost``,
+        ``specs`` {spec: passes}; with specs and results also ``passed``, ``yield``,
+        ``yield_lo``, ``yield_hi``, ``confidence``, ``interval``.
     """
-    counts = {"ok": 0, "not_settled": 0, "failed": 0}
+    counts = {"ok": 0, "not_settled": 0, "failed": 0, "lost": 0}
     per_spec = {str(s): 0 for s in specs}
     passed = 0
-    n = 0
+    stored = 0
     for row in rows:
-        n += 1
+        stored += 1
         counts[row["status"]] = counts.get(row["status"], 0) + 1
+        if row["status"] == "lost":
+            continue
         ok = point_passes(row["status"], row["metrics"], ())
         for s in specs:
             per_spec[str(s)] += bool(ok and s.check(row["metrics"]))
         passed += point_passes(row["status"], row["metrics"], specs)
-    out = {"points": n_points, "stored": n, **counts, "specs": per_spec}
+    n = counts["ok"] + counts["not_settled"] + counts["failed"]
+    out = {"points": n_points, "stored": stored, "results": n, "missing": n_points - n, **counts, "specs": per_spec}
     if specs and n:
         lo, hi = yield_interval(passed, n, confidence, method)
         out.update({"passed": passed, "yield": passed / n, "yield_lo": lo, "yield_hi": hi,

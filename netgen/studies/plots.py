@@ -206,13 +206,16 @@ def plot_histograms(rows: Sequence[dict], specs: Sequence[Spec], path: Path,
                 ax.text(s.limit * scale, ax.get_ylim()[1] * 0.9, f" {s.op} {s.limit * scale:g}", color="#b22222", fontsize=8)
         ax.set_xlabel(label, fontsize=8)
         ax.set_ylabel("points", fontsize=8)
-    n = len(rows)
+    results = [r for r in rows if r["status"] != "lost"]  # a point lost to the machinery has no result
+    n = len(results)
+    lost = f", {len(rows) - n} lost" if len(rows) > n else ""
     if specs and n:
-        k = sum(point_passes(r["status"], r["metrics"], specs) for r in rows)
+        k = sum(point_passes(r["status"], r["metrics"], specs) for r in results)
         lo, hi = yield_interval(k, n)
-        title = f"yield {100 * k / n:.1f}% ({k}/{n}), 95% interval {100 * lo:.1f}..{100 * hi:.1f}% (Clopper-Pearson)"
+        title = (f"yield {100 * k / n:.1f}% ({k}/{n}{lost}), 95% interval {100 * lo:.1f}..{100 * hi:.1f}% "
+                 "(Clopper-Pearson)")
     else:
-        title = f"{n} points"
+        title = f"{n} points{lost}"
     fig.suptitle(title, fontsize=9)
     fig.tight_layout()
     return _save(fig, path)

@@ -8,10 +8,16 @@ Tables
     distribution), ``seed``, ``n_points``, ``created`` (UTC, ISO 8601).
 ``points``
     ``sweep_id``, ``idx`` (UNIQUE per sweep), ``inputs`` (JSON), ``status``
-    (``ok`` / ``not_settled`` / ``failed``), ``metrics`` (JSON, the
+    (``ok`` / ``not_settled`` / ``failed`` / ``lost``), ``metrics`` (JSON, the
     metrics.json contract), key metrics as columns for plain SQL
     (``drain_efficiency``, ``pout_w``, ``pdc_w``, ``peak_vd_v``,
-    ``peak_vd_over_vdd``, ``settled``), ``error``, ``seconds``.
+    ``peak_vd_over_vdd``, ``settled``), ``error``, ``seconds``, ``attempts``.
+
+``failed`` is the design's verdict (the simulator, the sizing or the validation refused the
+point) and is final. ``lost`` means the point was cut short by the machinery (a killed or
+crashed worker, a lost scheduler, a cancelled task, a full disk): it has no result, it is run
+again on resume, and the row is then replaced by the new attempt; ``attempts`` counts the runs
+of the point so far. Stores written before ``lost`` existed are upgraded in place on opening.
 
 Each finished point is committed at once (WAL journal), so a killed sweep loses
 at most the points that were running. Opening the same store with the same
@@ -29,6 +35,7 @@ import json
 import math
 import os
 import sqlite3
+from contextlib import contextmanager
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Iterator
@@ -41,7 +48,23 @@ STORE_NAME = "sweep.sqlite"
 #: metrics copied into their own columns
 KEY_COLUMNS = ("drain_efficiency", "pae", "pout_w", "pdc_w", "pin_w", "peak_vd_v", "peak_vd_over_vdd", "min_vd_v",
                "peak_id_a", "device_dissipation_w")
-STATUSES = ("ok", "not_settled", "failed")
+STATUSES = ("ok", "not_settled", "failed", "lost")
+#: statuses of a point with a result (the design's verdict); ``lost`` is not one of them
+RESULT_STATUSES = ("ok", "not_settled", "failed")
+
+_POINTS = f"""(
+    sweep_id INTEGER NOT NULL REFERENCES sweeps(id),
+    idx INTEGER NOT NULL,
+    inputs TEXT NOT NULL,
+    status TEXT NOT NULL CHECK (status IN ({", ".join(repr(x) for x in STATUSES)})),
+    metrics TEXT,
+    {", ".join(f"{c} REAL" for c in KEY_COLUMNS)},
+    settled INTEGER,
+    error TEXT,
+    seconds REAL,
+    attempts INTEGER NOT NULL DEFAULT 1,
+    UNIQUE (sweep_id, idx)
+)"""
 
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS sweeps (
@@ -53,25 +76,14 @@ CREATE TABLE IF NOT EXISTS sweeps (
     n_points INTEGER NOT NULL,
     created TEXT NOT NULL
 );
-CREATE TABLE IF NOT EXISTS points (
-    sweep_id INTEGER NOT NULL REFERENCES sweeps(id),
-    idx INTEGER NOT NULL,
-    inputs TEXT NOT NULL,
-    status TEXT NOT NULL CHECK (status IN ('ok', 'not_settled', 'failed')),
-    metrics TEXT,
-    {", ".join(f"{c} REAL" for c in KEY_COLUMNS)},
-    settled INTEGER,
-    error TEXT,
-    seconds REAL,
-    UNIQUE (sweep_id, idx)
-);
+CREATE TABLE IF NOT EXISTS points {_POINTS};
 """
 
 
 #: the columns each table must have (a foreign file with the same table names is refused)
 _COLUMNS = {
     "sweeps": ("id", "design_digest", "design_toml", "spec", "seed", "n_points", "created"),
-    "points": ("sweep_id", "idx", "inputs", "status", "metrics", *KEY_COLUMNS, "settled", "error", "seconds"),
+    "points": ("sweep_id", "idx", "inputs", "status", "metrics", "settled", "error", "seconds"),
 }
 
 
@@ -108,18 +120,21 @@ class SweepStore:
             self.con.execute("PRAGMA journal_mode=WAL")
             self.con.execute("PRAGMA synchronous=NORMAL")
             self.con.executescript(_SCHEMA)
+            self._check_schema()  # before anything is changed: a foreign file is refused as it is
             # a store written before a key column existed gets it (NULL for its points; the metrics JSON has them)
             have = {row[1] for row in self.con.execute("PRAGMA table_info(points)")}
             for col in KEY_COLUMNS:
                 if col not in have:
                     self.con.execute(f"ALTER TABLE points ADD COLUMN {col} REAL")
             self.con.commit()
-            self._check_schema()
+            _upgrade(self.con)
         except (OutputError, sqlite3.DatabaseError, OSError) as exc:
             self._undo(made_file, made_folder)  # a full disk leaves no empty store or folder behind
             if isinstance(exc, OutputError):
                 raise
             if isinstance(exc, sqlite3.DatabaseError):
+                if _is_full(exc):
+                    raise self._full_error() from None
                 raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another "
                                   "output folder.") from None
             raise OutputError(f"{self.path}: cannot create the sweep store ({exc.strerror}); choose another output folder.") from None
@@ -192,12 +207,13 @@ class SweepStore:
                     "choose another output folder with -o, or repeat the original options to resume."
                 )
             return int(sid)
-        cur = self.con.execute(
-            "INSERT INTO sweeps (design_digest, design_toml, spec, seed, n_points, created) VALUES (?, ?, ?, ?, ?, ?)",
-            (design_digest, design_toml, spec_json, seed, int(n_points),
-             datetime.now(timezone.utc).isoformat(timespec="seconds")),
-        )
-        self.con.commit()
+        with self._writing("start the sweep"):
+            cur = self.con.execute(
+                "INSERT INTO sweeps (design_digest, design_toml, spec, seed, n_points, created) VALUES (?, ?, ?, ?, ?, ?)",
+                (design_digest, design_toml, spec_json, seed, int(n_points),
+                 datetime.now(timezone.utc).isoformat(timespec="seconds")),
+            )
+            self.con.commit()
         return int(cur.lastrowid)
 
     @_db_errors
@@ -221,34 +237,84 @@ class SweepStore:
     # ------------------------------------------------------------ points
 
     @_db_errors
-    def done_indices(self, sweep_id: int) -> set[int]:
-        """Indices of the points already stored (any status)."""
-        return {r[0] for r in self.con.execute("SELECT idx FROM points WHERE sweep_id = ?", (sweep_id,))}
+    def done_indices(self, sweep_id: int, max_attempts: int | None = None) -> set[int]:
+        """Indices not to run again: points with a result (``ok``, ``not_settled``, ``failed``)
+        and, given ``max_attempts``, points ``lost`` after that many attempts."""
+        q = f"SELECT idx FROM points WHERE sweep_id = ? AND (status IN {RESULT_STATUSES!r}"
+        args: tuple = (sweep_id,)
+        if max_attempts is not None:
+            q += " OR attempts >= ?"
+            args += (int(max_attempts),)
+        return {r[0] for r in self.con.execute(q + ")", args)}
+
+    @_db_errors
+    def lost_attempts(self, sweep_id: int) -> dict[int, int]:
+        """``{idx: attempts}`` of the points stored as ``lost``."""
+        return dict(self.con.execute("SELECT idx, attempts FROM points WHERE sweep_id = ? AND status = 'lost'",
+                                     (sweep_id,)))
 
     @_db_errors
     def record(self, sweep_id: int, idx: int, inputs: dict, status: str, metrics: dict | None,
                error: str | None, seconds: float) -> bool:
-        """Store one finished point and commit. Returns False if ``idx`` was already stored (kept as is)."""
+        """Store one finished attempt of a point and commit.
+
+        A new point is inserted with ``attempts`` 1; a point stored as ``lost`` is replaced by the
+        new attempt (``attempts`` + 1); a point with a result is kept as is (returns False).
+
+        Raises
+        ------
+        OutputError
+            When the store cannot be written (a full disk among others); what was stored
+            before stays stored and consistent (the failed transaction is rolled back).
+        """
         if status not in STATUSES:
             raise ValueError(f"status {status!r} not one of {STATUSES}")
         m = metrics or {}
         keys = [_num(m.get(c)) for c in KEY_COLUMNS]
         settled = None if metrics is None else int(bool(m.get("settled")))
-        cur = self.con.execute(
-            f"INSERT OR IGNORE INTO points (sweep_id, idx, inputs, status, metrics, {', '.join(KEY_COLUMNS)}, "
-            f"settled, error, seconds) VALUES ({', '.join('?' * (8 + len(KEY_COLUMNS)))})",
-            (sweep_id, int(idx), json.dumps(inputs, sort_keys=True), status,
-             None if metrics is None else json.dumps(metrics, sort_keys=True), *keys, settled, error,
-             float(seconds)),
-        )
-        self.con.commit()
+        cols = ["inputs", "status", "metrics", *KEY_COLUMNS, "settled", "error", "seconds"]
+        with self._writing(f"store point {idx}"):
+            cur = self.con.execute(
+                f"INSERT INTO points (sweep_id, idx, {', '.join(cols)}) VALUES ({', '.join('?' * (2 + len(cols)))}) "
+                f"ON CONFLICT (sweep_id, idx) DO UPDATE SET {', '.join(f'{c} = excluded.{c}' for c in cols)}, "
+                "attempts = points.attempts + 1 WHERE points.status = 'lost'",
+                (sweep_id, int(idx), json.dumps(inputs, sort_keys=True), status,
+                 None if metrics is None else json.dumps(metrics, sort_keys=True), *keys, settled, error,
+                 float(seconds)),
+            )
+            self.con.commit()
         return cur.rowcount == 1
 
+    @contextmanager
+    def _writing(self, what: str):
+        """Turn a failed write into one OutputError, after rolling the transaction back."""
+        try:
+            yield
+        except sqlite3.DatabaseError as exc:
+            try:
+                self.con.rollback()
+            except sqlite3.DatabaseError:
+                pass
+            if _is_full(exc):
+                raise self._full_error() from None
+            raise OutputError(f"{self.path}: cannot {what} ({exc}); the points stored so far are kept; "
+                              "fix the cause and run the same command to resume.") from None
+
+    def _full_error(self) -> OutputError:
+        try:
+            n = self.con.execute("SELECT COUNT(*) FROM points WHERE status != 'lost'").fetchone()[0]
+            kept = f"the {n} point(s) stored so far are kept"
+        except sqlite3.DatabaseError:
+            kept = "the points stored so far are kept"
+        return OutputError(f"{self.path}: the disk is full; {kept}; free some space and run the same command to resume.")
+
     def rows(self, sweep_id: int) -> Iterator[dict]:
-        """Stored points in index order: ``idx``, ``inputs``, ``status``, ``metrics``, ``error``, ``seconds``."""
+        """Stored points in index order: ``idx``, ``inputs``, ``status``, ``metrics``, ``error``,
+        ``seconds``, ``attempts``."""
         try:
             cur = self.con.execute(
-                "SELECT idx, inputs, status, metrics, error, seconds FROM points WHERE sweep_id = ? ORDER BY idx",
+                "SELECT idx, inputs, status, metrics, error, seconds, attempts FROM points WHERE sweep_id = ? "
+                "ORDER BY idx",
                 (sweep_id,),
             )
             for row in cur:
@@ -256,7 +322,7 @@ class SweepStore:
         except sqlite3.DatabaseError as exc:
             raise self._corrupt(f"cannot be read ({exc})") from None
 
-    def _row(self, idx, inputs, status, metrics, error, seconds) -> dict:
+    def _row(self, idx, inputs, status, metrics, error, seconds, attempts=1) -> dict:
         """One stored point, checked: a row another program wrote or a damaged one is an OutputError."""
         where = f"point {idx}"
         if not isinstance(idx, int):
@@ -272,8 +338,10 @@ class SweepStore:
             raise self._corrupt(f"{where} has the status {str(status)[:20]!r} or an error of the wrong kind")
         if seconds is not None and not isinstance(seconds, (int, float)):
             raise self._corrupt(f"{where} has a run time of the wrong kind")
+        if not isinstance(attempts, int):
+            raise self._corrupt(f"{where} has an attempt count of the wrong kind")
         return {"idx": idx, "inputs": inputs, "status": status, "metrics": metrics, "error": error,
-                "seconds": seconds}
+                "seconds": seconds, "attempts": attempts}
 
     @_db_errors
     def count(self, sweep_id: int) -> dict:
@@ -284,6 +352,36 @@ class SweepStore:
         ):
             out[status] = n
         return out
+
+
+def _is_full(exc: BaseException) -> bool:
+    """True for SQLite's SQLITE_FULL ("database or disk is full")."""
+    return getattr(exc, "sqlite_errorcode", None) == sqlite3.SQLITE_FULL or "disk is full" in str(exc)
+
+
+def _upgrade(con: sqlite3.Connection) -> None:
+    """Bring a store written before the ``lost`` status and the ``attempts`` column up to date.
+
+    SQLite cannot change a CHECK constraint in place, so the points table is copied into one
+    with the current definition, in one transaction (all or nothing).
+    """
+    row = con.execute("SELECT sql FROM sqlite_master WHERE type = 'table' AND name = 'points'").fetchone()
+    if row is None or "'lost'" in row[0]:
+        return
+    old = [r[1] for r in con.execute("PRAGMA table_info(points)")]
+    con.execute("BEGIN IMMEDIATE")
+    try:
+        con.execute("DROP TABLE IF EXISTS points_upgraded")
+        con.execute(f"CREATE TABLE points_upgraded {_POINTS}")
+        new = {r[1] for r in con.execute("PRAGMA table_info(points_upgraded)")}
+        cols = ", ".join(c for c in old if c in new)
+        con.execute(f"INSERT INTO points_upgraded ({cols}) SELECT {cols} FROM points")
+        con.execute("DROP TABLE points")
+        con.execute("ALTER TABLE points_upgraded RENAME TO points")
+        con.commit()
+    except BaseException:
+        con.rollback()
+        raise
 
 
 def _num(v) -> float | None:
