@@ -94,7 +94,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "roff": Key("roff_ohm", "ohm", "1 Mohm", "Switch off-resistance.", lo=1.0, hi=1e15),
         "transition": Key("transition", "", 0.0, "Switch edge time as a fraction of the period; 0 is an abrupt switch. A finite edge is a real loss (the switch conducts while the voltage is high).", lo=0.0, hi=0.25),
         "duty": Key("duty", "", 0.5, "Fraction of the period the switch is on.", lo=0.05, hi=0.95),
-        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source).", lo=0.0, hi=1.0),
+        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source, at the current generator: the intrinsic plane). Sizing absorbs it (docs/topologies.md, 'The intrinsic plane').", lo=0.0, hi=1.0),
+        "package_l": Key("package_l_h", "H", "0 H", "Package series inductance Ld between Cout and the drain terminal (bond wire); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
+        "package_c": Key("package_c_f", "F", "0 F", "Package shunt capacitance Cp at the drain terminal (the package plane); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
         "imax": Key("imax_a", "A", None, "gm device: peak drain current; default sized from the design (Raab/Cripps Fourier coefficients).", lo=0.0, hi=1e4, lo_open=True),
         "vknee": Key("vknee_v", "V", "0 V", "gm device: knee voltage (drain current = gm-limited current x tanh(vds/vknee)).", lo=0.0, hi=1e3),
         "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
@@ -147,6 +149,8 @@ class DeviceSpec:
     transition: float = 0.0
     duty: float = 0.5
     cout_f: float = 0.0
+    package_l_h: float = 0.0
+    package_c_f: float = 0.0
     imax_a: float | None = None
     vknee_v: float = 0.0
     conduction_angle_deg: float = 180.0

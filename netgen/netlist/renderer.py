@@ -22,11 +22,13 @@ from jinja2.sandbox import SandboxedEnvironment
 from netgen import __version__
 from netgen.design import SizedDesign
 from netgen.errors import RenderError
-from netgen.synthesis import element_name, line_plan, loss_ohm, tail_plan
+from netgen.synthesis import comp_branches, element_name, line_plan, loss_ohm, tail_plan
 
 __all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "portable_cards", "MODES", "DIALECTS"]
 
 MODES = ("tran", "ac", "op")
+#: where an ``ac`` netlist puts its port: the drain terminal (the network alone) or the generator
+PLANES = ("package", "intrinsic")
 DIALECTS = ("ngspice", "portable")
 #: default AC grid: this many points per f0 from f0/AC_POINTS_PER_F0 up to harmonics x f0
 AC_POINTS_PER_F0 = 50
@@ -135,7 +137,7 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
 
 
 def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None,
-                     ic=None, ac_freqs_hz=None, idc_a=None) -> dict:
+                     ic=None, ac_freqs_hz=None, idc_a=None, plane: str = "package") -> dict:
     """The variables a template sees (documented in docs/template_context.md)."""
     d = sized.design
     dev = d.device
@@ -178,6 +180,8 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "transition": dev.transition,
         "duty": dev.duty,
         "cout_f": dev.cout_f,
+        "package_l_h": dev.package_l_h,
+        "package_c_f": dev.package_c_f,
         "vknee_v": dev.vknee_v,
         "drive": dev.drive,
         "rgate_ohm": dev.rgate_ohm,
@@ -218,7 +222,8 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "dialect": dialect,
         "ic": ic,
         "tran": {"tstep_s": tmax, "tstop_s": tstop, "tmax_s": tmax, "minbreak_s": 0.01 * tmax},
-        "ac": {"points": ac[0], "fstart_hz": ac[1], "fstop_hz": ac[2]},
+        "ac": {"points": ac[0], "fstart_hz": ac[1], "fstop_hz": ac[2], "plane": plane},
+        "comp_branches": comp_branches(sized),
         "idc_a": float(idc_a) if idc_a is not None else sized.idc_est_a,
         "header_lines": _header_lines(sized, mode, dialect),
         "ropt_ohm": sized.ropt_ohm,
@@ -275,7 +280,7 @@ def _include(sized: SizedDesign, dialect: str) -> dict:
 
 
 def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None, ic=None,
-           ac_freqs_hz=None, idc_a=None) -> str:
+           ac_freqs_hz=None, idc_a=None, plane: str = "package") -> str:
     """Netlist text for ``sized``.
 
     Parameters
@@ -295,6 +300,10 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
         ``sim.harmonics`` x f0).
     idc_a : float, optional
         DC current drawn at the drain in ``op`` mode (default ``sized.idc_est_a``).
+    plane : {"package", "intrinsic"}
+        ``ac`` mode only: the port at the drain terminal with the device removed (``package``,
+        Z = v(drain)), or at the generator node ``dint`` with the device's Cout and package
+        kept (``intrinsic``, Z = v(dint); docs/netlist_conventions.md).
 
     Raises
     ------
@@ -305,7 +314,10 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
         raise RenderError(f"mode: '{mode}' is not one of {', '.join(MODES)}.")
     if dialect not in DIALECTS:
         raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
-    ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a)
+    if plane not in PLANES:
+        raise RenderError(f"plane: '{plane}' is not one of {', '.join(PLANES)}.")
+    ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a,
+                           plane=plane)
     env = _environment()
     d = sized.design
     try:

@@ -105,6 +105,8 @@ def _save_list(elements: dict) -> tuple[list[str], list[str]]:
     all_nodes = {t.lower() for toks in elements.values() for t in toks[1:3]}
     if "gate" in all_nodes:
         nodes.add("gate")
+    if "dint" in all_nodes:  # the generator node: the intrinsic plane (docs/netlist_conventions.md)
+        nodes.add("dint")
     for key, toks in elements.items():
         if key.startswith("RLOSS_"):
             nodes.update(t.lower() for t in toks[1:3] if t not in ("0", "gnd"))
@@ -149,7 +151,7 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
 
 #: Waveforms.fourier key -> (saved vector, sign): currents follow the Waveforms.i conventions
 FOURIER_VECTORS = {
-    "drain_v": ("drain", 1.0), "load_v": ("load", 1.0), "vdd_v": ("vdd", 1.0), "gate_v": ("gate", 1.0),
+    "drain_v": ("drain", 1.0), "int_v": ("dint", 1.0), "load_v": ("load", 1.0), "vdd_v": ("vdd", 1.0), "gate_v": ("gate", 1.0),
     "drain_i": ("vidrain#branch", 1.0), "switch_i": ("visw#branch", 1.0),
     "supply_i": ("vdd#branch", -1.0), "gate_i": ("vdrive#branch", -1.0),
 }

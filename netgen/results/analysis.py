@@ -26,6 +26,8 @@ from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in
 from netgen.synthesis import bound_for
 
+from .planes import PLANES, intrinsic_columns, plane_warnings
+
 __all__ = [
     "parse_loss_elements",
     "load_resistance",
@@ -267,6 +269,18 @@ def _harmonic_table(V: np.ndarray, I: np.ndarray, pload_n: np.ndarray, n_h: int)
     return table
 
 
+def _intrinsic_coefficients(wf, exact: dict, periods: int, n_h: int, V: np.ndarray, I: np.ndarray):
+    """Fourier coefficients of the generator voltage (node dint) and current (VISW), the intrinsic
+    plane; the drain-terminal ones where the run has no such node (a user template)."""
+    v_int = exact.get("int_v")
+    if v_int is None:
+        v_int = fourier(np.asarray(wf.v["dint"], float), periods, n_h) if "dint" in wf.v else V
+    i_gen = exact.get("switch_i")
+    if i_gen is None:
+        i_gen = fourier(np.asarray(wf.i["switch"], float), periods, n_h) if "switch" in wf.i else I
+    return v_int, i_gen
+
+
 def _loss_budget(wf, design, netlist_text: str, vd: np.ndarray, isw: np.ndarray, load_harmonics_w: float) -> dict:
     """Every watt drawn from Vdd, by where it goes: the device (conduction, switching), each
     ``RLOSS_*`` resistor, and the load power outside the fundamental (W)."""
@@ -347,6 +361,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     pae = (pout - pin) / pdc if (pin is not None and pdc > 0) else None
 
     table = _harmonic_table(V, I, pload_n, n_h)
+    v_int, i_gen = _intrinsic_coefficients(wf, exact, periods, n_h, V, I)
+    for row, extra in zip(table, intrinsic_columns(v_int, i_gen, n_h, harmonic_impedance)):
+        row.update(extra)
 
     losses = _loss_budget(wf, design, netlist_text, vd, isw, pload_total - pout)
     balance = (pdc - pout - sum(losses.values())) / pdc if pdc > 0 else None
@@ -387,6 +404,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
         "min_id_a": _f(id_min),
         "peak_vd_range_v": _range(peaks, "vd_max_lo_v", "vd_max_hi_v"),
         "peak_id_range_a": _range(peaks, "id_max_lo_a", "id_max_hi_a"),
+        "peak_vint_v": _f(np.max(wf.v["dint"])) if "dint" in wf.v else _f(vd_max),
+        "planes": dict(PLANES),
+        "cout_series_ohm": _cout_series(netlist_text),
         "harmonics": table,
         "losses": {k: _f(v) for k, v in losses.items()},
         "loss_balance_error": _f(balance),
@@ -394,8 +414,16 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     }
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
-    metrics["warnings"] = design_warnings(sized, metrics)
+    metrics["warnings"] = design_warnings(sized, metrics) + plane_warnings(sized, metrics)
     return metrics
+
+
+def _cout_series(netlist_text: str) -> float:
+    """The series resistance the transient netlist gives Cout (``RLOSS_cout``), ohm; 0 without."""
+    for name, _a, _b, r in _loss_elements(netlist_text):
+        if name.lower() == "rloss_cout":
+            return float(r)
+    return 0.0
 
 
 #: per-period drain peaks spreading by more than this fraction over the averaged periods are said

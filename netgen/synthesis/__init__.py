@@ -18,6 +18,12 @@ from importlib import import_module
 _EXPORTS = {
     "TOPOLOGY_REGISTRY": "topologies",
     "bound_for": "theory",
+    "class_e_fmax_hz": "intrinsic",
+    "comp_branches": "network",
+    "controlled_pattern": "intrinsic",
+    "parasitics": "intrinsic",
+    "to_intrinsic": "intrinsic",
+    "z_intrinsic": "network",
     "element_name": "builder",
     "get_topology": "topologies",
     "line_plan": "network",
