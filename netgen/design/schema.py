@@ -111,7 +111,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "network": {
         "loaded_q": Key("loaded_q", "", 5.0, "Loaded Q of the f0 tank / series-tuned output (sets tank L and C).", lo=0.5, hi=1000.0),
         "resonator_z": Key("resonator_z_ohm", "ohm", None, "class_f_lumped: characteristic impedance sqrt(L/C) of the harmonic resonators (default: balances the even-harmonic short against the odd-harmonic open for the inductor Q, about 0.1-0.2 Ropt; see netgen.synthesis.sizing.lumped_resonator_z).", lo=0.1, hi=1e5),
-        "harmonics": Key("harmonics", "int", 2, "class_f_lumped: number of odd harmonics with a resonator (3f0 .. (2N+1)f0).", lo=1, hi=10),
+        "harmonics": Key("harmonics", "int", 2, "class_f_lumped: number of odd harmonics with a resonator (3f0 .. (2N+1)f0); with a device Cout (or package) in class F and inverse F: number of harmonics the Cout compensator opens (class F 3f0 .. (2N+1)f0, inverse F 2f0 .. 2N f0).", lo=1, hi=10),
         "eps_eff": Key("eps_eff", "", 1.0, "Effective relative permittivity of the lines (for the physical length of a quarter-wave line).", lo=1.0, hi=200.0),
         "inductor_q": Key("inductor_q", "", _INF, "Unloaded Q of every inductor at f0 (a series resistance omega0*L/Q); inf is lossless.", lo=1.0, hi=_INF),
         "capacitor_esr": Key("capacitor_esr_ohm", "ohm", "0 ohm", "Series resistance of every RF capacitor.", lo=0.0, hi=100.0),

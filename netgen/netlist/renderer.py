@@ -189,7 +189,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "vgate_amp_v": dev.vgate_amp_v,
         "conduction_angle_deg": dev.conduction_angle_deg,
     }
-    device["cout_rs_ohm"] = cout_series_ohm(dev.cout_f, period, tmax) if (lines and dev.cout_f > 0) else 0.0
+    device["cout_rs_ohm"] = cout_series_ohm(dev.cout_f, period, tmax) if (lines and dev.cout_f > 0 and not _soft_turn_on(d)) else 0.0
     if dev.model == "switch":
         edge = dev.transition * period if dev.transition > 0 else period / 200.0
         pw = dev.duty * period - edge
@@ -230,6 +230,21 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "version": __version__,
         "digest": sized.digest(),
     }
+
+
+def _soft_turn_on(design) -> bool:
+    """Inverse class F: the switch turns on near zero voltage (half-sine drain voltage), so Cout is
+    not hard-discharged into the line and needs no series resistance. Measured: sims/inverse_f_line.toml
+    settles in 6 cycles with the ideal Cout (efficiency 0.9249 against 0.9194 with the resistance), and a
+    5.8 GHz 0.8 pF design in 6 cycles (0.893 against 0.728: the resistance took 0.49 W of the circulating
+    Cout current); the class-F examples do not settle without it (docs/simulation.md)."""
+    from netgen.errors import NetgenError
+    from netgen.synthesis import resolve_topology
+
+    try:
+        return resolve_topology(design).wave_class == "invF"
+    except NetgenError:
+        return False
 
 
 def cout_series_ohm(cout_f: float, period_s: float, tmax_s: float) -> float:

@@ -40,6 +40,9 @@ __all__ = ["Parasitics", "parasitics", "to_intrinsic", "f0_target_admittance", "
 #: inverse F: the compensator's shunt inductor sits behind a DC block whose series resonance is
 #: at f0/INV_F_BLOCK_RATIO, far below every harmonic it acts at (our choice)
 INV_F_BLOCK_RATIO = 5.0
+#: inverse F: one branch resonates between f0 and 2f0 (capacitive at f0, inductive at 2f0), so
+#: the compensator can cancel the device's reactance at f0 and at the even harmonics at once
+INV_F_MID = 1.5
 #: peak switch current over DC current in ideal class E, Imax = 2.862 Idc (Raab 1977)
 SOKAL_IMAX_FACTOR = 2.862
 
@@ -125,12 +128,12 @@ def compensator_plan(design, wave_class: str, ropt_ohm: float, known_b=None) -> 
     Class F: a shunt inductor behind a DC block (series resonance f0/5) and traps resonating
     in series at the even harmonics 2f0, 4f0, .. 2K f0 (where the network wants shorts anyway;
     Grebennikov's harmonic traps, recalled from memory), inductive at the odd harmonics above
-    them. One more condition, at f0, makes the compensator cancel the imaginary part of the
-    de-embedded f0 target too, so the rest of the network is sized for a real resistance
-    (its quarter-wave line then keeps Z0 = sqrt(R RL) and its harmonic opens).
-    Inverse F: the shunt inductor behind its block and traps at the odd harmonics 3f0 ..
-    (2K-1) f0; the f0 reactance is absorbed by re-tuning the series f0 resonator instead
-    (:func:`f0_target_admittance`). Each branch ``L_k, C_k = 1/(w_k^2 L_k)`` has the
+    them. Inverse F: the shunt inductor behind its block, a branch resonating at 1.5 f0 and
+    traps at the odd harmonics 3f0 .. (2K-1) f0. In both, one more condition, at f0, makes
+    the compensator cancel the imaginary part of the de-embedded f0 target too, so the rest
+    of the network is sized for a real resistance: its quarter-wave line keeps
+    Z0 = sqrt(R RL) and carries no circulating f0 current (absorbing a large Cout in the line
+    instead made a 0.3 dB line dissipate 5 W of a 2 W design). Each branch ``L_k, C_k = 1/(w_k^2 L_k)`` has the
     susceptance ``-g_k / (w (1 - w_k^2/w^2))``, ``g_k = 1/L_k``: linear in ``g``, so the
     conditions are one square solve (Foster 1924: a positive-element LC one-port).
 
@@ -151,8 +154,8 @@ def compensator_plan(design, wave_class: str, ropt_ohm: float, known_b=None) -> 
         targets = [1] + [2 * k + 1 for k in range(1, k_n + 1)]
         res = [1.0 / INV_F_BLOCK_RATIO] + [2.0 * k for k in range(1, k_n + 1)]
     elif wave_class == "invF":
-        targets = [2 * k for k in range(1, k_n + 1)]
-        res = [1.0 / INV_F_BLOCK_RATIO] + [2.0 * k + 1 for k in range(1, k_n)]
+        targets = [1] + [2 * k for k in range(1, k_n + 1)]
+        res = [1.0 / INV_F_BLOCK_RATIO, INV_F_MID] + [2.0 * k + 1 for k in range(1, k_n)]
     else:
         return []
     size = len(targets)

@@ -52,7 +52,7 @@ def absorb_parasitics(b: Builder, wave_class: str, ropt: float, feed_at_drain: b
         what = (f"series resonance {fr / d.f0_hz:g} f0" if fr >= d.f0_hz else
                 f"a shunt inductor behind a DC block (series resonance {fr / d.f0_hz:g} f0)")
         src = (f"Cout compensator branch {k} ({what}): with the other branches it cancels Cout = {par.cout_f:.4g} F, "
-               f"Ld = {par.ld_h:.4g} H, Cp = {par.cp_f:.4g} F at the {targets}{'and at f0 ' if wave_class == 'F' else ''} "
+               f"Ld = {par.ld_h:.4g} H, Cp = {par.cp_f:.4g} F at the {targets} and at f0  "
                "(Foster's reactance theorem, 1924; harmonic traps per Grebennikov, recalled from memory)")
         b.add(f"comp{k}_l", "L", lval, f"{src}: L = 1/g from the K x K susceptance solve", "comp")
         b.add(f"comp{k}_c", "C", 1.0 / ((2 * math.pi * fr) ** 2 * lval), f"{src}: C = 1/(omega_k^2 L)", "comp")
