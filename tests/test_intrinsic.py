@@ -166,3 +166,72 @@ def test_package_plane_unchanged_without_parasitics():
     f = HARM * d.f0_hz
     assert_allclose(z_intrinsic(s, f), z_drain(s, f), rtol=1e-12)
     assert not any(n.startswith("comp") for n in s.components)
+
+
+def _rows_from(z):
+    return [{"n": n, "z_int_re_ohm": float(zn.real), "z_int_im_ohm": float(zn.imag)} for n, zn in enumerate(z, start=1)]
+
+
+def test_plane_warnings_name_harmonic_plane_value_cause():
+    # Cout put back into a network sized without it: the intrinsic-plane targets (Ropt within 10 %,
+    # opens > 3 Ropt, shorts < Ropt/3) are missed and each warning names the harmonic, the plane,
+    # the value and "Cout / package not absorbed"
+    import dataclasses
+
+    from netgen.results.planes import plane_warnings
+
+    d = heavy_cout("inverse_f_line").design
+    bare = size(dataclasses.replace(d, device=dataclasses.replace(d.device, cout_f=0.0)))
+    s = dataclasses.replace(bare, design=d)
+    z = z_intrinsic(s, HARM * d.f0_hz)
+    warns = plane_warnings(s, {"harmonics": _rows_from(z)})
+    assert any(w.startswith("f0 at the intrinsic plane") for w in warns), warns
+    assert any(w.startswith("2 f0 at the intrinsic plane") and "wanted an open" in w for w in warns), warns
+    assert all("Cout / package not absorbed" in w for w in warns), warns
+    assert f"{abs(z[1]):.3g} ohm" in next(w for w in warns if w.startswith("2 f0"))
+    # the absorbed design meets every target: no warning
+    s_ok = heavy_cout("inverse_f_line")
+    assert plane_warnings(s_ok, {"harmonics": _rows_from(z_intrinsic(s_ok, HARM * d.f0_hz))}) == []
+
+
+def test_plane_warnings_lossy_resonator_cause():
+    # a lossy network (inductor Q 3) misses the 3f0 open of lumped class F; the lossless model meets it
+    from netgen.results.planes import plane_warnings
+
+    d = load_design(SIMS / "class_f_lumped.toml")
+    raw = dict(d.raw)
+    raw["network"] = {**raw["network"], "inductor_q": 3}
+    s = size(design_from_dict(raw, source=d.source))
+    z = z_intrinsic(s, HARM * d.f0_hz)
+    warns = plane_warnings(s, {"harmonics": _rows_from(z)})
+    assert any("lossy resonator" in w for w in warns), warns
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_inverse_f_5g8_efficiency_with_cout_absorbed():
+    # Our own design: 5.8 GHz, 2 W, 12 V inverse F, 0.3 dB line, Cout 0.8 pF (X_Cout = 0.39 Ropt).
+    # With Cout absorbed, the efficiency is within 10 points of the same design with Cout = 0
+    # (the target); measured 0.893 against 0.902. Without absorption it was about 25 %.
+    from netgen.periodic.steady import simulate
+    from netgen.results.analysis import analyse
+
+    def run(cout):
+        d = design_from_dict({
+            "design": {"name": "invf_5g8", "topology": "inverse_f_line", "f0": "5.8 GHz", "vdd": "12 V",
+                       "load": "50 ohm", "pout": "2 W"},
+            "device": {"model": "switch", "ron": "0.2 ohm", "cout": cout},
+            "network": {"loaded_q": 5, "line_loss": "0.3 dB", "eps_eff": 3.0},
+            "sim": {"points_per_cycle": 500, "max_cycles": 400},
+        })
+        s = size(d)
+        wf = simulate(s, backend="batch")
+        m = analyse(wf, s, render(s, "tran"))
+        assert m["settled"] and m["start"]["method"] == "periodic"
+        return m
+
+    with_cout, without = run("0.8 pF"), run("0 F")
+    assert abs(with_cout["drain_efficiency"] - without["drain_efficiency"]) < 0.10
+    # and the generator sees Ropt within 10 % (metrics at the intrinsic plane)
+    z1 = complex(with_cout["harmonics"][0]["z_int_re_ohm"], with_cout["harmonics"][0]["z_int_im_ohm"])
+    assert abs(z1 - with_cout["design"]["ropt_ohm"]) < 0.1 * with_cout["design"]["ropt_ohm"]
