@@ -27,6 +27,7 @@ from netgen.periodic import fourier, periods_in
 from netgen.synthesis import bound_for
 
 from .planes import PLANES, intrinsic_columns, plane_warnings
+from .stress import part_stress, stress_summary
 
 __all__ = [
     "parse_loss_elements",
@@ -414,6 +415,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     }
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
+    metrics["stress"] = {k: {kk: (_f(vv) if isinstance(vv, float) else vv) for kk, vv in r.items()}
+                         for k, r in part_stress(wf, netlist_text).items()}
+    metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = design_warnings(sized, metrics) + plane_warnings(sized, metrics)
     return metrics
 

@@ -180,6 +180,10 @@ def format_table(metrics: dict) -> str:
     if losses:
         lines.append("")
         lines.append("  losses (W): " + ", ".join(f"{k} {_num(v, '{:.3g}')}" for k, v in losses.items()))
+    if metrics.get("stress_cap_v_peak_part") or metrics.get("stress_ind_i_peak_part"):
+        lines.append(f"  worst part stress: {metrics.get('stress_cap_v_peak_part')} {_num(metrics.get('stress_cap_v_peak_v'))} V peak; "
+                     f"{metrics.get('stress_ind_i_peak_part')} {_num(metrics.get('stress_ind_i_peak_a'))} A peak "
+                     "(every part: report, metrics.json stress)")
     return "\n".join(_wrap80(line) for line in lines)
 
 
@@ -346,6 +350,18 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                  "1e-3 of the fundamental. Intrinsic plane: the device's current generator inside its output "
                  "capacitance and package (node dint, current through VISW), where the class's waveforms are defined; "
                  "package plane: the drain terminal (node drain, current through VIDRAIN).</p>")
+
+    stress = metrics.get("stress") or {}
+    if stress:
+        parts.append("<h2>Stress on every part</h2><table><tr><th class=l>element</th><th>peak |v| (V)</th>"
+                     "<th>peak RF swing (V)</th><th>peak |i| (A)</th><th>RMS i (A)</th><th>dissipated (W)</th></tr>")
+        for name, r in stress.items():
+            parts.append(f"<tr><td class=l>{_e(name)}</td>" + "".join(f"<td>{_e(_num(r.get(k)))}</td>" for k in (
+                "v_peak_v", "v_ac_peak_v", "i_peak_a", "i_rms_a", "p_loss_w")) + "</tr>")
+        parts.append("</table><p class=sub>Across and through each inductor and capacitor over the stored periods "
+                     "(the DC across a DC block included in the peak |v|); derate from these values. High RF "
+                     "voltages and currents can burn: follow local codes and licensed practice when building "
+                     "and measuring.</p>")
 
     parts.append("<h2>Loss budget</h2><table><tr><th class=l>where the DC power goes</th><th>W</th><th>% of Pdc</th></tr>")
     pdc = metrics.get("pdc_w") or 0.0

@@ -37,6 +37,9 @@ from netgen.errors import OutputError
 __all__ = ["SweepStore", "export_csv", "KEY_COLUMNS", "STORE_NAME"]
 
 STORE_NAME = "sweep.sqlite"
+#: the worst part of each kind (netgen.results.stress.stress_summary), in the CSV export
+STRESS_COLUMNS = ("stress_cap_v_peak_v", "stress_cap_v_peak_part", "stress_ind_i_peak_a", "stress_ind_i_peak_part",
+                  "stress_max_loss_w", "stress_max_loss_part")
 #: metrics copied into their own columns
 KEY_COLUMNS = ("drain_efficiency", "pout_w", "pdc_w", "peak_vd_v", "peak_vd_over_vdd")
 STATUSES = ("ok", "not_settled", "failed")
@@ -231,7 +234,8 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
         if r["metrics"]:
             n_harm = max(n_harm, len(r["metrics"].get("harmonics") or []))
     header = (["idx", "status", *axis_cols, *set_cols, "sample", *(f"values.{k}" for k in value_cols),
-               *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)), "settled", "seconds", "error"])
+               *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)), *STRESS_COLUMNS,
+               "settled", "seconds", "error"])
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(header)
@@ -246,6 +250,7 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
             *(r["inputs"].get("values", {}).get(k, "") for k in value_cols),
             *(_cell(m.get(c)) for c in KEY_COLUMNS),
             *(_cell(harm[n]["pload_dbc"]) if n < len(harm) else "" for n in range(n_harm)),
+            *(m.get(c) or "" if c.endswith("_part") else _cell(m.get(c)) for c in STRESS_COLUMNS),
             "" if not r["metrics"] else int(bool(m.get("settled"))),
             f"{r['seconds']:.3f}", r["error"] or "",
         ])
