@@ -49,3 +49,19 @@ def test_stress_covers_every_part_and_losses_match_budget(class_e_run):
         el = ("L_" if comp.endswith("_l") else "C_") + comp[:-2]
         assert abs(m["stress"][el]["p_loss_w"] - m["losses"][comp]) < 1e-9 * max(1.0, m["losses"][comp])
     assert m["stress_cap_v_peak_part"] == "C_series"
+
+
+def test_buildability_flags_tiny_parts():
+    # the example of unbuildable parts: a 5.8 GHz inverse F whose Cout compensator needs
+    # ~0.2-0.5 nH inductors (below the smallest chip inductors, about 0.5 nH; common practice,
+    # recalled from memory) is flagged part by part with what to do; a 6.78 MHz class E is not
+    from netgen.design.schema import design_from_dict
+    from netgen.results.stress import buildability_warnings
+
+    d = design_from_dict({
+        "design": {"name": "invf_5g8", "topology": "inverse_f_line", "f0": "5.8 GHz", "vdd": "12 V", "pout": "2 W"},
+        "device": {"cout": "0.8 pF"},
+    })
+    warns = buildability_warnings(size(d))
+    assert any(w.startswith("part comp1_l = ") and "transmission-line stub" in w for w in warns), warns
+    assert buildability_warnings(size(load_design(SIMS / "class_e.toml"))) == []

@@ -27,7 +27,7 @@ from netgen.periodic import fourier, periods_in
 from netgen.synthesis import bound_for
 
 from .planes import PLANES, intrinsic_columns, plane_warnings
-from .stress import part_stress, stress_summary
+from .stress import buildability_warnings, part_stress, stress_summary
 
 __all__ = [
     "parse_loss_elements",
@@ -418,7 +418,12 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     metrics["stress"] = {k: {kk: (_f(vv) if isinstance(vv, float) else vv) for kk, vv in r.items()}
                          for k, r in part_stress(wf, netlist_text).items()}
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
-    metrics["warnings"] = design_warnings(sized, metrics) + plane_warnings(sized, metrics)
+    metrics["warnings"] = design_warnings(sized, metrics) + plane_warnings(sized, metrics) + buildability_warnings(sized)
+    q = (sized.derived or {}).get("cout_q")
+    if q and q[0] > 3.0:
+        metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "
+                                   "the network: a narrowband design sensitive to part loss and tolerance; lower f0, use a "
+                                   "smaller device or a lower Ropt")
     return metrics
 
 

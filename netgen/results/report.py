@@ -181,9 +181,9 @@ def format_table(metrics: dict) -> str:
         lines.append("")
         lines.append("  losses (W): " + ", ".join(f"{k} {_num(v, '{:.3g}')}" for k, v in losses.items()))
     if metrics.get("stress_cap_v_peak_part") or metrics.get("stress_ind_i_peak_part"):
-        lines.append(f"  worst part stress: {metrics.get('stress_cap_v_peak_part')} {_num(metrics.get('stress_cap_v_peak_v'))} V peak; "
+        lines.append(f"  worst part stress: {metrics.get('stress_cap_v_peak_part')} {_num(metrics.get('stress_cap_v_peak_v'))} V peak, "
                      f"{metrics.get('stress_ind_i_peak_part')} {_num(metrics.get('stress_ind_i_peak_a'))} A peak "
-                     "(every part: report, metrics.json stress)")
+                     "(every part in the report)")
     return "\n".join(_wrap80(line) for line in lines)
 
 

@@ -17,7 +17,14 @@ import math
 
 import numpy as np
 
-__all__ = ["part_stress", "stress_summary"]
+__all__ = ["part_stress", "stress_summary", "buildability_warnings", "MIN_LUMPED_L_H", "MIN_LUMPED_C_F"]
+
+#: smallest lumped parts a designer can buy or build with a defined value (our rule of thumb: the
+#: smallest catalogue chip parts are about 0.5 nH and 0.2 pF, and a pad or a via adds that much)
+MIN_LUMPED_L_H = 0.5e-9
+MIN_LUMPED_C_F = 0.2e-12
+#: a lumped part is a distributed one above this fraction of a wavelength (common practice: lambda/10)
+MAX_LUMPED_FRACTION = 0.1
 
 
 def _elements(netlist_text: str) -> dict[str, list[str]]:
@@ -107,3 +114,26 @@ def stress_summary(stress: dict[str, dict]) -> dict:
     pl, pn = max(losses) if losses else (None, None)
     return {"stress_cap_v_peak_v": cv, "stress_cap_v_peak_part": cn, "stress_ind_i_peak_a": li,
             "stress_ind_i_peak_part": ln, "stress_max_loss_w": pl, "stress_max_loss_part": pn}
+
+
+def buildability_warnings(sized) -> list[str]:
+    """Parts that cannot be bought or built as lumped parts at this frequency, with what to do.
+
+    Flags an inductor below :data:`MIN_LUMPED_L_H` or a capacitor below :data:`MIN_LUMPED_C_F`
+    (parasitics of that size swamp them), with what to do. Self-resonance is not checked
+    (netgen has no key for a part's SRF).
+    """
+    out = []
+    d = sized.design
+    for c in sized.components.values():
+        if c.role == "comp":
+            fix = "realise this Cout compensator branch as a transmission-line stub, or lower network.harmonics"
+        else:
+            fix = "choose a line-based topology or change network.loaded_q"
+        if c.kind == "L" and c.value < MIN_LUMPED_L_H:
+            out.append(f"part {c.name} = {c.value * 1e12:.3g} pH at {d.f0_hz / 1e6:.6g} MHz is below the smallest buildable "
+                       f"inductor (about {MIN_LUMPED_L_H * 1e9:g} nH): {fix}")
+        elif c.kind == "C" and c.value < MIN_LUMPED_C_F:
+            out.append(f"part {c.name} = {c.value * 1e15:.3g} fF at {d.f0_hz / 1e6:.6g} MHz is below the smallest buildable "
+                       f"capacitor (about {MIN_LUMPED_C_F * 1e12:g} pF): {fix}")
+    return out
