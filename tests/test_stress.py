@@ -42,7 +42,7 @@ def test_class_e_series_capacitor_voltage(class_e_run):
 def test_stress_covers_every_part_and_losses_match_budget(class_e_run):
     # every L and C of the netlist has an entry; each lossy part's dissipation is the loss
     # budget's figure for it (both mean(v_R^2)/R of its RLOSS resistor: a definition, Joule's law)
-    s, m = class_e_run
+    _s, m = class_e_run
     names = {"L_feed", "C_shunt", "C_series", "L_series", "L_excess", "COUT"}
     assert names <= set(m["stress"])
     for comp in ("series_l", "excess_l", "series_c"):

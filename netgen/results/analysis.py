@@ -24,7 +24,7 @@ import numpy as np
 from netgen.errors import SimulationError
 from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in
-from netgen.synthesis import bound_for
+from netgen.synthesis import COUT_Q_WARN, bound_for
 
 from .planes import PLANES, intrinsic_columns, plane_warnings
 from .stress import buildability_warnings, part_stress, stress_summary
@@ -420,7 +420,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = design_warnings(sized, metrics) + plane_warnings(sized, metrics) + buildability_warnings(sized)
     q = (sized.derived or {}).get("cout_q")
-    if q and q[0] > 3.0:
+    if q and q[0] > COUT_Q_WARN:
         metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "
                                    "the network: a narrowband design sensitive to part loss and tolerance; lower f0, use a "
                                    "smaller device or a lower Ropt")

@@ -16,6 +16,7 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "COUT_Q_WARN": "sizing",
     "TOPOLOGY_REGISTRY": "topologies",
     "bound_for": "theory",
     "class_e_fmax_hz": "intrinsic",

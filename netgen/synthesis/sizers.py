@@ -45,7 +45,9 @@ def absorb_parasitics(b: Builder, wave_class: str, ropt: float, feed_at_drain: b
     known = None
     if feed_at_drain:
         l_feed = next(c.value for c in b.items if c.name == "feed_l")
-        known = lambda f_hz: -1.0 / (2 * math.pi * f_hz * l_feed)  # noqa: E731
+
+        def known(f_hz: float) -> float:  # the feed choke at the drain terminal, S
+            return -1.0 / (2 * math.pi * f_hz * l_feed)
     plan = compensator_plan(d, wave_class, ropt, known) if wave_class in ("F", "invF") else []
     targets = "odd harmonics 3f0.." if wave_class == "F" else "even harmonics 2f0.."
     for k, (fr, lval) in enumerate(plan, start=1):

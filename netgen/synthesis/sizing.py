@@ -154,13 +154,13 @@ def _parasitic_derived(design: Design, topo, ropt: float, derived: dict) -> None
         return
     w0 = 2 * PI * design.f0_hz
     q = w0 * (par.cout_f + par.cp_f) * ropt
-    derived["cout_q"] = (q, "", "omega0 (Cout + Cp) Ropt: the device capacitance's own Q at f0, absorbed by the network "
-                         f"(above {COUT_Q_WARN:g} the design is narrowband and sensitive to part loss and tolerance: lower f0, "
-                         "use a smaller device or a lower Ropt)")
+    derived["cout_q"] = (q, "", ("omega0 (Cout + Cp) Ropt: the device capacitance's own Q at f0, absorbed by the network "
+                                 f"(above {COUT_Q_WARN:g} the design is narrowband and sensitive to part loss and tolerance: "
+                                 "lower f0, use a smaller device or a lower Ropt)"))
     if topo.wave_class == "E":
         derived["class_e_fmax_hz"] = (class_e_fmax_hz(ropt, par.cout_f + par.cp_f), "Hz",
-                                      "highest f0 at which class E absorbs Cout: 0.1836/(2 pi R Cout) = Imax/(56.5 Cout Vdd) "
-                                      "(Sokal 1975; Raab 1977)")
+                                      ("highest f0 at which class E absorbs Cout: 0.1836/(2 pi R Cout) = "
+                                       "Imax/(56.5 Cout Vdd) (Sokal 1975; Raab 1977)"))
 
 
 def _lossless(design: Design) -> Design:
