@@ -100,7 +100,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "roff": Key("roff_ohm", "ohm", "1 Mohm", "Switch off-resistance.", lo=1.0, hi=1e15),
         "transition": Key("transition", "", 0.0, "Switch edge time as a fraction of the period; 0 is an abrupt switch. A finite edge is a real loss (the switch conducts while the voltage is high).", lo=0.0, hi=0.25),
         "duty": Key("duty", "", 0.5, "Fraction of the period the switch is on.", lo=0.05, hi=0.95),
-        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source). switch and gm: sizing subtracts it from the class-E shunt C and the netlist adds it as COUT. spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing subtracts it (counted once).", lo=0.0, hi=1.0),
+        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source, at the current generator: the intrinsic plane). Sizing absorbs it (docs/topologies.md, 'The intrinsic plane'). switch and gm: the netlist adds it as COUT. spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing absorbs it (counted once).", lo=0.0, hi=1.0),
+        "package_l": Key("package_l_h", "H", "0 H", "Package series inductance Ld between Cout and the drain terminal (bond wire); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
+        "package_c": Key("package_c_f", "F", "0 F", "Package shunt capacitance Cp at the drain terminal (the package plane); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
         "imax": Key("imax_a", "A", None, "gm device: peak drain current; default sized from the design (Raab/Cripps Fourier coefficients).", lo=0.0, hi=1e4, lo_open=True),
         "vknee": Key("vknee_v", "V", "0 V", "gm device: knee voltage (drain current = gm-limited current x tanh(vds/vknee)).", lo=0.0, hi=1e3),
         "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
@@ -115,7 +117,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "network": {
         "loaded_q": Key("loaded_q", "", 5.0, "Loaded Q of the f0 tank / series-tuned output (sets tank L and C).", lo=0.5, hi=1000.0),
         "resonator_z": Key("resonator_z_ohm", "ohm", None, "class_f_lumped: characteristic impedance sqrt(L/C) of the harmonic resonators (default: balances the even-harmonic short against the odd-harmonic open for the inductor Q, about 0.1-0.2 Ropt; see netgen.synthesis.sizing.lumped_resonator_z).", lo=0.1, hi=1e5),
-        "harmonics": Key("harmonics", "int", 2, "class_f_lumped: number of odd harmonics with a resonator (3f0 .. (2N+1)f0).", lo=1, hi=10),
+        "harmonics": Key("harmonics", "int", 2, "class_f_lumped: number of odd harmonics with a resonator (3f0 .. (2N+1)f0); with a device Cout (or package) in class F and inverse F: number of harmonics the Cout compensator opens (class F 3f0 .. (2N+1)f0, inverse F 2f0 .. 2N f0).", lo=1, hi=10),
         "eps_eff": Key("eps_eff", "", 1.0, "Effective relative permittivity of the lines (for the physical length of a quarter-wave line).", lo=1.0, hi=200.0),
         "inductor_q": Key("inductor_q", "", _INF, "Unloaded Q of every inductor at f0 (a series resistance omega0*L/Q); inf is lossless.", lo=1.0, hi=_INF),
         "capacitor_esr": Key("capacitor_esr_ohm", "ohm", "0 ohm", "Series resistance of every RF capacitor.", lo=0.0, hi=100.0),
@@ -154,6 +156,8 @@ class DeviceSpec:
     transition: float = 0.0
     duty: float = 0.5
     cout_f: float = 0.0
+    package_l_h: float = 0.0
+    package_c_f: float = 0.0
     imax_a: float | None = None
     vknee_v: float = 0.0
     conduction_angle_deg: float = 180.0

@@ -106,10 +106,14 @@ def _save_list(elements: dict) -> tuple[list[str], list[str]]:
     all_nodes = {t.lower() for toks in elements.values() for t in toks[1:3]}
     if "gate" in all_nodes:
         nodes.add("gate")
+    if "dint" in all_nodes:  # the generator node: the intrinsic plane (docs/netlist_conventions.md)
+        nodes.add("dint")
     for key, toks in elements.items():
-        if key.startswith("RLOSS_"):
+        # the loss resistors, and every inductor and capacitor (part stress, netgen.results.stress)
+        if key.startswith("RLOSS_") or key[:1].upper() in "LC":
             nodes.update(t.lower() for t in toks[1:3] if t not in ("0", "gnd"))
     branches = [f"{s.lower()}#branch" for s in ("VDD", "VIDRAIN", "VISW", "VDRIVE") if s in elements]
+    branches += sorted(f"{k.lower()}#branch" for k in elements if k[:1].upper() == "L")
     return sorted(nodes), branches
 
 
@@ -133,6 +137,9 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
         i["supply"] = -np.interp(grid, t, vecs["vdd#branch"])
     if "vdrive#branch" in vecs:
         i["gate"] = -np.interp(grid, t, vecs["vdrive#branch"])
+    for name in elements:  # inductor currents, keyed by element name (first node to second)
+        if name[:1].upper() == "L" and f"{name.lower()}#branch" in vecs:
+            i[name] = np.interp(grid, t, vecs[f"{name.lower()}#branch"])
     # extremes: the median over the kept periods of each period's extreme (a narrow edge spike
     # whose height depends on where the simulator's points fall differs from period to period;
     # what every period does is the amplifier's)
@@ -150,7 +157,7 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
 
 #: Waveforms.fourier key -> (saved vector, sign): currents follow the Waveforms.i conventions
 FOURIER_VECTORS = {
-    "drain_v": ("drain", 1.0), "load_v": ("load", 1.0), "vdd_v": ("vdd", 1.0), "gate_v": ("gate", 1.0),
+    "drain_v": ("drain", 1.0), "int_v": ("dint", 1.0), "load_v": ("load", 1.0), "vdd_v": ("vdd", 1.0), "gate_v": ("gate", 1.0),
     "drain_i": ("vidrain#branch", 1.0), "switch_i": ("visw#branch", 1.0),
     "supply_i": ("vdd#branch", -1.0), "gate_i": ("vdrive#branch", -1.0),
 }

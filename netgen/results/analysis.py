@@ -24,7 +24,10 @@ import numpy as np
 from netgen.errors import SimulationError
 from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in, pwl_mean_product, pwl_point_energy
-from netgen.synthesis import bound_for
+from netgen.synthesis import COUT_Q_WARN, bound_for
+
+from .planes import PLANES, intrinsic_columns, plane_warnings
+from .stress import buildability_warnings, part_stress, stress_summary
 
 __all__ = [
     "parse_loss_elements",
@@ -293,6 +296,18 @@ class _Window:
         )
 
 
+def _intrinsic_coefficients(wf, exact: dict, periods: int, n_h: int, V: np.ndarray, I: np.ndarray):
+    """Fourier coefficients of the generator voltage (node dint) and current (VISW), the intrinsic
+    plane; the drain-terminal ones where the run has no such node (a user template)."""
+    v_int = exact.get("int_v")
+    if v_int is None:
+        v_int = fourier(np.asarray(wf.v["dint"], float), periods, n_h) if "dint" in wf.v else V
+    i_gen = exact.get("switch_i")
+    if i_gen is None:
+        i_gen = fourier(np.asarray(wf.i["switch"], float), periods, n_h) if "switch" in wf.i else I
+    return v_int, i_gen
+
+
 def _loss_budget(win: _Window, design, netlist_text: str, load_harmonics_w: float) -> dict:
     """Every watt drawn from Vdd, by where it goes: the device (conduction, switching), each
     ``RLOSS_*`` resistor, and the load power outside the fundamental (W), all over the window
@@ -380,6 +395,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     if pin is not None and pin < 0:
         pae = None  # the drive source absorbs power: no added-power figure (design_warnings says why)
     table = _harmonic_table(V, I, pload_n, n_h)
+    v_int, i_gen = _intrinsic_coefficients(wf, exact, periods, n_h, V, I)
+    for row, extra in zip(table, intrinsic_columns(v_int, i_gen, n_h, harmonic_impedance)):
+        row.update(extra)
 
     losses = _loss_budget(win, design, netlist_text, pload_total - pout)
     device_w = losses["device_conduction"] + losses["device_switching"]
@@ -428,6 +446,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
         "min_id_a": _f(id_min),
         "peak_vd_range_v": _range(peaks, "vd_max_lo_v", "vd_max_hi_v"),
         "peak_id_range_a": _range(peaks, "id_max_lo_a", "id_max_hi_a"),
+        "peak_vint_v": _f(np.max(wf.v["dint"])) if "dint" in wf.v else _f(vd_max),
+        "planes": dict(PLANES),
+        "cout_series_ohm": _cout_series(netlist_text),
         "harmonics": table,
         "device_dissipation_w": _f(device_w),
         "losses": {k: _f(v) for k, v in losses.items()},
@@ -436,8 +457,25 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     }
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
-    metrics["warnings"] = ([impossible] if impossible else []) + design_warnings(sized, metrics)
+    metrics["stress"] = {k: {kk: (_f(vv) if isinstance(vv, float) else vv) for kk, vv in r.items()}
+                         for k, r in part_stress(wf, netlist_text).items()}
+    metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
+    metrics["warnings"] = (([impossible] if impossible else []) + design_warnings(sized, metrics)
+                           + plane_warnings(sized, metrics) + buildability_warnings(sized))
+    q = (sized.derived or {}).get("cout_q")
+    if q and q[0] > COUT_Q_WARN:
+        metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "
+                                   "the network: a narrowband design sensitive to part loss and tolerance; lower f0, use a "
+                                   "smaller device or a lower Ropt")
     return metrics
+
+
+def _cout_series(netlist_text: str) -> float:
+    """The series resistance the transient netlist gives Cout (``RLOSS_cout``), ohm; 0 without."""
+    for name, _a, _b, r in _loss_elements(netlist_text):
+        if name.lower() == "rloss_cout":
+            return float(r)
+    return 0.0
 
 
 #: relative surplus of load power over the supplied power taken as floating-point rounding

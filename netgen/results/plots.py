@@ -95,22 +95,35 @@ def _title(metrics: dict | None, what: str) -> str:
     return f"{what} - {d.get('name', '')} ({d.get('topology', '')}){tag}"
 
 
+def _planes(wf) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """(plane, voltage, current) for the intrinsic plane (generator node dint, switch current) and
+    the package plane (drain terminal, drain current); the intrinsic plane first (results/planes.py)."""
+    out = []
+    if "dint" in wf.v and "switch" in wf.i:
+        out.append(("intrinsic", np.asarray(wf.v["dint"]), np.asarray(wf.i["switch"])))
+    out.append(("package", np.asarray(wf.v["drain"]), np.asarray(wf.i["drain"])))
+    return out
+
+
 def plot_waveforms(path, wf, vdd_v: float, metrics: dict | None = None) -> Path:
-    """Drain voltage (V) and drain current (A) over the stored periods, two panels sharing time."""
+    """Voltage (V) and current (A) at the intrinsic plane (the generator inside Cout, solid) with the
+    package plane (the drain terminal, dashed) beside it, over the stored periods; two panels sharing time."""
     with plt.rc_context(_RC):
         k, unit = _time_scale(wf.f0_hz)
         t = np.asarray(wf.t_s) * k
         fig, (ax_v, ax_i) = plt.subplots(2, 1, figsize=(9.5, 5.5), sharex=True)
-        ax_v.plot(t, wf.v["drain"], color=COLORS["voltage"], label="drain voltage")
+        planes = _planes(wf)
+        for j, (plane, v, i) in enumerate(planes):
+            ls, lw = ("-", 1.6) if j == 0 else ("--", 1.0)
+            ax_v.plot(t, v, color=COLORS["voltage"], ls=ls, lw=lw, label=f"voltage, {plane} plane")
+            ax_i.plot(t, i, color=COLORS["current"] if j == 0 else COLORS["accent"], ls=ls, lw=lw,
+                      label=f"current, {plane} plane")
         if "load" in wf.v:
             ax_v.plot(t, wf.v["load"], color=COLORS["load"], lw=1.0, alpha=0.8, label="load voltage")
         ax_v.axhline(vdd_v, color=COLORS["ref"], ls="--", lw=1.0, label="Vdd")
         ax_v.set_ylabel("voltage (V)")
         ax_v.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=9)
-        ax_v.set_title(_title(metrics, "Drain waveforms"))
-        ax_i.plot(t, wf.i["drain"], color=COLORS["current"], label="drain current")
-        if "switch" in wf.i and not np.allclose(wf.i["switch"], wf.i["drain"]):
-            ax_i.plot(t, wf.i["switch"], color=COLORS["accent"], lw=1.0, label="switch current")
+        ax_v.set_title(_title(metrics, f"Waveforms at the {planes[0][0]} plane"))
         ax_i.axhline(0.0, color=COLORS["ref"], lw=0.8)
         ax_i.set_ylabel("current (A)")
         ax_i.set_xlabel(f"time ({unit})")
@@ -120,28 +133,31 @@ def plot_waveforms(path, wf, vdd_v: float, metrics: dict | None = None) -> Path:
 
 
 def plot_load_line(path, wf, vdd_v: float, ropt_ohm: float, metrics: dict | None = None) -> Path:
-    """Dynamic load line: drain current (A) against drain voltage (V), with Vdd and the Ropt line.
+    """Dynamic load line: current (A) against voltage (V) at the intrinsic plane, with the package
+    plane beside it, each with Vdd and the Ropt line.
 
     The reference line has slope -1/Ropt through the operating point
-    (Vdd, Idc): the load line of the fundamental alone (common practice).
+    (Vdd, Idc): the load line of the fundamental alone (common practice); it applies at the
+    intrinsic plane, where the network is sized to present Ropt.
     """
+    planes = _planes(wf)
     with plt.rc_context(_RC):
-        fig, ax = plt.subplots(figsize=(6.5, 5))
-        v = np.asarray(wf.v["drain"])
-        i = np.asarray(wf.i["drain"])
-        ax.plot(v, i, color=COLORS["voltage"], lw=1.2, label="i_d(v_d), simulated")
-        ax.axvline(vdd_v, color=COLORS["ref"], ls="--", lw=1.0, label=f"Vdd = {vdd_v:g} V")
-        if ropt_ohm and ropt_ohm > 0:
-            idc = float(np.mean(i))
-            vv = np.linspace(0.0, 2.0 * vdd_v, 50)
-            ax.plot(vv, idc - (vv - vdd_v) / ropt_ohm, color=COLORS["current"], ls=":", lw=1.6,
-                    label=f"slope -1/Ropt ({ropt_ohm:.4g} ohm) through (Vdd, Idc)")
-            ax.plot([vdd_v], [idc], "s", color=COLORS["current"], ms=6)
-        ax.axhline(0.0, color=COLORS["ref"], lw=0.8)
-        ax.set_xlabel("drain voltage (V)")
-        ax.set_ylabel("drain current (A)")
-        ax.set_title(_title(metrics, "Dynamic load line"))
-        ax.legend(loc="best", fontsize=9)
+        fig, axes = plt.subplots(1, len(planes), figsize=(6.0 * len(planes), 5), squeeze=False)
+        for ax, (plane, v, i) in zip(axes[0], planes):
+            ax.plot(v, i, color=COLORS["voltage"], lw=1.2, label="i(v), simulated")
+            ax.axvline(vdd_v, color=COLORS["ref"], ls="--", lw=1.0, label=f"Vdd = {vdd_v:g} V")
+            if ropt_ohm and ropt_ohm > 0:
+                idc = float(np.mean(i))
+                vv = np.linspace(0.0, 2.0 * vdd_v, 50)
+                ax.plot(vv, idc - (vv - vdd_v) / ropt_ohm, color=COLORS["current"], ls=":", lw=1.6,
+                        label=f"slope -1/Ropt ({ropt_ohm:.4g} ohm) through (Vdd, Idc)")
+                ax.plot([vdd_v], [idc], "s", color=COLORS["current"], ms=6)
+            ax.axhline(0.0, color=COLORS["ref"], lw=0.8)
+            ax.set_xlabel(f"voltage, {plane} plane (V)")
+            ax.set_ylabel(f"current, {plane} plane (A)")
+            ax.set_title(_title(metrics, f"Dynamic load line, {plane} plane") if plane == planes[0][0]
+                         else f"{plane} plane (drain terminal)", loc="left")
+            ax.legend(loc="best", fontsize=8)
         fig.tight_layout()
         return _save(fig, path)
 
@@ -231,8 +247,44 @@ def _gamma(z_norm):
     return (z_norm - 1.0) / (z_norm + 1.0)
 
 
+#: metrics.json harmonic keys of each plane's impedance (docs/metrics.md)
+PLANE_Z_KEYS = {"intrinsic": ("z_int_re_ohm", "z_int_im_ohm"), "package": ("z_re_ohm", "z_im_ohm")}
+
+
+def _smith_grid(ax) -> None:
+    big = np.concatenate([-np.logspace(4, -3, 400), [0.0], np.logspace(-3, 4, 400)])  # reactance sweep
+    for r in (0.0, 0.2, 0.5, 1.0, 2.0, 5.0):
+        g = _gamma(r + 1j * big)
+        ax.plot(g.real, g.imag, color="#c9c9c9" if r else "#555555", lw=0.8 if r else 1.3)
+        if r:
+            g0 = _gamma(complex(r, 0))
+            ax.annotate(f"{r:g}", (g0.real, 0.0), xytext=(2, -9), textcoords="offset points", fontsize=7, color="#888888")
+    rr = np.logspace(-3, 3, 400)
+    for x in (0.2, 0.5, 1.0, 2.0, 5.0):
+        for sign in (1, -1):
+            g = _gamma(np.concatenate([[0.0], rr]) + 1j * sign * x)
+            ax.plot(g.real, g.imag, color="#c9c9c9", lw=0.8)
+            _reactance_label(ax, sign * x)
+    ax.plot([-1, 1], [0, 0], color="#c9c9c9", lw=0.8)
+
+
+def _smith_points(ax, rows: list[dict], keys: tuple[str, str], z_ref_ohm: float) -> None:
+    colors = plt.get_cmap("viridis")
+    rows = [r for r in rows if r.get(keys[0]) is not None]
+    labels: dict[tuple, list[str]] = {}  # coincident points share one label ("2f0, 4f0")
+    for k, r in enumerate(rows):
+        g = _gamma(complex(r[keys[0]], r[keys[1]]) / z_ref_ohm)
+        c = COLORS["current"] if r["n"] == 1 else colors(0.15 + 0.7 * k / max(len(rows), 1))
+        ax.plot(g.real, g.imag, "o", color=c, ms=8, mec="black", mew=0.5, zorder=3)
+        labels.setdefault((round(g.real, 2), round(g.imag, 2)), []).append(f"{r['n']}f0")
+    for (gx, gy), names in labels.items():
+        ax.annotate(", ".join(names), (gx, gy), xytext=(7, 7), textcoords="offset points", fontsize=9,
+                    fontweight="bold", zorder=4, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
+
+
 def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
-    """Smith chart (our own grid) of the harmonic impedances Z_n presented to the device.
+    """Smith charts (our own grid) of the harmonic impedances Z_n presented to the device: at the
+    intrinsic plane (the generator inside Cout) and, beside it, at the package plane (the drain terminal).
 
     The reference impedance defaults to Ropt: the fundamental then sits at the
     centre when the network is right, and harmonic shorts and opens sit at the
@@ -243,40 +295,23 @@ def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
         ref_name = "Ropt" if metrics.get("design", {}).get("ropt_ohm") else "50 ohm"
     else:
         ref_name = "chosen"
+    rows = metrics["harmonics"]
+    planes = [p for p in ("intrinsic", "package") if any(r.get(PLANE_Z_KEYS[p][0]) is not None for r in rows)]
+    planes = planes or ["package"]
     with plt.rc_context({**_RC, "axes.grid": False}):
-        fig, ax = plt.subplots(figsize=(6.2, 6.2))
-        big = np.concatenate([-np.logspace(4, -3, 400), [0.0], np.logspace(-3, 4, 400)])  # reactance sweep
-        for r in (0.0, 0.2, 0.5, 1.0, 2.0, 5.0):
-            g = _gamma(r + 1j * big)
-            ax.plot(g.real, g.imag, color="#c9c9c9" if r else "#555555", lw=0.8 if r else 1.3)
-            if r:
-                g0 = _gamma(complex(r, 0))
-                ax.annotate(f"{r:g}", (g0.real, 0.0), xytext=(2, -9), textcoords="offset points", fontsize=7, color="#888888")
-        rr = np.logspace(-3, 3, 400)
-        for x in (0.2, 0.5, 1.0, 2.0, 5.0):
-            for sign in (1, -1):
-                g = _gamma(np.concatenate([[0.0], rr]) + 1j * sign * x)
-                ax.plot(g.real, g.imag, color="#c9c9c9", lw=0.8)
-                _reactance_label(ax, sign * x)
-        ax.plot([-1, 1], [0, 0], color="#c9c9c9", lw=0.8)
-        colors = plt.get_cmap("viridis")
-        rows = [r for r in metrics["harmonics"] if r["z_re_ohm"] is not None]
-        labels: dict[tuple, list[str]] = {}  # coincident points share one label ("2f0, 4f0")
-        for k, r in enumerate(rows):
-            g = _gamma(complex(r["z_re_ohm"], r["z_im_ohm"]) / z_ref_ohm)
-            c = COLORS["current"] if r["n"] == 1 else colors(0.15 + 0.7 * k / max(len(rows), 1))
-            ax.plot(g.real, g.imag, "o", color=c, ms=8, mec="black", mew=0.5, zorder=3)
-            labels.setdefault((round(g.real, 2), round(g.imag, 2)), []).append(f"{r['n']}f0")
-        for (gx, gy), names in labels.items():
-            ax.annotate(", ".join(names), (gx, gy), xytext=(7, 7), textcoords="offset points", fontsize=9,
-                        fontweight="bold", zorder=4, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
-        ax.set_aspect("equal")
-        ax.set_xlim(-1.22, 1.22)
-        ax.set_ylim(-1.22, 1.22)
-        ax.axis("off")
-        # the design on a second line, so a long name is never cut off at the figure's edge
-        ax.set_title(_title(metrics, "Harmonic impedances at the drain").replace(" - ", "\n", 1), loc="left")
-        # the footnote sits below the chart, clear of the circle and its labels
+        fig, axes = plt.subplots(1, len(planes), figsize=(6.2 * len(planes), 6.2), squeeze=False)
+        for j, (ax, plane) in enumerate(zip(axes[0], planes)):
+            _smith_grid(ax)
+            _smith_points(ax, rows, PLANE_Z_KEYS[plane], z_ref_ohm)
+            ax.set_aspect("equal")
+            ax.set_xlim(-1.22, 1.22)
+            ax.set_ylim(-1.22, 1.22)
+            ax.axis("off")
+            what = f"Harmonic impedances, {plane} plane"
+            # the design on a second line, so a long name is never cut off at the figure's edge
+            title = _title(metrics, what).replace(" - ", "\n", 1) if j == 0 else what + "\n"
+            ax.set_title(title, loc="left")
+        # the footnote sits below the charts, clear of the circles and their labels
         fig.tight_layout(rect=(0.0, 0.07, 1.0, 1.0))
         fig.text(0.03, 0.02, f"reference {ref_name} = {z_ref_ohm:.4g} ohm; left end short, right end open;"
                  "\nharmonics with negligible current are not shown", fontsize=8, color="#555555", va="bottom")

@@ -57,12 +57,15 @@ pre{background:#f6f1e8;border:1px solid #dcd3c3;padding:8px;font-size:12px;overf
 """
 
 _PLOT_CAPTIONS = {
-    "waveforms": "Drain voltage and current over the stored periods.",
-    "load_line": "Dynamic load line (drain current against drain voltage) with Vdd and the Ropt line.",
+    "waveforms": "Voltage and current at the intrinsic plane (the current generator inside Cout and the package, "
+                 "solid) and at the package plane (the drain terminal, dashed) over the stored periods.",
+    "load_line": "Dynamic load line (current against voltage) at the intrinsic plane, the package plane beside it, "
+                 "with Vdd and the Ropt line.",
     "harmonics": "Harmonic amplitudes at the drain and harmonic load power relative to the fundamental.",
     "impedance": "Impedance of the output network seen from the drain (network analysis) with the "
                  "harmonic impedances measured in the transient.",
-    "smith": "Harmonic impedances presented to the device (Smith chart).",
+    "smith": "Harmonic impedances presented to the device (Smith chart): at the intrinsic plane (where the "
+             "waveform engineering happens) and, beside it, at the package plane (the drain terminal).",
     "settling": "Settling: DC and load power per simulated cycle.",
 }
 
@@ -161,16 +164,22 @@ def format_table(metrics: dict) -> str:
     for a, va, b, vb in pairs:
         lines.append(f"  {a:<16}{va:>12}     {b:<16}{vb:>12}")
     lines.append("")
-    lines.append(f"  {'n':>2} {'Vd (V)':>9} {'Vd (deg)':>9} {'Id (A)':>9} {'ReZ (ohm)':>10} "
-                 f"{'ImZ (ohm)':>10} {'Pload (W)':>10} {'(dBc)':>7}")
+    lines.append("  harmonics at the intrinsic plane (the generator inside Cout): V I and Z int;")
+    lines.append("  Z pkg at the package plane (the drain terminal where the network connects)")
+    lines.append(f"  {'n':>2} {'V (V)':>9} {'I (A)':>9} {'ReZ int':>10} {'ImZ int':>10} "
+                 f"{'ReZ pkg':>10} {'ImZ pkg':>10} {'(dBc)':>7}")
     for h in metrics.get("harmonics", []):
-        lines.append(f"  {h['n']:>2} {_num(h['vd_v']):>9} {_num(h['vd_deg'], '{:.1f}'):>9} {_num(h['id_a']):>9} "
-                     f"{_num(h['z_re_ohm']):>10} {_num(h['z_im_ohm']):>10} {_num(h['pload_w']):>10} "
-                     f"{_num(h['pload_dbc'], '{:.1f}'):>7}")
+        lines.append(f"  {h['n']:>2} {_num(h.get('vint_v', h['vd_v'])):>9} {_num(h.get('igen_a', h['id_a'])):>9} "
+                     f"{_num(h.get('z_int_re_ohm', h['z_re_ohm'])):>10} {_num(h.get('z_int_im_ohm', h['z_im_ohm'])):>10} "
+                     f"{_num(h['z_re_ohm']):>10} {_num(h['z_im_ohm']):>10} {_num(h['pload_dbc'], '{:.1f}'):>7}")
     losses = metrics.get("losses") or {}
     if losses:
         lines.append("")
         lines.append("  losses (W): " + ", ".join(f"{k} {_num(v, '{:.3g}')}" for k, v in losses.items()))
+    if metrics.get("stress_cap_v_peak_part") or metrics.get("stress_ind_i_peak_part"):
+        lines.append(f"  worst part stress: {metrics.get('stress_cap_v_peak_part')} {_num(metrics.get('stress_cap_v_peak_v'))} V peak, "
+                     f"{metrics.get('stress_ind_i_peak_part')} {_num(metrics.get('stress_ind_i_peak_a'))} A peak "
+                     "(every part in the report)")
     return "\n".join(_wrap80(line) for line in lines)
 
 
@@ -358,14 +367,31 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                  f"Source: {_e(bound.get('source', '') or 'none')}. The bound assumes an ideal switch and a "
                  f"lossless network; the simulated efficiency falls short by the losses listed below.</p>")
 
-    parts.append("<h2>Harmonics at the drain</h2><table><tr><th>n</th><th>Vd (V)</th><th>Vd (deg)</th><th>Id (A)</th>"
-                 "<th>Id (deg)</th><th>Re Zn (ohm)</th><th>Im Zn (ohm)</th><th>load power (W)</th><th>load power (dBc)</th></tr>")
+    parts.append("<h2>Harmonics at the intrinsic plane and the package plane</h2><table><tr><th>n</th>"
+                 "<th>V int (V)</th><th>I gen (A)</th><th>Re Zn int (ohm)</th><th>Im Zn int (ohm)</th>"
+                 "<th>Vd pkg (V)</th><th>Id pkg (A)</th><th>Re Zn pkg (ohm)</th><th>Im Zn pkg (ohm)</th>"
+                 "<th>load power (W)</th><th>load power (dBc)</th></tr>")
     for h in metrics.get("harmonics", []):
         parts.append("<tr>" + "".join(f"<td>{_e(x)}</td>" for x in (
-            h["n"], _num(h["vd_v"]), _num(h["vd_deg"], "{:.1f}"), _num(h["id_a"]), _num(h["id_deg"], "{:.1f}"),
+            h["n"], _num(h.get("vint_v")), _num(h.get("igen_a")), _num(h.get("z_int_re_ohm")), _num(h.get("z_int_im_ohm")),
+            _num(h["vd_v"]), _num(h["id_a"]),
             _num(h["z_re_ohm"]), _num(h["z_im_ohm"]), _num(h["pload_w"]), _num(h["pload_dbc"], "{:.1f}"))) + "</tr>")
     parts.append("</table><p class=sub>Zn = Vn/(&minus;In), shown only where the current harmonic is at least "
-                 "1e-3 of the fundamental.</p>")
+                 "1e-3 of the fundamental. Intrinsic plane: the device's current generator inside its output "
+                 "capacitance and package (node dint, current through VISW), where the class's waveforms are defined; "
+                 "package plane: the drain terminal (node drain, current through VIDRAIN).</p>")
+
+    stress = metrics.get("stress") or {}
+    if stress:
+        parts.append("<h2>Stress on every part</h2><table><tr><th class=l>element</th><th>peak |v| (V)</th>"
+                     "<th>peak RF swing (V)</th><th>peak |i| (A)</th><th>RMS i (A)</th><th>dissipated (W)</th></tr>")
+        for name, r in stress.items():
+            parts.append(f"<tr><td class=l>{_e(name)}</td>" + "".join(f"<td>{_e(_num(r.get(k)))}</td>" for k in (
+                "v_peak_v", "v_ac_peak_v", "i_peak_a", "i_rms_a", "p_loss_w")) + "</tr>")
+        parts.append("</table><p class=sub>Across and through each inductor and capacitor over the stored periods "
+                     "(the DC across a DC block included in the peak |v|); derate from these values. High RF "
+                     "voltages and currents can burn: follow local codes and licensed practice when building "
+                     "and measuring.</p>")
 
     parts.append("<h2>Loss budget</h2><table><tr><th class=l>where the DC power goes</th><th>W</th><th>% of Pdc</th></tr>")
     pdc = metrics.get("pdc_w") or 0.0

@@ -45,6 +45,9 @@ from netgen.errors import NetgenError, OutputError
 __all__ = ["SweepStore", "export_csv", "KEY_COLUMNS", "STORE_NAME"]
 
 STORE_NAME = "sweep.sqlite"
+#: the worst part of each kind (netgen.results.stress.stress_summary), in the CSV export
+STRESS_COLUMNS = ("stress_cap_v_peak_v", "stress_cap_v_peak_part", "stress_ind_i_peak_a", "stress_ind_i_peak_part",
+                  "stress_max_loss_w", "stress_max_loss_part")
 #: metrics copied into their own columns
 KEY_COLUMNS = ("drain_efficiency", "pae", "pout_w", "pdc_w", "pin_w", "peak_vd_v", "peak_vd_over_vdd", "min_vd_v",
                "peak_id_a", "device_dissipation_w")
@@ -434,6 +437,7 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
                *(_head(f"values.{k}", vunits[k]) for k in value_cols),
                *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)),
                *(f"z{n}_{part}_ohm" for n in range(1, n_harm + 1) for part in ("re", "im")),
+               *STRESS_COLUMNS,
                "settled", "seconds", "error"])
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
@@ -451,6 +455,7 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
             *(_cell(harm[n]["pload_dbc"]) if n < len(harm) else "" for n in range(n_harm)),
             *(_cell(harm[n].get(f"z_{part}_ohm")) if n < len(harm) else ""
               for n in range(n_harm) for part in ("re", "im")),
+            *(m.get(c) or "" if c.endswith("_part") else _cell(m.get(c)) for c in STRESS_COLUMNS),
             "" if not r["metrics"] else int(bool(m.get("settled"))),
             "" if r["seconds"] is None else f"{r['seconds']:.3f}", r["error"] or "",
         ])

@@ -16,8 +16,15 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "COUT_Q_WARN": "sizing",
     "TOPOLOGY_REGISTRY": "topologies",
     "bound_for": "theory",
+    "class_e_fmax_hz": "intrinsic",
+    "comp_branches": "network",
+    "controlled_pattern": "intrinsic",
+    "parasitics": "intrinsic",
+    "to_intrinsic": "intrinsic",
+    "z_intrinsic": "network",
     "element_name": "builder",
     "get_topology": "topologies",
     "line_plan": "network",

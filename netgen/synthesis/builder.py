@@ -87,6 +87,33 @@ class Builder:
         self.add(f"{base}_l", "L", 1.0 / (self.w0**2 * c), f"{src}: L = 1/(omega0^2 C)", role)
         self.add(f"{base}_c", "C", c, f"{src}: C = Q/(omega0 R), R = {r_ohm:.6g} ohm", role)
 
+    def tuned_tank(self, base: str, r_ohm: float, q: float, what: str, b_s: float, why: str,
+                   role: str = "tank") -> None:
+        """Parallel tank of loaded Q relative to ``r_ohm`` presenting the susceptance ``b_s`` at f0.
+
+        ``L = R/(omega0 Q)`` as for the resonant tank; ``C = Q/(omega0 R) + B/omega0``, so that
+        ``omega0 C - 1/(omega0 L) = B`` (re-tuning the tank capacitance for a shunt susceptance,
+        e.g. absorbing the device output capacitance; Cripps, recalled from memory).
+
+        Raises
+        ------
+        SizingError
+            When the capacitance would not be positive (the device capacitance alone exceeds
+            the tank's loaded Q).
+        """
+        c = (q / r_ohm + b_s) / self.w0
+        if c <= 0:
+            c_dev = -b_s / self.w0
+            f_max = q / (2 * PI * r_ohm * c_dev)
+            raise SizingError(
+                f"device.cout: {c_dev:.4g} F of device capacitance at f0 is more than the f0 tank holds "
+                f"(omega0 C R = {-b_s * r_ohm:.3g} > network.loaded_q = {q:g}; the limit is f0 <= Q/(2 pi R C) = "
+                f"{f_max:.4g} Hz); raise network.loaded_q above {-b_s * r_ohm:.3g}, lower design.f0 or use a smaller device."
+            )
+        src = f"parallel tank at f0, loaded Q={q:g} across {what}, re-tuned for {why}"
+        self.add(f"{base}_l", "L", r_ohm / (self.w0 * q), f"{src}: L = R/(omega0 Q), R = {r_ohm:.6g} ohm", role)
+        self.add(f"{base}_c", "C", c, f"{src}: C = Q/(omega0 R) + B/omega0, B = {b_s:.6g} S (Cripps, recalled from memory)", role)
+
     def series_resonator(self, base: str, r_ohm: float, q: float, what: str, role: str = "resonator") -> None:
         """Series LC at f0 with loaded Q relative to ``r_ohm``: L = Q R/omega0, C = 1/(omega0^2 L)."""
         lval = q * r_ohm / self.w0

@@ -30,6 +30,8 @@ __all__ = [
     "cascade",
     "abcd_tline",
     "z_in",
+    "z_intrinsic",
+    "comp_branches",
 ]
 
 #: number of lossless T segments a lossy line is split into (RLOSS resistors between them).
@@ -245,6 +247,25 @@ _CHAINS: dict[str, Callable] = {
 }
 
 
+def comp_branches(sized: SizedDesign) -> list[int]:
+    """Numbers k of the Cout compensator branches ``comp<k>_l`` + ``comp<k>_c`` (drain to ground)."""
+    out = []
+    for name in sized.components:
+        if name.startswith("comp") and name.endswith("_l") and name[4:-2].isdigit():
+            out.append(int(name[4:-2]))
+    return sorted(out)
+
+
+def _comp(sized, w) -> list[np.ndarray]:
+    ks = comp_branches(sized)
+    if not ks:
+        return []
+    y = np.zeros(w.shape, dtype=complex)
+    for k in ks:
+        y = y + 1.0 / (_z_elem(sized, f"comp{k}_l", w) + _z_elem(sized, f"comp{k}_c", w))
+    return [_abcd_shunt(y)]
+
+
 def abcd_drain_to_load(sized: SizedDesign, f_hz) -> np.ndarray:
     """ABCD matrix (shape ``(N, 2, 2)``) of the two-port from the drain to the top of RLOAD.
 
@@ -255,7 +276,7 @@ def abcd_drain_to_load(sized: SizedDesign, f_hz) -> np.ndarray:
 
     w = 2 * math.pi * np.atleast_1d(np.asarray(f_hz, dtype=float))
     name = resolve_topology(sized.design).name
-    return cascade(_CHAINS[name](sized, w))
+    return cascade(_comp(sized, w) + _CHAINS[name](sized, w))
 
 
 def z_drain(sized: SizedDesign, f_hz) -> np.ndarray:
@@ -273,6 +294,19 @@ def z_drain(sized: SizedDesign, f_hz) -> np.ndarray:
     (Pozar, "Microwave Engineering", ABCD parameters).
     """
     return z_in(abcd_drain_to_load(sized, f_hz), sized.design.load_ohm)
+
+
+def z_intrinsic(sized: SizedDesign, f_hz) -> np.ndarray:
+    """Impedance the device's current generator sees (the intrinsic plane), ohm.
+
+    :func:`z_drain` (the drain terminal, the package plane) seen through the package Cp, Ld
+    and the output capacitance Cout (:func:`netgen.synthesis.intrinsic.to_intrinsic`). Cout
+    is the physical capacitance, without the series resistance the transient netlist gives it
+    in designs with lines (docs/simulation.md).
+    """
+    from .intrinsic import parasitics, to_intrinsic
+
+    return to_intrinsic(z_drain(sized, f_hz), f_hz, parasitics(sized.design))
 
 
 def z_port_matrix(sized: SizedDesign, f_hz) -> np.ndarray:

@@ -19,19 +19,55 @@ from .builder import (
     l_section,
     resonator_z,
 )
+from .intrinsic import compensator_plan, f0_target_admittance, parasitics
 
 __all__ = ["size_class_f_line", "size_class_f_feed", "size_class_f_lumped", "size_inverse_f_line", "size_class_e",
            "size_class_b_tuned"]
 
 
-def feed_block_transformer(b: Builder, ropt: float) -> None:
-    """Choke at the drain, DC block, and a quarter-wave line Z0 = sqrt(Ropt RL) that presents
-    Ropt at f0 for the load RL (Pozar, the quarter-wave transformer)."""
-    b.feed(ropt)
-    b.block(ropt)
-    rl = b.design.load_ohm
-    b.quarter_wave("line", math.sqrt(ropt * rl),
-                   f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {rl:.6g}) (Pozar, quarter-wave transformer)")
+_SRC_INTRINSIC = ("the intrinsic plane: the generator inside Cout sees Ropt at f0 (Cripps, 'RF Power Amplifiers "
+                  "for Wireless Communications'; Grebennikov, 'RF and Microwave Power Amplifier Design'; recalled from memory)")
+
+
+def absorb_parasitics(b: Builder, wave_class: str, ropt: float, feed_at_drain: bool = True) -> complex | None:
+    """Add the Cout/package compensator at the drain and return the f0 admittance the rest must present, S.
+
+    ``None`` when the device has no output capacitance and no package (the network is sized
+    for Ropt as it always was). The compensator (:func:`netgen.synthesis.intrinsic.compensator_plan`,
+    Foster's reactance theorem) resonates Cout at the controlled harmonics; the f0 target is
+    Ropt de-embedded through Cout, Ld and Cp, less the compensator's and the feed choke's
+    susceptance (:func:`netgen.synthesis.intrinsic.f0_target_admittance`).
+    """
+    d = b.design
+    par = parasitics(d)
+    if not par.any:
+        return None
+    known = None
+    if feed_at_drain:
+        l_feed = next(c.value for c in b.items if c.name == "feed_l")
+
+        def known(f_hz: float) -> float:  # the feed choke at the drain terminal, S
+            return -1.0 / (2 * math.pi * f_hz * l_feed)
+    plan = compensator_plan(d, wave_class, ropt, known) if wave_class in ("F", "invF") else []
+    targets = "odd harmonics 3f0.." if wave_class == "F" else "even harmonics 2f0.."
+    for k, (fr, lval) in enumerate(plan, start=1):
+        what = (f"series resonance {fr / d.f0_hz:g} f0" if fr >= d.f0_hz else
+                f"a shunt inductor behind a DC block (series resonance {fr / d.f0_hz:g} f0)")
+        src = (f"Cout compensator branch {k} ({what}): with the other branches it cancels Cout = {par.cout_f:.4g} F, "
+               f"Ld = {par.ld_h:.4g} H, Cp = {par.cp_f:.4g} F at the {targets} and at f0  "
+               "(Foster's reactance theorem, 1924; harmonic traps per Grebennikov, recalled from memory)")
+        b.add(f"comp{k}_l", "L", lval, f"{src}: L = 1/g from the K x K susceptance solve", "comp")
+        b.add(f"comp{k}_c", "C", 1.0 / ((2 * math.pi * fr) ** 2 * lval), f"{src}: C = 1/(omega_k^2 L)", "comp")
+    extra = known(d.f0_hz) if known else 0.0
+    return f0_target_admittance(d, ropt, plan, extra)
+
+
+def past_block(b: Builder, y: complex, name: str = "block_c") -> complex:
+    """The admittance ``y`` wanted at the drain, moved past the series DC block ``name``:
+    ``1/(1/y + j/(omega0 C))`` (series element, circuit theory). The block's small reactance
+    matters once the target carries a large susceptance (a high drain Q from Cout)."""
+    c = next(c.value for c in b.items if c.name == name)
+    return 1.0 / (1.0 / y + 1j / (b.w0 * c))
 
 
 def size_class_f_line(b: Builder, ropt: float) -> None:
@@ -42,8 +78,23 @@ def size_class_f_line(b: Builder, ropt: float) -> None:
     drain (Pozar, the quarter-wave transformer; Raab 1997).
     """
     d = b.design
-    feed_block_transformer(b, ropt)
-    b.parallel_tank("tank", d.load_ohm, d.network.loaded_q, "RL")
+    b.feed(ropt)
+    b.block(ropt)
+    y = absorb_parasitics(b, "F", ropt)
+    rl = d.load_ohm
+    if y is None:
+        b.quarter_wave("line", math.sqrt(ropt * rl),
+                       f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {rl:.6g}) (Pozar, quarter-wave transformer)")
+        b.parallel_tank("tank", rl, d.network.loaded_q, "RL")
+    else:
+        # Zin = Z0^2/Z_L (Pozar): the line presents Y = G + jB when the load end shows
+        # Z_L = Z0^2 Y, i.e. Z0^2 = RL G/|Y|^2 and a tank re-tuned to B_t = -B/(RL G)
+        y = past_block(b, y)
+        g, bb = y.real, y.imag
+        z0 = math.sqrt(rl * g) / abs(y)
+        b.quarter_wave("line", z0, f"Z0 = sqrt(RL G)/|Y| = {z0:.6g} ohm, Y = {g:.6g} {bb:+.6g}j S the f0 target at the "
+                                   f"drain terminal ({_SRC_INTRINSIC}; Pozar, quarter-wave transformer)")
+        b.tuned_tank("tank", rl, d.network.loaded_q, "RL", -bb / (rl * g), "B_t = -B/(RL G) (the target's reactive part)")
     add_load_reactance(b)
 
 
@@ -59,9 +110,16 @@ def size_class_f_feed(b: Builder, ropt: float) -> None:
     b.feed(ropt)
     b.block(ropt, name="bypass_c")
     b.quarter_wave("feedline", ropt, f"Z0 = Ropt = {ropt:.6g} ohm (our choice: a line of the drain impedance; any Z0 gives the odd/even open/short)", role="feed_line")
+    y = absorb_parasitics(b, "F", ropt, feed_at_drain=False)
     b.block(ropt)
-    b.series_resonator("res", ropt, d.network.loaded_q, "Ropt")
-    l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    if y is None:
+        b.series_resonator("res", ropt, d.network.loaded_q, "Ropt")
+        l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    else:
+        zt = 1.0 / past_block(b, y)
+        b.series_resonator("res", zt.real, d.network.loaded_q, "the f0 target")
+        l_section(b, zt.real, zt.imag, d.load_ohm, f"{zt.real:.6g} {zt.imag:+.6g}j ohm ({_SRC_INTRINSIC})",
+                  force=abs(zt.imag) > 1e-9 * zt.real)
     add_load_reactance(b)
 
 
@@ -79,6 +137,7 @@ def size_class_f_lumped(b: Builder, ropt: float) -> None:
     """
     d = b.design
     b.feed(ropt)
+    y = absorb_parasitics(b, "F", ropt)
     b.block(ropt)
     zr, how_zr = resonator_z(d, ropt)
     x_tanks = 0.0
@@ -89,8 +148,14 @@ def size_class_f_lumped(b: Builder, ropt: float) -> None:
         b.add(f"res{n}_l", "L", zr / wn, f"{src}: L = Zr/omega_n", "resonator")
         b.add(f"res{n}_c", "C", 1.0 / (zr * wn), f"{src}: C = 1/(Zr omega_n)", "resonator")
         x_tanks += b.w0 * (zr / wn) / (1.0 - (1.0 / n) ** 2)
-    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
-    l_section(b, ropt, -x_tanks, d.load_ohm, f"Ropt - j{x_tanks:.6g} ohm", force=True)
+    if y is None:
+        b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
+        l_section(b, ropt, -x_tanks, d.load_ohm, f"Ropt - j{x_tanks:.6g} ohm", force=True)
+    else:
+        zt = 1.0 / past_block(b, y)
+        b.parallel_tank("tank", zt.real, d.network.loaded_q, "the f0 target")
+        l_section(b, zt.real, zt.imag - x_tanks, d.load_ohm,
+                  f"{zt.real:.6g} {zt.imag - x_tanks:+.6g}j ohm (the f0 target less the resonators; {_SRC_INTRINSIC})", force=True)
     add_load_reactance(b)
 
 
@@ -102,8 +167,28 @@ def size_inverse_f_line(b: Builder, ropt: float) -> None:
     short at odd and open at even harmonics at the drain (Pozar, quarter-wave transformer).
     """
     d = b.design
-    feed_block_transformer(b, ropt)
-    b.series_resonator("res", d.load_ohm, d.network.loaded_q, "RL")
+    b.feed(ropt)
+    b.block(ropt)
+    y = absorb_parasitics(b, "invF", ropt)
+    rl = d.load_ohm
+    if y is None:
+        b.quarter_wave("line", math.sqrt(ropt * rl),
+                       f"Z0 = sqrt(Ropt RL) = sqrt({ropt:.6g} x {rl:.6g}) (Pozar, quarter-wave transformer)")
+        b.series_resonator("res", rl, d.network.loaded_q, "RL")
+    else:
+        # Zin = Z0^2/(RL + jX) (Pozar): Y = (RL + jX)/Z0^2, so Z0^2 = RL/G and the series
+        # resonator is re-tuned to X = B RL/G at f0 (its harmonic opens only grow)
+        y = past_block(b, y)
+        g, bb = y.real, y.imag
+        z0 = math.sqrt(rl / g)
+        x = bb * rl / g
+        b.quarter_wave("line", z0, f"Z0 = sqrt(RL/G) = {z0:.6g} ohm, G = {g:.6g} S the f0 target's conductance "
+                                   f"({_SRC_INTRINSIC}; Pozar, quarter-wave transformer)")
+        q = d.network.loaded_q
+        xl = q * rl + max(x, 0.0)
+        src = f"series resonator at f0, loaded Q={q:g} with RL, re-tuned to X = B RL/G = {x:.6g} ohm (the f0 target's susceptance)"
+        b.add("res_l", "L", xl / b.w0, f"{src}: L = (Q RL + max(X, 0))/omega0", "resonator")
+        b.add("res_c", "C", 1.0 / (b.w0 * (xl - x)), f"{src}: C = 1/(omega0 (omega0 L - X))", "resonator")
     add_load_reactance(b)
 
 
@@ -123,15 +208,23 @@ def size_class_e(b: Builder, r_ohm: float) -> None:
     l_feed = next(c.value for c in b.items if c.name == "feed_l")
     c_sokal = E_SHUNT_K / (b.w0 * r_ohm)
     c_total = c_sokal + 1.0 / (b.w0**2 * l_feed)
-    c_shunt = c_total - d.device.cout_f
+    par = parasitics(d)
+    c_dev = par.cout_f + par.cp_f
+    c_shunt = c_total - c_dev
     if c_shunt <= 0:
+        from .intrinsic import class_e_fmax_hz
+
+        fmax = class_e_fmax_hz(r_ohm, c_dev)
         raise SizingError(
-            f"device.cout: {d.device.cout_f:.4g} F is not below the class-E shunt capacitance "
-            f"0.1836/(omega0 R) = {c_total:.4g} F; lower design.pout, raise design.vdd or use a smaller device."
+            f"device.cout: {c_dev:.4g} F (Cout + package Cp) is not below the class-E shunt capacitance "
+            f"0.1836/(omega0 R) = {c_total:.4g} F: class E absorbs it only up to fmax = 0.1836/(2 pi R C) = "
+            f"Imax/(56.5 C Vdd) = {fmax:.4g} Hz (Sokal 1975; Raab 1977); lower design.f0 or design.pout, raise design.vdd "
+            "or use a smaller device."
         )
+    pkg = " (device.package_l is not absorbed by class E: it sits between Cout and this capacitor)" if par.ld_h > 0 else ""
     b.add("shunt_c", "C", c_shunt,
-          f"class-E shunt C = 0.1836/(omega0 R) + 1/(omega0^2 L_feed) - Cout = {c_sokal:.6g} + "
-          f"{c_total - c_sokal:.6g} - {d.device.cout_f:.6g} F (Sokal & Sokal 1975; choke compensation at f0)", "shunt")
+          f"class-E shunt C = 0.1836/(omega0 R) + 1/(omega0^2 L_feed) - Cout - Cp = {c_sokal:.6g} + "
+          f"{c_total - c_sokal:.6g} - {c_dev:.6g} F (Sokal & Sokal 1975; choke compensation at f0){pkg}", "shunt")
     q = d.network.loaded_q
     l0 = q * r_ohm / b.w0
     b.add("series_c", "C", 1.0 / (b.w0**2 * l0), "series resonator C0 = 1/(omega0^2 L0) (also the DC block)", "block")
@@ -167,8 +260,17 @@ def size_class_b_tuned(b: Builder, ropt: float) -> None:
         )
     b.feed(ropt)
     b.block(ropt)
-    b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
-    l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    y = absorb_parasitics(b, "B", ropt)
+    if y is None:
+        b.parallel_tank("tank", ropt, d.network.loaded_q, "Ropt")
+        l_section(b, ropt, 0.0, d.load_ohm, f"Ropt = {ropt:.6g} ohm")
+    else:
+        # every harmonic is shorted, so Cout only helps there; at f0 the tank absorbs it
+        y = past_block(b, y)
+        rt = 1.0 / y.real
+        b.tuned_tank("tank", rt, d.network.loaded_q, "the f0 target", y.imag,
+                     f"the device capacitance ({_SRC_INTRINSIC})")
+        l_section(b, rt, 0.0, d.load_ohm, f"R = 1/G = {rt:.6g} ohm (the f0 target's conductance)")
     add_load_reactance(b)
 
 

@@ -124,6 +124,7 @@ def size(design: Design) -> SizedDesign:
         if est["pcap_w"] > 0:
             derived["hard_switching_est_w"] = (est["pcap_w"], "W", "1/2 C_hf (2 Vdd)^2 f0 (the network capacitance the drain sees at high harmonics) + the device Cout loss (cout_switching_loss): discharged by the switch each turn-on (estimate)")
         pout_est = pout
+    _parasitic_derived(design, topo, ropt, derived)
     if "line_td" in comps or "feedline_td" in comps:
         base = "line" if "line_td" in comps else "feedline"
         td = comps[f"{base}_td"].value
@@ -140,6 +141,28 @@ def size(design: Design) -> SizedDesign:
                                    f"zeta ~ RL/(2 sqrt(L_feed/C_{cb_name[:-2]})): a series loop closed through roughly RL (estimate)")
     return SizedDesign(design=design, ropt_ohm=ropt, components=comps, derived=derived,
                        idc_est_a=idc, pout_est_w=pout_est)
+
+
+#: above this omega0 Cout Ropt the absorbed Cout makes a narrowband, loss-sensitive network (our rule)
+COUT_Q_WARN = 3.0
+
+
+def _parasitic_derived(design: Design, topo, ropt: float, derived: dict) -> None:
+    """``cout_q`` (omega0 Cout Ropt, the device's own Q at f0) and, for class E, ``class_e_fmax_hz``."""
+    from .intrinsic import class_e_fmax_hz, parasitics
+
+    par = parasitics(design)
+    if par.cout_f <= 0 and par.cp_f <= 0:
+        return
+    w0 = 2 * PI * design.f0_hz
+    q = w0 * (par.cout_f + par.cp_f) * ropt
+    derived["cout_q"] = (q, "", ("omega0 (Cout + Cp) Ropt: the device capacitance's own Q at f0, absorbed by the network "
+                                 f"(above {COUT_Q_WARN:g} the design is narrowband and sensitive to part loss and tolerance: "
+                                 "lower f0, use a smaller device or a lower Ropt)"))
+    if topo.wave_class == "E":
+        derived["class_e_fmax_hz"] = (class_e_fmax_hz(ropt, par.cout_f + par.cp_f), "Hz",
+                                      ("highest f0 at which class E absorbs Cout: 0.1836/(2 pi R Cout) = "
+                                       "Imax/(56.5 Cout Vdd) (Sokal 1975; Raab 1977)"))
 
 
 def _lossless(design: Design) -> Design:

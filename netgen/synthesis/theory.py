@@ -239,6 +239,9 @@ def bound_for(sized) -> dict:
       unlimited (half sine): Raab01 eta(n = 2N+1, m = inf), e.g. 0.9069 (N=1),
       0.9481 (N=2).
     * class_b_tuned: every harmonic shorted: pi/4 [Cripps].
+    * with a device output capacitance, the line topologies control the harmonics up to the
+      compensator's order (``network.harmonics`` = K): class F opens 3f0 .. (2K+1) f0,
+      eta(n = 2K+1, m = inf); inverse F opens 2f0 .. 2K f0, by duality eta(n = inf, m = 2K).
     * class_e: 100 % [Sokal75].
     * a user template: no bound (``efficiency`` None).
 
@@ -251,6 +254,18 @@ def bound_for(sized) -> dict:
     """
     design = getattr(sized, "design", sized)
     topo = design.topology
+    dev = design.device
+    if (dev.cout_f > 0 or getattr(dev, "package_c_f", 0.0) > 0) and topo in ("class_f_line", "class_f_feed", "inverse_f_line"):
+        # the compensator opens the harmonics up to its order; above it Cout shorts them
+        # (netgen.synthesis.intrinsic.controlled_pattern)
+        k = int(design.network.harmonics)
+        if topo == "inverse_f_line":
+            return {"efficiency": raab_max_efficiency(math.inf, 2 * k),
+                    "name": f"inverse class F with Cout absorbed: voltage harmonics up to {2 * k}f0, square current",
+                    "source": _SRC_RAAB01 + f" (dual waveforms), n = infinity, m = {2 * k} (linear programme)"}
+        return {"efficiency": raab_max_efficiency(2 * k + 1, math.inf),
+                "name": f"class F with Cout absorbed: voltage harmonics up to {2 * k + 1}f0, half-sine current",
+                "source": _SRC_RAAB01 + f", n = {2 * k + 1}, m = infinity (linear programme)"}
     if topo in ("class_f_line", "class_f_feed"):
         return {"efficiency": 1.0, "name": "ideal class F (every harmonic controlled by the line)",
                 "source": _SRC_RAAB01 + ", n = m = infinity"}

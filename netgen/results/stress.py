@@ -1,0 +1,139 @@
+"""Stress on every part: peak voltage across each capacitor, peak and RMS current through each
+inductor and capacitor, dissipation in each lossy part (metrics.json ``stress``).
+
+Read from the settled waveforms (the uniform grid over the stored periods) and the transient
+netlist: each ``L``/``C`` element's nodes, the inductor branch currents the run saved
+(``Waveforms.i[<element>]``), and the ``RLOSS_<component>`` resistor in series with a lossy part
+(docs/netlist_conventions.md). A capacitor's current is its ``RLOSS`` current where it has one,
+else ``C dv/dt`` (periodic central difference). Peak voltage ``v_peak_v`` is max |v| (the DC
+across a DC block included); ``v_ac_peak_v`` is max |v - mean v| (the RF swing alone).
+A rating margin is the designer's (common practice: derate capacitors to about half their
+rated voltage, inductors to their rated current); these are the values to derate from.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = ["part_stress", "stress_summary", "buildability_warnings", "MIN_LUMPED_L_H", "MIN_LUMPED_C_F"]
+
+#: smallest lumped parts a designer can buy or build with a defined value (our rule of thumb: the
+#: smallest catalogue chip parts are about 0.5 nH and 0.2 pF, and a pad or a via adds that much)
+MIN_LUMPED_L_H = 0.5e-9
+MIN_LUMPED_C_F = 0.2e-12
+#: a lumped part is a distributed one above this fraction of a wavelength (common practice: lambda/10)
+MAX_LUMPED_FRACTION = 0.1
+
+
+def _elements(netlist_text: str) -> dict[str, list[str]]:
+    out = {}
+    for raw in netlist_text.splitlines():
+        line = raw.strip()
+        if not line or line[0] in "*+.;":
+            continue
+        tok = line.split()
+        out[tok[0].upper()] = tok
+    return out
+
+
+def _value(text: str) -> float | None:
+    from netgen.netlist import parse_spice_number
+
+    try:
+        return parse_spice_number(text.split("=", 1)[-1])
+    except ValueError:
+        return None
+
+
+def _v(wf, node: str):
+    if node in ("0", "gnd"):
+        return np.zeros_like(np.asarray(wf.t_s, float))
+    got = wf.v.get(node, wf.v.get(node.lower()))
+    return None if got is None else np.asarray(got, float)
+
+
+def _entry(v: np.ndarray | None, i: np.ndarray | None, p_loss: float | None, kind: str, element: str) -> dict:
+    out = {"element": element, "kind": kind, "v_peak_v": None, "v_ac_peak_v": None, "i_peak_a": None,
+           "i_rms_a": None, "p_loss_w": None if p_loss is None else float(p_loss)}
+    if v is not None:
+        out["v_peak_v"] = float(np.max(np.abs(v)))
+        out["v_ac_peak_v"] = float(np.max(np.abs(v - np.mean(v))))
+    if i is not None:
+        out["i_peak_a"] = float(np.max(np.abs(i)))
+        out["i_rms_a"] = float(math.sqrt(np.mean(i**2)))
+    return out
+
+
+def part_stress(wf, netlist_text: str) -> dict[str, dict]:
+    """Element name -> ``element``, ``kind``, ``v_peak_v``, ``v_ac_peak_v``, ``i_peak_a``, ``i_rms_a``,
+    ``p_loss_w`` (null where the run lacks a vector), for every L and C of the transient netlist."""
+    el = _elements(netlist_text)
+    dt = (wf.t_s[1] - wf.t_s[0]) if len(wf.t_s) > 1 else 1.0
+    currents = {k.upper(): np.asarray(v, float) for k, v in wf.i.items()}
+    out: dict[str, dict] = {}
+    for name, tok in el.items():
+        kind = name[0]
+        if kind not in "LC" or len(tok) < 4:
+            continue
+        a, b = tok[1].lower(), tok[2].lower()
+        va, vb = _v(wf, a), _v(wf, b)
+        v = None if va is None or vb is None else va - vb
+        # the series loss resistor of this part: RLOSS_* from node b (x_<component>) onwards
+        rl = next((t for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4 and t[1].lower() == b
+                   and b.startswith("x_")), None)
+        i_r, p_loss = None, None
+        if rl is not None:
+            r = _value(rl[3])
+            vr_a, vr_b = _v(wf, rl[1].lower()), _v(wf, rl[2].lower())
+            if r and vr_a is not None and vr_b is not None:
+                i_r = (vr_a - vr_b) / r
+                p_loss = float(np.mean((vr_a - vr_b) ** 2) / r)
+        if kind == "L":
+            i = currents.get(name, i_r)
+        else:
+            c = _value(tok[3])
+            i = i_r
+            if i is None and v is not None and c:
+                i = c * (np.roll(v, -1) - np.roll(v, 1)) / (2.0 * dt)
+        out[tok[0]] = _entry(v, i, p_loss, kind, tok[0])
+    return out
+
+
+def stress_summary(stress: dict[str, dict]) -> dict:
+    """The worst part of each kind (sweep columns and ``--spec``): ``stress_cap_v_peak_v`` (and its
+    element), ``stress_ind_i_peak_a``, ``stress_max_loss_w``."""
+    def worst(kind, key):
+        rows = [(r[key], n) for n, r in stress.items() if r["kind"] == kind and r.get(key) is not None]
+        return max(rows) if rows else (None, None)
+
+    cv, cn = worst("C", "v_peak_v")
+    li, ln = worst("L", "i_peak_a")
+    losses = [(r["p_loss_w"], n) for n, r in stress.items() if r.get("p_loss_w") is not None]
+    pl, pn = max(losses) if losses else (None, None)
+    return {"stress_cap_v_peak_v": cv, "stress_cap_v_peak_part": cn, "stress_ind_i_peak_a": li,
+            "stress_ind_i_peak_part": ln, "stress_max_loss_w": pl, "stress_max_loss_part": pn}
+
+
+def buildability_warnings(sized) -> list[str]:
+    """Parts that cannot be bought or built as lumped parts at this frequency, with what to do.
+
+    Flags an inductor below :data:`MIN_LUMPED_L_H` or a capacitor below :data:`MIN_LUMPED_C_F`
+    (parasitics of that size swamp them), with what to do. Self-resonance is not checked
+    (pashape has no key for a part's SRF).
+    """
+    out = []
+    d = sized.design
+    for c in sized.components.values():
+        if c.role == "comp":
+            fix = "realise this Cout compensator branch as a transmission-line stub, or lower network.harmonics"
+        else:
+            fix = "choose a line-based topology or change network.loaded_q"
+        if c.kind == "L" and c.value < MIN_LUMPED_L_H:
+            out.append(f"part {c.name} = {c.value * 1e12:.3g} pH at {d.f0_hz / 1e6:.6g} MHz is below the smallest buildable "
+                       f"inductor (about {MIN_LUMPED_L_H * 1e9:g} nH): {fix}")
+        elif c.kind == "C" and c.value < MIN_LUMPED_C_F:
+            out.append(f"part {c.name} = {c.value * 1e15:.3g} fF at {d.f0_hz / 1e6:.6g} MHz is below the smallest buildable "
+                       f"capacitor (about {MIN_LUMPED_C_F * 1e12:g} pF): {fix}")
+    return out
