@@ -13,7 +13,6 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
-    "CAUTIONS": "report",
     "CAUTION_LINE": "cautions",
     "CAUTION_SHORT": "cautions",
     "analyse": "analysis",

@@ -458,7 +458,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
     metrics["stress"] = {k: {kk: (_f(vv) if isinstance(vv, float) else vv) for kk, vv in r.items()}
-                         for k, r in part_stress(wf, netlist_text).items()}
+                         for k, r in part_stress(wf, netlist_text, losses).items()}
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = (([impossible] if impossible else []) + design_warnings(sized, metrics)
                            + plane_warnings(sized, metrics) + buildability_warnings(sized))

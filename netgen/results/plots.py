@@ -311,8 +311,9 @@ def plot_smith(path, metrics: dict, z_ref_ohm: float | None = None) -> Path:
             # the design on a second line, so a long name is never cut off at the figure's edge
             title = _title(metrics, what).replace(" - ", "\n", 1) if j == 0 else what + "\n"
             ax.set_title(title, loc="left")
-        # the footnote sits below the charts, clear of the circles and their labels
-        fig.tight_layout(rect=(0.0, 0.07, 1.0, 1.0))
+        # the footnote sits below the charts, clear of the circles and their labels; the top margin
+        # keeps a two-line title inside the figure
+        fig.tight_layout(rect=(0.0, 0.07, 1.0, 0.97))
         fig.text(0.03, 0.02, f"reference {ref_name} = {z_ref_ohm:.4g} ohm; left end short, right end open;"
                  "\nharmonics with negligible current are not shown", fontsize=8, color="#555555", va="bottom")
         return _save(fig, path)

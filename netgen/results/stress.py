@@ -66,9 +66,13 @@ def _entry(v: np.ndarray | None, i: np.ndarray | None, p_loss: float | None, kin
     return out
 
 
-def part_stress(wf, netlist_text: str) -> dict[str, dict]:
+def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, dict]:
     """Element name -> ``element``, ``kind``, ``v_peak_v``, ``v_ac_peak_v``, ``i_peak_a``, ``i_rms_a``,
-    ``p_loss_w`` (null where the run lacks a vector), for every L and C of the transient netlist."""
+    ``p_loss_w`` (null where the run lacks a vector), for every L and C of the transient netlist.
+
+    ``losses``: the loss budget (``RLOSS_<key>`` -> W, exact integrals over the averaged window,
+    netgen.results.analysis); a part's dissipation is taken from it, so the two always agree.
+    """
     el = _elements(netlist_text)
     dt = (wf.t_s[1] - wf.t_s[0]) if len(wf.t_s) > 1 else 1.0
     currents = {k.upper(): np.asarray(v, float) for k, v in wf.i.items()}
@@ -81,8 +85,8 @@ def part_stress(wf, netlist_text: str) -> dict[str, dict]:
         va, vb = _v(wf, a), _v(wf, b)
         v = None if va is None or vb is None else va - vb
         # the series loss resistor of this part: RLOSS_* from node b (x_<component>) onwards
-        rl = next((t for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4 and t[1].lower() == b
-                   and b.startswith("x_")), None)
+        rl_name, rl = next(((k, t) for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4
+                            and t[1].lower() == b and b.startswith("x_")), (None, None))
         i_r, p_loss = None, None
         if rl is not None:
             r = _value(rl[3])
@@ -90,6 +94,9 @@ def part_stress(wf, netlist_text: str) -> dict[str, dict]:
             if r and vr_a is not None and vr_b is not None:
                 i_r = (vr_a - vr_b) / r
                 p_loss = float(np.mean((vr_a - vr_b) ** 2) / r)
+            budget = {k.lower(): w for k, w in (losses or {}).items()}
+            if rl_name[6:].lower() in budget:
+                p_loss = float(budget[rl_name[6:].lower()])
         if kind == "L":
             i = currents.get(name, i_r)
         else:

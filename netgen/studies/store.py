@@ -131,10 +131,12 @@ class SweepStore:
                     self.con.execute(f"ALTER TABLE points ADD COLUMN {col} REAL")
             self.con.commit()
             _upgrade(self.con)
-        except (OutputError, sqlite3.DatabaseError, OSError) as exc:
+        except (OutputError, sqlite3.DatabaseError, OSError, _BadRow) as exc:
             self._undo(made_file, made_folder)  # a full disk leaves no empty store or folder behind
             if isinstance(exc, OutputError):
                 raise
+            if isinstance(exc, _BadRow):
+                raise self._corrupt(f"point {exc.args[0]} has no inputs or an unknown status") from None
             if isinstance(exc, sqlite3.DatabaseError):
                 if _is_full(exc):
                     raise self._full_error() from None
@@ -362,6 +364,10 @@ def _is_full(exc: BaseException) -> bool:
     return getattr(exc, "sqlite_errorcode", None) == sqlite3.SQLITE_FULL or "disk is full" in str(exc)
 
 
+class _BadRow(Exception):
+    """A stored point that no store of ours could have written (``args[0]``: its index)."""
+
+
 def _upgrade(con: sqlite3.Connection) -> None:
     """Bring a store written before the ``lost`` status and the ``attempts`` column up to date.
 
@@ -372,6 +378,10 @@ def _upgrade(con: sqlite3.Connection) -> None:
     if row is None or "'lost'" in row[0]:
         return
     old = [r[1] for r in con.execute("PRAGMA table_info(points)")]
+    bad = con.execute("SELECT idx FROM points WHERE sweep_id IS NULL OR idx IS NULL OR inputs IS NULL OR status IS NULL "
+                      f"OR status NOT IN {STATUSES!r} LIMIT 1").fetchone()
+    if bad is not None:  # such a row would not fit the store's table: say which point, change nothing
+        raise _BadRow(bad[0])
     con.execute("BEGIN IMMEDIATE")
     try:
         con.execute("DROP TABLE IF EXISTS points_upgraded")

@@ -168,7 +168,7 @@ def _pct(x) -> str:
 
 def _html(result: TuneResult, s: dict, run_files: dict) -> str:
     """report.html: what was free, the goals, the before/after table, the history, the cautions."""
-    from netgen.results import CAUTIONS
+    from netgen.results import caution_texts
 
     p = result.problem
     rows = []
@@ -189,7 +189,7 @@ def _html(result: TuneResult, s: dict, run_files: dict) -> str:
                  f"efficiency {100 * (conf['efficiency_rel'] or 0):+.3f} %"
                  + (" (more than 0.2 % apart: trust the ngspice column)" if conf["flagged"] else ""))
     link = f" <a href='confirm/{run_files['report']}'>full ngspice report</a>" if run_files.get("report") else ""
-    cautions = "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS)
+    cautions = "".join(f"<li>{html.escape(c)}</li>" for c in caution_texts())
     name = html.escape(str((p.base_doc.get("design") or {}).get("name", "design")))
     return f"""<!doctype html><html><head><meta charset=utf-8><title>tuning {name}</title>
 <style>body{{font-family:Georgia,serif;background:#fbf8f1;color:#2b2d33;max-width:980px;margin:0 auto;padding:18px}}
