@@ -276,7 +276,9 @@ def _smith_points(ax, rows: list[dict], keys: tuple[str, str], z_ref_ohm: float)
         g = _gamma(complex(r[keys[0]], r[keys[1]]) / z_ref_ohm)
         c = COLORS["current"] if r["n"] == 1 else colors(0.15 + 0.7 * k / max(len(rows), 1))
         ax.plot(g.real, g.imag, "o", color=c, ms=8, mec="black", mew=0.5, zorder=3)
-        labels.setdefault((round(g.real, 2), round(g.imag, 2)), []).append(f"{r['n']}f0")
+        # points closer than a label's size share one label ("2f0, 4f0"), so no label hides another
+        near = next((key for key in labels if abs(complex(*key) - g) < 0.08), (g.real, g.imag))
+        labels.setdefault(near, []).append(f"{r['n']}f0")
     for (gx, gy), names in labels.items():
         ax.annotate(", ".join(names), (gx, gy), xytext=(7, 7), textcoords="offset points", fontsize=9,
                     fontweight="bold", zorder=4, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
