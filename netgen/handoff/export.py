@@ -204,10 +204,12 @@ def _warm_ic(sized, backend: str) -> dict:
 def _periodic_state(sized):
     """The periodic steady state netgen starts its own run on (:mod:`netgen.periodic.estimator`), or None
     where the netlist is outside what it models (the pack then starts from the DC state)."""
-    from netgen.netlist import render
+    from netgen.netlist import BLOCK_SUBCKT, design_block, render
 
     try:
-        return estimate(render(sized, mode="tran"), sized.design.f0_hz, sized.design.sim.points_per_cycle)
+        block = design_block(sized.design)
+        return estimate(render(sized, mode="tran"), sized.design.f0_hz, sized.design.sim.points_per_cycle,
+                        blocks={BLOCK_SUBCKT: block} if block is not None else None)
     except Unsupported:
         return None
 

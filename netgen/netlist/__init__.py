@@ -6,7 +6,8 @@ parameters, source waveforms and device expressions of a netlist, as the periodi
 the analysis need them.
 
 Modules: ``renderer`` (Jinja environment, dialects, header), ``portable`` (the strict portable
-subset checker), ``cards`` (reading a netlist back; SPICE numbers).
+subset checker), ``cards`` (reading a netlist back; SPICE numbers), ``touchstone`` (Touchstone
+blocks: read, check, evaluate) and ``blockfit`` (their rational fit and SPICE subcircuit).
 """
 
 from importlib import import_module
@@ -14,12 +15,15 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "Block": "touchstone",
+    "BLOCK_SUBCKT": "touchstone",
     "Card": "cards",
     "GROUND": "cards",
     "SourceWaveform": "cards",
     "Unsupported": "cards",
     "card_params": "cards",
     "check_portable": "portable",
+    "design_block": "touchstone",
     "device_expression": "cards",
     "format_problems": "portable",
     "loss_elements": "renderer",

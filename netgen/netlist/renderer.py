@@ -127,6 +127,9 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
     ]
     for c in sized.components.values():
         lines.append(f"  {c.name} = {_fmt(c.value)} {c.unit}: {c.how}")
+    if d.block.file is not None:
+        lines.append(f"Touchstone block: {Path(d.block.file).name} replaces {d.block.section}; subcircuit NGBLOCK "
+                     "at the end of this netlist (docs/touchstone_blocks.md)")
     lines.append("derived values:")
     for k, (v, unit, how) in sized.derived.items():
         lines.append(f"  {k} = {_fmt(v)} {unit}: {how}")
@@ -208,6 +211,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
     ic = dict(ic or {})
     for k_, v_ in ic.items():
         _fmt(v_)
+    block = _block_ctx(sized, tail)
     return {
         "design": {"name": d.name, "topology": d.topology, "f0_hz": d.f0_hz, "vdd_v": d.vdd_v,
                    "load_ohm": d.load_ohm, "load_x_ohm": d.load_x_ohm, "period_s": period},
@@ -217,6 +221,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "has_line": bool(lines),
         "tail": tail,
         "tail_in": tail_in,
+        "block": block,
         "resonators": sorted(int(m.group(1)) for m in (re.match(r"^res(\d+)_l$", k) for k in sized.components) if m),
         "mode": mode,
         "dialect": dialect,
@@ -229,6 +234,41 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "version": __version__,
         "digest": sized.digest(),
     }
+
+
+def _block_ctx(sized: SizedDesign, tail: list) -> dict:
+    """The ``block`` context (docs/template_context.md): section, ports, subcircuit name; empty
+    section when the design has no Touchstone block (netgen.netlist.touchstone)."""
+    from netgen.errors import DesignError
+
+    from .touchstone import SUBCKT_NAME, design_block
+
+    block = design_block(sized.design)
+    if block is None:
+        return {"section": "", "nports": 0, "subckt": SUBCKT_NAME, "file": ""}
+    if block.section == "match" and not tail:
+        raise DesignError("block.section: 'match', but the sized design has no match section (Ropt equals RL and "
+                          "design.load_x is 0); use block.section = \"network\".")
+    return {"section": block.section, "nports": block.nports, "subckt": SUBCKT_NAME, "file": block.name}
+
+
+def _block_cards(text: str, sized: SizedDesign) -> str:
+    """The block's subcircuit text, after checking the rendered netlist places it (one or more
+    ``X... <nodes> NGBLOCK`` cards with one node per port); '' without a block."""
+    from .touchstone import SUBCKT_NAME, design_block
+
+    block = design_block(sized.design)
+    if block is None:
+        return ""
+    uses = [ln.split() for ln in text.splitlines() if ln[:1] in ("x", "X") and ln.split()[-1].upper() == SUBCKT_NAME]
+    if not uses:
+        raise RenderError(f"block.file: the template places no block; call {{{{ dev.touchstone(...) }}}} with "
+                          f"{block.nports} node(s) (docs/touchstone_blocks.md).")
+    for toks in uses:
+        if len(toks) != block.nports + 2:
+            raise RenderError(f"block.file: {toks[0]} connects {len(toks) - 2} node(s), but '{block.name}' has "
+                              f"{block.nports} port(s); give dev.touchstone one node per port.")
+    return block.subckt
 
 
 def cout_series_ohm(cout_f: float, period_s: float, tmax_s: float) -> float:
@@ -313,7 +353,9 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     env = _environment()
     d = sized.design
     try:
-        if d.template_path is None:
+        if d.template_path is None and ctx["block"]["section"] == "network":
+            tmpl = env.get_template("block_network.j2")
+        elif d.template_path is None:
             from netgen.synthesis import get_topology
 
             tmpl = env.get_template(get_topology(d.topology).template)
@@ -335,12 +377,13 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     except (TypeError, ValueError, OverflowError, ZeroDivisionError, ArithmeticError, LookupError,
             AttributeError, RecursionError) as exc:
         raise RenderError(f"template for {d.topology}: {type(exc).__name__}: {exc}; fix the template expression.") from None
-    text = _finish(text, mode)
+    text = _finish(text, mode, _block_cards(text, sized))
     return portable_cards(text) if dialect == "portable" else text
 
 
-def _finish(text: str, mode: str) -> str:
-    """Normalise blank lines, add ``.save`` of the loss-resistor nodes (tran), end with ``.end``."""
+def _finish(text: str, mode: str, block_text: str = "") -> str:
+    """Normalise blank lines, add the Touchstone block's subcircuit, ``.save`` of the loss-resistor
+    nodes (tran), end with ``.end``."""
     lines = [ln.rstrip() for ln in text.splitlines()]
     lines = [ln for ln in lines if ln]
     if lines and lines[-1].lower() == ".end":
@@ -350,6 +393,8 @@ def _finish(text: str, mode: str) -> str:
         if floating:
             lines.append("* DC paths for nodes isolated by capacitors (op mode only; 1e12 ohm changes nothing else)")
             lines += [f"RDC_{n} {n} 0 1e12" for n in floating]
+    if block_text:
+        lines += block_text.splitlines()
     if mode == "tran":
         nodes = []
         for _, a, b, _r in loss_elements("\n".join(lines)):
