@@ -395,6 +395,10 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     for row in table[1:]:
         metrics[f"h{row['n']}_dbc"] = row["pload_dbc"]
     metrics["warnings"] = design_warnings(sized, metrics)
+    if design.block.file is not None:
+        from netgen.netlist import design_block
+
+        metrics["block"] = design_block(design).summary()
     return metrics
 
 
