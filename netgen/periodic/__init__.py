@@ -17,7 +17,7 @@ _EXPORTS = {
     "PeriodicState": "estimator",
     "dc_initial_conditions": "bias_nulling",
     "estimate": "estimator",
-    "fourier": "fourier",
+    "fourier_series": "fourier",
     "fourier_pwl": "fourier",
     "periods_in": "fourier",
     "pwl_mean_square": "fourier",

@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-__all__ = ["fourier", "fourier_pwl", "periods_in", "pwl_mean_square"]
+__all__ = ["fourier", "fourier_series", "fourier_pwl", "periods_in", "pwl_mean_square"]
 
 
 
@@ -182,3 +182,6 @@ def pwl_mean_square(t_s: np.ndarray, x: np.ndarray, t0_s: float, t1_s: float) ->
     return float(np.sum(h * (a * a + a * b + b * b)) / 3.0 / (t1_s - t0_s))
 
 
+#: ``fourier`` under the name the package exports: ``netgen.periodic.fourier`` is this module once
+#: any module of the package imports it, so the function cannot be reached by that name
+fourier_series = fourier

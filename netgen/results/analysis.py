@@ -23,7 +23,7 @@ import numpy as np
 
 from netgen.errors import SimulationError
 from netgen.netlist import parse_spice_number
-from netgen.periodic import fourier, periods_in
+from netgen.periodic import fourier_series, periods_in
 from netgen.synthesis import bound_for
 
 __all__ = [
@@ -63,8 +63,8 @@ def waveform_efficiency(vd: np.ndarray, id_: np.ndarray, vdd_v: float, periods: 
     carries the DC); the device's current flows into the drain, so the power it
     delivers to the network at f0 is the negative of Re(V1 I1*)/2 [Cripps].
     """
-    v = fourier(vd, periods, 1)
-    i = fourier(id_, periods, 1)
+    v = fourier_series(vd, periods, 1)
+    i = fourier_series(id_, periods, 1)
     return float(-0.5 * (v[1] * np.conj(i[1])).real / (vdd_v * i[0].real))
 
 
@@ -325,11 +325,11 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None) -> di
     rl = load_resistance(netlist_text, design.load_ohm)
     exact = _exact_coefficients(wf, n_h)
     V = exact.get("drain_v", None)
-    V = V if V is not None else fourier(vd, periods, n_h)
+    V = V if V is not None else fourier_series(vd, periods, n_h)
     I = exact.get("drain_i", None)
-    I = I if I is not None else fourier(idr, periods, n_h)
+    I = I if I is not None else fourier_series(idr, periods, n_h)
     VL = exact.get("load_v", None)
-    VL = VL if VL is not None else fourier(vl, periods, n_h)
+    VL = VL if VL is not None else fourier_series(vl, periods, n_h)
 
     idc = float(exact["supply_i"][0].real) if "supply_i" in exact else float(np.mean(isup))
     pdc = vdd * idc

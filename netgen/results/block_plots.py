@@ -7,17 +7,43 @@ fit's error ``|S_fit - S_file|`` with the tolerance it was held to.
 
 from __future__ import annotations
 
+import io
 from pathlib import Path
 
-import numpy as np
+import matplotlib
 
-from .plots import _RC, _gamma, _save, _title, plt
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from netgen.fileio import atomic_write_bytes  # noqa: E402
 
 __all__ = ["plot_block"]
 
 _PAIRS_1 = ((0, 0, "S11"),)
 _PAIRS_2 = ((0, 0, "S11"), (1, 0, "S21"), (1, 1, "S22"))
 _COLS = {"S11": "#1f5fa8", "S21": "#c0392b", "S22": "#2e8b57"}
+
+
+_RC = {"figure.facecolor": "white", "axes.grid": True, "grid.color": "#e3e3e3", "axes.spines.top": False,
+       "axes.spines.right": False, "font.size": 10, "axes.titlesize": 11, "axes.titleweight": "bold",
+       "legend.frameon": False}
+
+
+def _gamma(z_norm):
+    return (np.asarray(z_norm) - 1) / (np.asarray(z_norm) + 1)
+
+
+def _save(fig, path) -> Path:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110, facecolor="white")
+    plt.close(fig)
+    return atomic_write_bytes(Path(path), buf.getvalue())
+
+
+def _title(metrics: dict | None, what: str) -> str:
+    d = (metrics or {}).get("design", {})
+    return f"{what} - {d['name']} ({d.get('topology', '')})" if d.get("name") else what
 
 
 def _smith_grid(ax) -> None:
