@@ -128,7 +128,7 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
     for c in sized.components.values():
         lines.append(f"  {c.name} = {_fmt(c.value)} {c.unit}: {c.how}")
     if d.block.file is not None:
-        lines.append(f"Touchstone block: {Path(d.block.file).name} replaces {d.block.section}; subcircuit NGBLOCK "
+        lines.append(f"Touchstone block: {_ascii(Path(d.block.file).name)} replaces {d.block.section}; subcircuit NGBLOCK "
                      "at the end of this netlist (docs/touchstone_blocks.md)")
     lines.append("derived values:")
     for k, (v, unit, how) in sized.derived.items():
@@ -249,7 +249,12 @@ def _block_ctx(sized: SizedDesign, tail: list) -> dict:
     if block.section == "match" and not tail:
         raise DesignError("block.section: 'match', but the sized design has no match section (Ropt equals RL and "
                           "design.load_x is 0); use block.section = \"network\".")
-    return {"section": block.section, "nports": block.nports, "subckt": SUBCKT_NAME, "file": block.name}
+    return {"section": block.section, "nports": block.nports, "subckt": SUBCKT_NAME, "file": _ascii(block.name)}
+
+
+def _ascii(text: str) -> str:
+    """A file name as plain printable ASCII (it reaches comment lines of the portable dialect)."""
+    return "".join(ch if 32 <= ord(ch) < 127 else "_" for ch in text)
 
 
 def _block_cards(text: str, sized: SizedDesign) -> str:

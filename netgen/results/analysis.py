@@ -26,6 +26,9 @@ from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier_series, periods_in
 from netgen.synthesis import bound_for
 
+#: the name callers of this module used (the package export is fourier_series; see netgen.periodic)
+fourier = fourier_series
+
 __all__ = [
     "parse_loss_elements",
     "load_resistance",
