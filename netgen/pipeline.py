@@ -42,13 +42,19 @@ class RunResult:
 def network_sweep(sized: SizedDesign, n_max: int, points: int = 801) -> tuple[np.ndarray, np.ndarray]:
     """The passive network's drain impedance from 0.1 f0 to (n_max + 0.5) f0, n f0 points included.
 
-    Computed in the frequency domain by :func:`netgen.synthesis.network.z_drain` (no simulator).
+    Computed in the frequency domain by :func:`netgen.synthesis.network.z_drain` (no simulator);
+    with a Touchstone block replacing a named section, that section is the block's data
+    terminated in RL (its fit above the file's last point; netgen.netlist.touchstone).
     """
-    from netgen.synthesis import z_drain
+    from netgen.netlist import design_block
+    from netgen.synthesis import z_drain, z_drain_with_section
 
     f0 = sized.design.f0_hz
     f = np.linspace(0.1 * f0, (n_max + 0.5) * f0, points)
     f = np.unique(np.concatenate([f, f0 * np.arange(1, n_max + 1)]))
+    block = design_block(sized.design)
+    if block is not None and block.section in ("network", "match"):
+        return f, np.asarray(z_drain_with_section(sized, f, block.section, block.z_in(f, sized.design.load_ohm)))
     return f, np.asarray(z_drain(sized, f))
 
 

@@ -201,3 +201,25 @@ def test_cli_import_pulls_in_no_heavy_library():
             "if m in sys.modules]; print(','.join(heavy))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+def test_exported_names_are_not_shadowed_by_submodules():
+    # An exported name equal to a submodule's name is replaced by that module once any module of the
+    # room imports the submodule (Python's import system sets the package attribute), so callers get
+    # a module instead of the function: netgen.periodic exported 'fourier' this way, and the
+    # fallback Fourier path of results.analysis failed with "'module' object is not callable"
+    # whenever the simulator had been imported first (the hand-off pack's portable re-run).
+    code = ("import importlib, pkgutil, types, pashape\n"
+            "bad = []\n"
+            "for room in pkgutil.iter_modules(netgen.__path__):\n"
+            "    if not room.ispkg or room.name in ('templates', 'sims', 'cli'):\n"
+            "        continue\n"
+            "    pkg = importlib.import_module('netgen.' + room.name)\n"
+            "    for sub in pkgutil.iter_modules(pkg.__path__):\n"
+            "        if sub.name != '__main__':\n"
+            "            importlib.import_module(pkg.__name__ + '.' + sub.name)\n"
+            "    bad += [pkg.__name__ + '.' + n for n in getattr(pkg, '__all__', [])\n"
+            "            if isinstance(getattr(pkg, n), types.ModuleType)]\n"
+            "print(bad)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]", out

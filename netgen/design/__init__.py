@@ -14,6 +14,8 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "BLOCK_SECTIONS": "schema",
+    "BlockSpec": "schema",
     "COMPONENT_UNITS": "records",
     "Component": "records",
     "Design": "schema",

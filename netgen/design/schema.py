@@ -29,6 +29,8 @@ __all__ = [
     "Design",
     "DeviceSpec",
     "NetworkSpec",
+    "BlockSpec",
+    "BLOCK_SECTIONS",
     "SimSpec",
     "SCHEMA",
     "TOPOLOGIES",
@@ -54,6 +56,8 @@ TOPOLOGIES = (
     "class_b_tuned",
 )
 DEVICE_MODELS = ("switch", "gm", "spice")
+#: what a Touchstone block replaces (docs/touchstone_blocks.md)
+BLOCK_SECTIONS = ("network", "match", "template")
 
 #: Names that reach a netlist (design name, subcircuit name, component names).
 SAFE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
@@ -128,6 +132,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `pashape size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
         "values": Key("values", "values", {}, "Explicit component values by name (e.g. tank_l = \"2.4 nH\"); they override sizing."),
     },
+    "block": {
+        "file": Key("file", "str", None, "Touchstone file (.s1p/.s2p, version 1 or 2) of a measured or EM-simulated network, relative to the design file; the block replaces block.section (docs/touchstone_blocks.md)."),
+        "section": Key("section", "str", "network", "What the block replaces: network (everything between the drain and RLOAD except the DC feed; port 1 at the drain, port 2 at RLOAD), match (the L-section match and load reactance before RLOAD), or template (a user template places it with dev.touchstone(...)).", choices=BLOCK_SECTIONS),
+        "order": Key("order", "int", 0, "Order of the rational (vector) fit ngspice runs: real poles + 2 x complex pairs; 0 picks the lowest order that meets block.fit_tol.", lo=0, hi=60),
+        "fit_tol": Key("fit_tol", "", 0.01, "Largest allowed |S_fit - S_file| over the file's points from DC to sim.harmonics x f0; a worse fit is refused.", lo=1e-6, hi=0.5),
+        "passivity": Key("passivity", "str", "enforce", "A rational fit that is not passive: enforce (scikit-rf's passivity enforcement, then re-checked) or refuse.", choices=("enforce", "refuse")),
+    },
     "sim": {
         "points_per_cycle": Key("points_per_cycle", "int", 1000, "Maximum time step as a fraction of the period (TMAX = T/points_per_cycle).", lo=50, hi=20000),
         "settle_tol": Key("settle_tol", "", 1e-3, "Relative tolerance on DC power, load power and drain waveform for periodic steady state.", lo=1e-6, hi=0.1),
@@ -191,6 +202,17 @@ class NetworkSpec:
 
 
 @dataclass(frozen=True)
+class BlockSpec:
+    """A Touchstone block (see :data:`SCHEMA` ``[block]``); ``file`` is None when the design has none."""
+
+    file: Path | None = None
+    section: str = "network"
+    order: int = 0
+    fit_tol: float = 0.01
+    passivity: str = "enforce"
+
+
+@dataclass(frozen=True)
 class SimSpec:
     """Simulation settings; see :data:`SCHEMA` ``[sim]``."""
 
@@ -226,6 +248,7 @@ class Design:
     device: DeviceSpec = field(default_factory=DeviceSpec)
     network: NetworkSpec = field(default_factory=NetworkSpec)
     sim: SimSpec = field(default_factory=SimSpec)
+    block: BlockSpec = field(default_factory=BlockSpec)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
     source: Path | None = field(default=None, compare=False)
 
@@ -393,6 +416,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         dev["include"] = inc
     elif dev["include"] is not None:
         dev["include"] = _resolve_include(base, dev["include"])
+    block = _block_spec(values["block"], base, d["topology"], "block" in doc)
     sim = values["sim"]
     if sim["min_cycles"] > sim["max_cycles"]:
         raise DesignError("sim.min_cycles: larger than sim.max_cycles; lower min_cycles or raise max_cycles.")
@@ -410,12 +434,44 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         device=DeviceSpec(**dev),
         network=NetworkSpec(**values["network"]),
         sim=SimSpec(**sim),
+        block=block,
         raw=_plain(doc),
         source=source,
     )
 
 
-def _resolve_include(base: Path, text: str) -> Path:
+def _block_spec(values: dict, base: Path, topology: str, given: bool) -> BlockSpec:
+    """The ``[block]`` table checked: the file exists, is a 1- or 2-port Touchstone name, and the
+    section suits the topology (the file's contents are read when the netlist is rendered)."""
+    if not given:
+        return BlockSpec()
+    if values["file"] is None:
+        raise DesignError("block.file: missing; a [block] table names its Touchstone file (.s1p or .s2p).")
+    text = values["file"]
+    if Path(text).suffix.lower() not in (".s1p", ".s2p"):
+        raise DesignError(f"block.file: '{_printable(text)}' is not a 1- or 2-port Touchstone file name (.s1p or .s2p).")
+    path = _resolve_include(base, text, "block.file")
+    try:
+        found = path.is_file()
+    except OSError as exc:
+        raise DesignError(f"block.file: cannot use '{_printable(text)}' ({exc.strerror}); check the path.") from None
+    if not found:
+        raise DesignError(f"block.file: Touchstone file '{_printable(text)}' not found next to the design; check the path.")
+    section = values["section"]
+    if section == "template" and topology in TOPOLOGIES:
+        raise DesignError(f"block.section: 'template' needs a user template (design.topology = \"*.j2\") that places the block; "
+                          f"with the built-in {topology} use 'network' or 'match'.")
+    if section != "template" and topology not in TOPOLOGIES:
+        raise DesignError(f"block.section: '{section}' replaces part of a built-in topology; in a user template place the "
+                          "block with {{ dev.touchstone(...) }} and set block.section = \"template\".")
+    if section != "template" and path.suffix.lower() != ".s2p":
+        raise DesignError(f"block.file: '{_printable(text)}' is a 1-port file, but block.section = '{section}' needs a 2-port (.s2p); "
+                          "place a 1-port in a user template (block.section = \"template\").")
+    return BlockSpec(file=path, section=section, order=values["order"], fit_tol=values["fit_tol"],
+                     passivity=values["passivity"])
+
+
+def _resolve_include(base: Path, text: str, key: str = "device.include") -> Path:
     """The absolute path of a device model file, refused when it could not be quoted safely
     in a netlist (a quote, a control character or a non-printable character anywhere in the
     resolved path, the design's own folder included)."""
@@ -423,10 +479,10 @@ def _resolve_include(base: Path, text: str) -> Path:
         inc = (base / text).resolve()
     except (OSError, RuntimeError) as exc:
         reason = getattr(exc, "strerror", None) or "a symbolic-link loop"
-        raise DesignError(f"device.include: cannot use '{_printable(text)}' ({reason}); check the path.") from None
+        raise DesignError(f"{key}: cannot use '{_printable(text)}' ({reason}); check the path.") from None
     if any(ch in str(inc) for ch in "\"'") or not str(inc).isprintable():
         raise DesignError(
-            f"device.include: the path '{_printable(str(inc))}' contains a quote or a control character, "
+            f"{key}: the path '{_printable(str(inc))}' contains a quote or a control character, "
             "which a netlist cannot carry; rename or move the model file."
         )
     return inc

@@ -18,6 +18,7 @@ _EXPORTS = {
     "check_designs": "regress",
     "diff_designs": "diff",
     "export_pack": "export",
+    "section_touchstone_text": "blocks",
     "format_diff": "diff",
     "format_result": "regress",
     "format_summary": "regress",

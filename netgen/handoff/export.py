@@ -204,10 +204,12 @@ def _warm_ic(sized, backend: str) -> dict:
 def _periodic_state(sized):
     """The periodic steady state pashape starts its own run on (:mod:`netgen.periodic.estimator`), or None
     where the netlist is outside what it models (the pack then starts from the DC state)."""
-    from netgen.netlist import render
+    from netgen.netlist import BLOCK_SUBCKT, design_block, render
 
     try:
-        return estimate(render(sized, mode="tran"), sized.design.f0_hz, sized.design.sim.points_per_cycle)
+        block = design_block(sized.design)
+        return estimate(render(sized, mode="tran"), sized.design.f0_hz, sized.design.sim.points_per_cycle,
+                        blocks={BLOCK_SUBCKT: block} if block is not None else None)
     except Unsupported:
         return None
 
@@ -414,8 +416,12 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         f"{name}_drain_z.s1p": touchstone_text(f_hz, z_ac, z0_ohm, f"{name}_drain_z", comment),
         f"{name}_drain_z_harmonics.s1p": touchstone_text(f_hz[harm], z_ac[harm], z0_ohm, f"{name}_drain_z_harmonics", comment),
     }
+    block_files = _block_files(sized)
+    files.update(block_files)
     files["README.md"] = _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev,
                                  verify_note, f_hz, z_ac, harm, list(files))
+    if block_files:
+        files["README.md"] += _block_readme(block_files)
     files[MANIFEST] = json.dumps({"pashape_version": __version__, "design": name, "files": sorted(files)}, indent=2) + "\n"
 
     parent = outdir.parent if str(outdir.parent) else Path(".")
@@ -435,6 +441,25 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return Pack(outdir, sorted(files), tstop, bool(metrics.get("settled")), verify_note, expected)
+
+
+def _block_files(sized) -> dict[str, str]:
+    """A design with a Touchstone block: the original file and the fitted subcircuit (handoff.blocks)."""
+    from netgen.netlist import design_block
+
+    from .blocks import block_pack_files
+
+    block = design_block(sized.design)
+    return {} if block is None else block_pack_files(block, sized.design.name)
+
+
+def _block_readme(block_files: dict) -> str:
+    original, fit = sorted(block_files, key=lambda n: n.endswith(".sub"))
+    return ("\n## Touchstone block\n\n"
+            f"- `{original}`: the Touchstone file the design names in [block], as it was read.\n"
+            f"- `{fit}`: its rational fit as a SPICE subcircuit (`NGBLOCK`); both netlists carry the same "
+            "subcircuit inline at their end. The fit's order, worst error from DC to N f0 and passivity are in its "
+            "first line and in `expected_metrics.json` (key `block`).\n")
 
 
 def _json_default(obj):

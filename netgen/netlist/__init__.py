@@ -7,7 +7,8 @@ the analysis need them.
 
 Modules: ``renderer`` (Jinja environment, dialects, header), ``portable`` (the strict portable
 subset checker), ``safety`` (what a netlist and its model files may hold: no control
-command, no file outside the design folder), ``cards`` (reading a netlist back; SPICE numbers).
+command, no file outside the design folder), ``cards`` (reading a netlist back; SPICE numbers), ``touchstone`` (Touchstone
+blocks: read, check, evaluate) and ``blockfit`` (their rational fit and SPICE subcircuit).
 """
 
 from importlib import import_module
@@ -15,6 +16,8 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
+    "Block": "touchstone",
+    "BLOCK_SUBCKT": "touchstone",
     "Card": "cards",
     "GROUND": "cards",
     "SourceWaveform": "cards",
@@ -23,6 +26,7 @@ _EXPORTS = {
     "check_model_file": "safety",
     "check_netlist_text": "safety",
     "check_portable": "portable",
+    "design_block": "touchstone",
     "device_expression": "cards",
     "format_problems": "portable",
     "loss_elements": "renderer",

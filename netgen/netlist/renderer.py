@@ -136,6 +136,9 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
     ]
     for c in sized.components.values():
         lines.append(f"  {c.name} = {_fmt(c.value)} {c.unit}: {c.how}")
+    if d.block.file is not None:
+        lines.append(f"Touchstone block: {_ascii(Path(d.block.file).name)} replaces {d.block.section}; subcircuit NGBLOCK "
+                     "at the end of this netlist (docs/touchstone_blocks.md)")
     lines.append("derived values:")
     for k, (v, unit, how) in sized.derived.items():
         lines.append(f"  {k} = {_fmt(v)} {unit}: {how}")
@@ -219,6 +222,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
     ic = dict(ic or {})
     for k_, v_ in ic.items():
         _fmt(v_)
+    block = _block_ctx(sized, tail)
     return {
         "design": {"name": d.name, "topology": d.topology, "f0_hz": d.f0_hz, "vdd_v": d.vdd_v,
                    "load_ohm": d.load_ohm, "load_x_ohm": d.load_x_ohm, "period_s": period},
@@ -228,6 +232,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "has_line": bool(lines),
         "tail": tail,
         "tail_in": tail_in,
+        "block": block,
         "resonators": sorted(int(m.group(1)) for m in (re.match(r"^res(\d+)_l$", k) for k in sized.components) if m),
         "mode": mode,
         "dialect": dialect,
@@ -256,6 +261,46 @@ def _soft_turn_on(design) -> bool:
         return resolve_topology(design).wave_class == "invF"
     except NetgenError:
         return False
+
+
+def _block_ctx(sized: SizedDesign, tail: list) -> dict:
+    """The ``block`` context (docs/template_context.md): section, ports, subcircuit name; empty
+    section when the design has no Touchstone block (netgen.netlist.touchstone)."""
+    from netgen.errors import DesignError
+
+    from .touchstone import SUBCKT_NAME, design_block
+
+    block = design_block(sized.design)
+    if block is None:
+        return {"section": "", "nports": 0, "subckt": SUBCKT_NAME, "file": ""}
+    if block.section == "match" and not tail:
+        raise DesignError("block.section: 'match', but the sized design has no match section (Ropt equals RL and "
+                          "design.load_x is 0); use block.section = \"network\".")
+    return {"section": block.section, "nports": block.nports, "subckt": SUBCKT_NAME, "file": _ascii(block.name)}
+
+
+def _ascii(text: str) -> str:
+    """A file name as plain printable ASCII (it reaches comment lines of the portable dialect)."""
+    return "".join(ch if 32 <= ord(ch) < 127 else "_" for ch in text)
+
+
+def _block_cards(text: str, sized: SizedDesign) -> str:
+    """The block's subcircuit text, after checking the rendered netlist places it (one or more
+    ``X... <nodes> NGBLOCK`` cards with one node per port); '' without a block."""
+    from .touchstone import SUBCKT_NAME, design_block
+
+    block = design_block(sized.design)
+    if block is None:
+        return ""
+    uses = [ln.split() for ln in text.splitlines() if ln[:1] in ("x", "X") and ln.split()[-1].upper() == SUBCKT_NAME]
+    if not uses:
+        raise RenderError(f"block.file: the template places no block; call {{{{ dev.touchstone(...) }}}} with "
+                          f"{block.nports} node(s) (docs/touchstone_blocks.md).")
+    for toks in uses:
+        if len(toks) != block.nports + 2:
+            raise RenderError(f"block.file: {toks[0]} connects {len(toks) - 2} node(s), but '{block.name}' has "
+                              f"{block.nports} port(s); give dev.touchstone one node per port.")
+    return block.subckt
 
 
 def cout_series_ohm(cout_f: float, period_s: float, tmax_s: float) -> float:
@@ -340,7 +385,7 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     d = sized.design
     name = d.topology if d.template_path is None else Path(d.topology).name
     text = _run_template(d, ctx, name)
-    text = _finish(text, mode)
+    text = _finish(text, mode, _block_cards(text, sized))
     # nothing in the rendered text may run a command or include a file from outside the design
     # folder (netlist/safety.py); the simulator checks again before each run
     check_netlist_text(text, f"template {name}: rendered netlist", RenderError, [design_folder(d)])
@@ -356,7 +401,9 @@ def _run_template(d, ctx: dict, name: str) -> str:
     env = _environment()
     try:
         with bounded():
-            if d.template_path is None:
+            if d.template_path is None and ctx["block"]["section"] == "network":
+                tmpl = env.get_template("block_network.j2")  # a Touchstone block replaces the whole network
+            elif d.template_path is None:
                 from netgen.synthesis import get_topology
 
                 tmpl = env.get_template(get_topology(d.topology).template)
@@ -392,8 +439,9 @@ def _run_template(d, ctx: dict, name: str) -> str:
         raise RenderError(f"template for {d.topology}: {type(exc).__name__}: {exc}; fix the template expression.") from None
 
 
-def _finish(text: str, mode: str) -> str:
-    """Normalise blank lines, add ``.save`` of the loss-resistor nodes (tran), end with ``.end``."""
+def _finish(text: str, mode: str, block_text: str = "") -> str:
+    """Normalise blank lines, add the Touchstone block's subcircuit, ``.save`` of the loss-resistor
+    nodes (tran), end with ``.end``."""
     lines = [ln.rstrip() for ln in text.splitlines()]
     lines = [ln for ln in lines if ln]
     if lines and lines[-1].lower() == ".end":
@@ -403,6 +451,8 @@ def _finish(text: str, mode: str) -> str:
         if floating:
             lines.append("* DC paths for nodes isolated by capacitors (op mode only; 1e12 ohm changes nothing else)")
             lines += [f"RDC_{n} {n} 0 1e12" for n in floating]
+    if block_text:
+        lines += block_text.splitlines()
     if mode == "tran":
         nodes = []
         for _, a, b, _r in loss_elements("\n".join(lines)):

@@ -35,6 +35,10 @@ Against ngspice (sims/*.toml, 500-1000 points per cycle): DC and fundamental loa
 estimate within 0.05 % of a 3000-cycle ngspice run; with the state written back, ngspice's first
 cycles are within 0.1 % of its own settled values (docs/simulation.md, docs/benchmarks.md).
 
+A Touchstone block (an ``X`` card of the subcircuit a ``blocks`` entry names) is stamped from
+its file's S-parameters in each bin (``_Net._stamp_block``), not from the fitted subcircuit
+ngspice runs; see docs/touchstone_blocks.md.
+
 What it does not model (:class:`Unsupported`, and steady falls back to the DC warm start):
 devices given as SPICE subcircuits, elements other than R/L/C/T/V/I/E/G in the network, sources
 that are not periodic at f0, behavioural expressions outside a small set of functions.
@@ -80,10 +84,14 @@ class _Net:
     nodes: list[str]
     branches: dict[str, int]
     sources: dict[str, SourceWaveform]
+    #: branch unknowns per element (2 for a line, one per port for a Touchstone block, else 1)
+    widths: dict[str, int] = field(default_factory=dict)
+    #: Touchstone blocks by subcircuit name (netgen.netlist.touchstone.Block)
+    blocks: dict = field(default_factory=dict)
 
     @property
     def size(self) -> int:
-        return len(self.nodes) + sum(2 if k.startswith("T") else 1 for k in self.branches)
+        return len(self.nodes) + sum(self.widths.get(k, 1) for k in self.branches)
 
     def node(self, name: str) -> int | None:
         return None if name in GROUND else self.index[name]
@@ -164,6 +172,8 @@ class _Net:
                 branch_kcl(a, bb, p)
                 vdiff(p, a, bb, 1.0)
                 vdiff(p, t[3].lower(), t[4].lower(), -spice_value(t[5], c.name))
+            elif kind == "X":
+                self._stamp_block(c, Y, s, add, branch_kcl, vdiff)
             elif kind == "T":
                 pars = card_params(t[5:])
                 z0 = spice_value(pars["Z0"], c.name)
@@ -184,10 +194,33 @@ class _Net:
                 Y[:, p2, p1] -= d * z0
         return Y, b
 
+    def _stamp_block(self, c: Card, Y, s, add, branch_kcl, vdiff) -> None:
+        """A Touchstone block's scattering relation per bin, one current unknown per port.
+
+        With a = (v + z0 i)/(2 sqrt z0), b = (v - z0 i)/(2 sqrt z0) at each port (i into the
+        port, referred to ground) and b = S a (Pozar, "Microwave Engineering", power waves), row
+        p is ``v_p/sqrt(z0_p) - sqrt(z0_p) i_p - sum_q S_pq (v_q + z0_q i_q)/sqrt(z0_q) = 0``;
+        finite for opens and shorts alike. S is the file's data at the bin's frequency (the
+        trapezoidal image of k f0; Block.s_bins).
+        """
+        t = c.tokens
+        blk = self.blocks[t[-1].upper()]
+        ports = [x.lower() for x in t[1:-1]]
+        p0 = len(self.nodes) + self.branches[c.name]
+        S = blk.s_bins(s.imag / (2 * math.pi))
+        rz = np.sqrt(np.asarray(blk.z0_ohm, dtype=float))
+        for p, node in enumerate(ports):
+            branch_kcl(node, "0", p0 + p)
+        for p, node in enumerate(ports):
+            row = p0 + p
+            vdiff(row, node, "0", 1.0 / rz[p])
+            Y[:, row, p0 + p] -= rz[p]
+            for q, other in enumerate(ports):
+                vdiff(row, other, "0", -S[:, p, q] / rz[q])
+                Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
 
 
-
-def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set[str]]:
+def _network(cards: list[Card], device: str, period_s: float, blocks: dict | None = None) -> tuple[_Net, set[str]]:
     """The linear elements connected (through other linear elements) to ``dsw``."""
     elements = [c for c in cards if not c.text.startswith(".")]
     adj: dict[str, set[str]] = {}
@@ -198,6 +231,8 @@ def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set
             return t[1:5]
         if c.name[0] in "EG":
             return t[1:5]
+        if c.name[0] == "X":
+            return t[1:-1]
         return t[1:3]
 
     for c in elements:
@@ -216,10 +251,22 @@ def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set
         stack.extend(adj.get(x, ()))
     mine = [c for c in elements if c.name != device and any(x in seen for x in terminals(c))]
     branches: dict[str, int] = {}
+    widths: dict[str, int] = {}
     sources: dict[str, SourceWaveform] = {}
+    blocks = {k.upper(): v for k, v in (blocks or {}).items()}
     nb = 0
     for c in mine:
         kind = c.name[0]
+        if kind == "X":
+            blk = blocks.get(c.tokens[-1].upper())
+            if blk is None:
+                raise Unsupported(f"{c.tokens[0]}: subcircuit '{c.tokens[-1]}' in the output network")
+            if len(c.tokens) - 2 != blk.nports:
+                raise Unsupported(f"{c.tokens[0]}: {len(c.tokens) - 2} nodes for a {blk.nports}-port block")
+            branches[c.name] = nb
+            widths[c.name] = blk.nports
+            nb += blk.nports
+            continue
         if kind not in LINEAR_KINDS:
             raise Unsupported(f"{c.tokens[0]}: element type '{kind}' in the output network")
         if kind in "RLC" and len(c.tokens) < 4:
@@ -237,8 +284,9 @@ def _network(cards: list[Card], device: str, period_s: float) -> tuple[_Net, set
             nb += 1
         elif kind == "T":
             branches[c.name] = nb
+            widths[c.name] = 2
             nb += 2
-    return _Net(mine, sorted(seen), branches, sources), seen
+    return _Net(mine, sorted(seen), branches, sources, widths, blocks), seen
 
 
 # ---------------------------------------------------------------- the periodic state
@@ -273,6 +321,8 @@ class PeriodicState:
     z_port : ndarray of complex
         The network's impedance at ``dsw`` (device removed) at n f0, n = 0..PORT_HARMONICS, ohm,
         in the trapezoidal discretisation (the continuous value to (pi n / M)^2 / 3).
+    blocks : dict of element -> (Block, port nodes)
+        The Touchstone block instances of the network.
     """
 
     f0_hz: float
@@ -285,6 +335,9 @@ class PeriodicState:
     dc: dict = field(default_factory=dict, repr=False)
     peaks: dict = field(default_factory=dict)
     z_port: np.ndarray = field(default_factory=lambda: np.zeros(0, complex), repr=False)
+    #: Touchstone block instances: element -> (Block, port nodes); their port currents are
+    #: ``<element>#p1``, ``#p2`` in ``series`` (A, into the port)
+    blocks: dict = field(default_factory=dict, repr=False)
 
     @property
     def period_s(self) -> float:
@@ -335,7 +388,7 @@ def grid_points(points_per_cycle: int, nonlinear: bool = False) -> int:
     return max(m + m % 2, 8)
 
 
-def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> PeriodicState:
+def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, blocks: dict | None = None) -> PeriodicState:
     """Periodic steady state of a transient netlist (see the module docstring).
 
     Parameters
@@ -350,6 +403,9 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
     cap : bool
         Limit the grid to ``GRID_MAX`` (``GRID_MAX_NONLINEAR``) points; without, ``points``
         (made even) is used as it is.
+    blocks : dict, optional
+        Touchstone blocks by subcircuit name (:class:`netgen.netlist.touchstone.Block`): an ``X``
+        card naming one is stamped from the file's S-parameters per bin (docs/touchstone_blocks.md).
 
     Returns
     -------
@@ -373,7 +429,7 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
         M = grid_points(points, nonlinear=True)
         dev = read_device(cards, models, period, M)
     h = period / M
-    net, _ = _network(cards, dev.name.upper(), period)
+    net, _ = _network(cards, dev.name.upper(), period, blocks)
     if "dsw" not in net.index:
         raise Unsupported("the device node 'dsw' is not connected to the network")
     K = M // 2 + 1
@@ -403,12 +459,17 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
         dc[name] = (float(x_src[0, i].real) / M, float(x_draw[0, i].real))
     lines = {}
     elements = {}
+    inst = {}
     for c in net.cards:
         kind = c.name[0]
         toks = [x.lower() for x in c.tokens]
         if c.name in net.branches:
             col = nn + net.branches[c.name]
-            if kind == "T":
+            if kind == "X":
+                inst[c.tokens[0]] = (net.blocks[c.tokens[-1].upper()], tuple(toks[1:-1]))
+                for q in range(net.widths[c.name]):
+                    series[f"{toks[0]}#p{q + 1}"] = x_all[:, col + q]
+            elif kind == "T":
                 series[f"{toks[0]}#1"] = x_all[:, col]
                 series[f"{toks[0]}#2"] = x_all[:, col + 1]
                 pars = card_params(c.tokens[5:])
@@ -423,4 +484,4 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True) -> Pe
              if name in series}
     return PeriodicState(f0_hz=f0_hz, points=M, t0_s=dev.t0_s, series=series, lines=lines,
                          elements=elements, device=dev.name, dc=dc, peaks=peaks,
-                         z_port=-x_draw[:PORT_HARMONICS + 1, idsw].copy())
+                         z_port=-x_draw[:PORT_HARMONICS + 1, idsw].copy(), blocks=inst)

@@ -239,6 +239,12 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
             continue
         out.append(lines[n])
         n += 1
+    if state.blocks:
+        from netgen.netlist import BLOCK_SUBCKT
+
+        from .block_state import block_initial_states, with_block_states
+
+        out = with_block_states(out, BLOCK_SUBCKT, block_initial_states(state))
     end = max((i for i, ln in enumerate(out) if re.fullmatch(r"\.end\b.*", ln.strip().lower())
                and not re.match(r"\.end[a-z]", ln.strip().lower())), default=len(out))
     return "\n".join(out[:end] + extra + out[end:]) + "\n"

@@ -230,7 +230,7 @@ def window_points(t: np.ndarray, vecs, nodes: list[str], start_s: float, end_s: 
 def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: float, vdd_v: float,
                      sim: SimSpec | None = None, make_op: Callable[[float], str] | None = None,
                      idc_est_a: float | None = None, progress: Callable[[str], None] | None = None,
-                     backend: str | None = None, feeds=(), blocks=()) -> Waveforms:
+                     backend: str | None = None, feeds=(), blocks=(), touchstone: dict | None = None) -> Waveforms:
     """Run a transient netlist to periodic steady state.
 
     Parameters
@@ -252,6 +252,9 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
         Element names of the DC-feed inductors and DC-block capacitors (``L_feed``,
         ``C_block``). With the warm start, auxiliary sources there null the slow bias mode
         (:func:`with_aux_sources`, :class:`BiasNulling`); without them the run is plain.
+    touchstone : dict, optional
+        Touchstone blocks of the netlist by subcircuit name, for the periodic estimate
+        (:func:`netgen.periodic.estimator.estimate`, ``blocks``).
 
     Returns
     -------
@@ -274,7 +277,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     state, why_not = None, ""
     if sim.warm_start and sim.periodic_start:
         try:
-            state = estimator.estimate(probe, f0_hz, sim.points_per_cycle)
+            state = estimator.estimate(probe, f0_hz, sim.points_per_cycle, blocks=touchstone)
         except estimator.Unsupported as exc:
             why_not = str(exc)
     warm = bool(sim.warm_start and (state is not None or make_op is not None and idc_est_a is not None))
@@ -362,9 +365,10 @@ def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = Non
     Uses ``netgen.netlist.renderer.render(sized, mode="tran", ic=..., tstop_s=...)`` and, for the
     warm start, ``render(sized, mode="op", idc_a=...)``.
     """
-    from netgen.netlist import render  # imported late so the simulator works alone
+    from netgen.netlist import BLOCK_SUBCKT, design_block, render  # imported late so the simulator works alone
 
     design = sized.design
+    block = design_block(design)
 
     def make_tran(ic, tstop_s):
         return render(sized, mode="tran", ic=ic, tstop_s=tstop_s)
@@ -379,4 +383,5 @@ def simulate(sized: SizedDesign, *, progress: Callable[[str], None] | None = Non
 
     return simulate_netlist(make_tran, f0_hz=design.f0_hz, vdd_v=design.vdd_v, sim=design.sim,
                             make_op=make_op, idc_est_a=sized.idc_est_a, progress=progress,
-                            backend=backend, feeds=names("feed"), blocks=names("block"))
+                            backend=backend, feeds=names("feed"), blocks=names("block"),
+                            touchstone={BLOCK_SUBCKT: block} if block is not None else None)

@@ -29,6 +29,7 @@ from netgen.synthesis import COUT_Q_WARN, bound_for
 from .planes import PLANES, intrinsic_columns, plane_warnings
 from .stress import buildability_warnings, part_stress, stress_summary
 
+
 __all__ = [
     "parse_loss_elements",
     "load_resistance",
@@ -467,6 +468,10 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
         metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "
                                    "the network: a narrowband design sensitive to part loss and tolerance; lower f0, use a "
                                    "smaller device or a lower Ropt")
+    if design.block.file is not None:
+        from netgen.netlist import design_block
+
+        metrics["block"] = design_block(design).summary()
     return metrics
 
 

@@ -392,4 +392,10 @@ def plot_all(outdir, sized, wf, metrics: dict, z_f_hz=None, z_ohm=None) -> dict[
         out["settling"] = plot_settling(outdir / "settling.png", wf.history,
                                               settled=wf.settled, metrics=metrics, tol=d.sim.settle_tol,
                                               start=getattr(wf, "start", None), window=d.sim.average_periods)
+    if d.block.file is not None:  # a Touchstone block: its S-parameters and fit (results.block_plots)
+        from netgen.netlist import design_block
+
+        from .block_plots import plot_block
+
+        out["block"] = plot_block(outdir / "block.png", design_block(d), metrics)
     return out

@@ -67,6 +67,8 @@ _PLOT_CAPTIONS = {
     "smith": "Harmonic impedances presented to the device (Smith chart): at the intrinsic plane (where the "
              "waveform engineering happens) and, beside it, at the package plane (the drain terminal).",
     "settling": "Settling: DC and load power per simulated cycle.",
+    "block": "Touchstone block: |S| of the file (markers) and of the rational fit ngspice ran (lines), "
+             "a Smith chart of the reflections, and the fit error against the file's points.",
 }
 
 
@@ -303,6 +305,29 @@ def _summary(metrics: dict, design) -> str:
             f"<a href=\"#cautions\">All cautions</a> are at the end.</aside></div>")
 
 
+def _block_section(metrics: dict, plot_paths: dict) -> list[str]:
+    """The Touchstone block's section (metrics ``block``, figure ``block``), beside the harmonics."""
+    b = metrics.get("block")
+    if not b:
+        return []
+    rows = [
+        ("file", f"{b['file']} (sha256 {b['sha256'][:16]}...)"), ("replaces", b["section"]),
+        ("ports, points", f"{b['ports']}, {b['points']}"),
+        ("frequency range", f"{_si(b['f_min_hz'], 'Hz')} to {_si(b['f_max_hz'], 'Hz')}"),
+        ("reference impedance", ", ".join(_si(z, "ohm") for z in b["z0_ohm"])), ("DC", b["dc"]),
+        ("periodic estimate", "the file's data, interpolated, at every bin to "
+         f"{_si(b['fit_checked_to_hz'], 'Hz')}; the fit above the file's last point"),
+        ("ngspice", f"rational fit of order {b['fit_order']} ({b['fit_passivity']})"),
+        ("worst fit error |S_fit - S_file|, DC to N f0",
+         f"{_num(b['fit_max_error'], '{:.3g}')} at {_si(b['fit_max_error_at_hz'], 'Hz')}"),
+    ]
+    out = ["<h2>Touchstone block</h2>", _kv_table(rows)]
+    if "block" in plot_paths:
+        out.append(f"<figure><img src=\"{_e(Path(plot_paths['block']).name)}\" alt=block><figcaption>"
+                   f"{_e(_PLOT_CAPTIONS.get('block', 'block'))}</figcaption></figure>")
+    return out
+
+
 def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: str) -> Path:
     """Write ``outdir/report.html`` and return its path.
 
@@ -393,6 +418,7 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
                      "voltages and currents can burn: follow local codes and licensed practice when building "
                      "and measuring.</p>")
 
+    parts += _block_section(metrics, plot_paths)
     parts.append("<h2>Loss budget</h2><table><tr><th class=l>where the DC power goes</th><th>W</th><th>% of Pdc</th></tr>")
     pdc = metrics.get("pdc_w") or 0.0
     budget = [("fundamental power in the load", metrics.get("pout_w"))] + list((metrics.get("losses") or {}).items())
@@ -407,6 +433,8 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
     if plot_paths:
         parts.append("<h2>Plots</h2>")
         for kind, p in plot_paths.items():
+            if kind == "block":  # shown with the block's section
+                continue
             name = Path(p).name
             cap = _PLOT_CAPTIONS.get(kind, kind)
             parts.append(f"<figure><img src=\"{_e(name)}\" alt=\"{_e(kind)}\"><figcaption>{_e(cap)}</figcaption></figure>")

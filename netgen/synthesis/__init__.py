@@ -37,6 +37,8 @@ _EXPORTS = {
     "topology_names": "topologies",
     "write_sized_toml": "sizing",
     "z_drain": "network",
+    "z_drain_with_section": "network",
+    "abcd_section": "network",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -21,7 +21,10 @@ from netgen.design import SizedDesign
 
 __all__ = [
     "z_drain",
+    "z_drain_with_section",
     "abcd_drain_to_load",
+    "abcd_section",
+    "SECTIONS",
     "z_port_matrix",
     "loss_ohm",
     "line_plan",
@@ -277,6 +280,39 @@ def abcd_drain_to_load(sized: SizedDesign, f_hz) -> np.ndarray:
     w = 2 * math.pi * np.atleast_1d(np.asarray(f_hz, dtype=float))
     name = resolve_topology(sized.design).name
     return cascade(_comp(sized, w) + _CHAINS[name](sized, w))
+
+
+#: the named sections a Touchstone block may replace (design.schema BLOCK_SECTIONS less 'template')
+SECTIONS = ("network", "match")
+
+
+def _split(sized: SizedDesign, w: np.ndarray, section: str) -> tuple[list, list]:
+    """The drain->load chain split into (before the section, the section)."""
+    from .topologies import resolve_topology
+
+    chain = _CHAINS[resolve_topology(sized.design).name](sized, w)
+    if section == "network":  # everything after the DC feed (chain[0] in every topology)
+        return chain[:1], chain[1:]
+    if section == "match":
+        n = len(tail_plan(sized))
+        if n == 0:
+            raise ValueError("the sized design has no match section")
+        return chain[:-n], chain[-n:]
+    raise ValueError(f"unknown section {section!r}")
+
+
+def abcd_section(sized: SizedDesign, f_hz, section: str) -> np.ndarray:
+    """ABCD (N, 2, 2) of a named section alone: ``network`` (drain to the top of RLOAD without the
+    DC feed) or ``match`` (the tail_plan elements: L-section match and load reactance)."""
+    w = 2 * math.pi * np.atleast_1d(np.asarray(f_hz, dtype=float))
+    return cascade(_split(sized, w, section)[1])
+
+
+def z_drain_with_section(sized: SizedDesign, f_hz, section: str, z_section_ohm) -> np.ndarray:
+    """Drain impedance with ``section`` replaced by a one-port of input impedance ``z_section_ohm``
+    (the section's port 1 with RLOAD on its port 2), ohm: the rest of the chain terminated in it."""
+    w = 2 * math.pi * np.atleast_1d(np.asarray(f_hz, dtype=float))
+    return z_in(cascade(_split(sized, w, section)[0]), np.asarray(z_section_ohm))
 
 
 def z_drain(sized: SizedDesign, f_hz) -> np.ndarray:
