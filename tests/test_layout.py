@@ -209,7 +209,7 @@ def test_exported_names_are_not_shadowed_by_submodules():
     # a module instead of the function: netgen.periodic exported 'fourier' this way, and the
     # fallback Fourier path of results.analysis failed with "'module' object is not callable"
     # whenever the simulator had been imported first (the hand-off pack's portable re-run).
-    code = ("import importlib, pkgutil, types, pashape\n"
+    code = ("import importlib, pkgutil, types, netgen\n"
             "bad = []\n"
             "for room in pkgutil.iter_modules(netgen.__path__):\n"
             "    if not room.ispkg or room.name in ('templates', 'sims', 'cli'):\n"

@@ -104,10 +104,21 @@ LOSSLESS_LUMPED_AT_3F0 = {
     "sim": {"harmonics": 1},
 }
 
+# found by the property below: a lossless Cout-compensator trap exactly at 2f0 and 4f0 made the
+# numpy model divide by a zero branch impedance (nan instead of a short)
+LOSSLESS_TRAP_AT_2F0 = {
+    "design": {"name": "prop_stage", "topology": "class_f_line", "f0": "1e+06 Hz", "vdd": "10 V",
+               "load": "1 ohm", "pout": "1 W"},
+    "device": {"model": "switch", "ron": "1 ohm", "cout": "1e-10 F"},
+    "network": {"loaded_q": 1.0, "match": "lowpass"},
+    "sim": {"harmonics": 1},
+}
+
 
 @DESIGNS
 @given(doc=design_docs())
 @example(doc=LOSSLESS_LUMPED_AT_3F0)
+@example(doc=LOSSLESS_TRAP_AT_2F0)
 def test_drain_impedance_is_passive(doc):
     # A passive one-port has Re Z(jw) >= 0 at every frequency (positive-real impedance;
     # network theory, e.g. Pozar, "Microwave Engineering", one-port networks).

@@ -250,6 +250,10 @@ _CHAINS: dict[str, Callable] = {
 }
 
 
+#: smallest impedance a lossless compensator branch is given at its own resonance, ohm
+Z_TRAP_FLOOR_OHM = 1e-12
+
+
 def comp_branches(sized: SizedDesign) -> list[int]:
     """Numbers k of the Cout compensator branches ``comp<k>_l`` + ``comp<k>_c`` (drain to ground)."""
     out = []
@@ -265,7 +269,10 @@ def _comp(sized, w) -> list[np.ndarray]:
         return []
     y = np.zeros(w.shape, dtype=complex)
     for k in ks:
-        y = y + 1.0 / (_z_elem(sized, f"comp{k}_l", w) + _z_elem(sized, f"comp{k}_c", w))
+        z = _z_elem(sized, f"comp{k}_l", w) + _z_elem(sized, f"comp{k}_c", w)
+        # a lossless trap exactly at its resonance is a perfect short: kept finite (1e-12 ohm) so the
+        # cascade stays a number (the drain impedance there is then ~1e-12 ohm, a short)
+        y = y + 1.0 / np.where(np.abs(z) < Z_TRAP_FLOOR_OHM, Z_TRAP_FLOOR_OHM, z)
     return [_abcd_shunt(y)]
 
 
