@@ -6,7 +6,8 @@ import math
 
 import pytest
 
-from netgen.design.schema import SCHEMA, design_from_dict, load_design, reference_markdown, set_dotted
+from netgen.design.schema import SCHEMA, design_from_dict, load_design
+from netgen.design.keys import reference_markdown, set_dotted
 from netgen.errors import DesignError
 from netgen.design.quantities import format_quantity, parse_quantity
 

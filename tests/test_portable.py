@@ -186,7 +186,7 @@ def test_render_portable_dialect_itself_is_portable(path):
 
 def test_portable_cards_wraps_and_is_idempotent():
     # the three card rules of the portable dialect on a hand-made deck; the checker is the judge
-    from netgen.netlist.renderer import portable_cards
+    from netgen.netlist.portable import portable_cards
 
     long_b = "BX a 0 I=" + "+".join(f"1e-09*v(n{k})" for k in range(12))
     deck = GOOD.replace("RSENSE sense 0 1k", "RSENSE sense 0 1k\n" + long_b + "\n* " + "c" * 300)

@@ -21,7 +21,8 @@ import pytest
 from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 
-from netgen.design.schema import SCHEMA, TOPOLOGIES, design_from_dict, set_dotted
+from netgen.design.schema import SCHEMA, TOPOLOGIES, design_from_dict
+from netgen.design.keys import set_dotted
 from netgen.errors import DesignError, NetgenError
 from netgen.design.quantities import format_quantity, parse_quantity
 

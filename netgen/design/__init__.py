@@ -5,7 +5,8 @@ Also holds the frozen records passed between the later stages (:class:`Component
 :class:`SizedDesign`, :class:`Waveforms`), so every stage can depend on them.
 
 Modules: ``quantities`` (text with units -> floats), ``schema`` (the one table of keys,
-validation, defaults, dotted key paths; ``python -m netgen.design`` prints the key reference),
+validation, defaults), ``keys`` (dotted key paths; the key reference page, printed by
+``python -m netgen.design``),
 ``records`` (the frozen records).
 """
 
@@ -27,11 +28,11 @@ _EXPORTS = {
     "Waveforms": "records",
     "design_from_dict": "schema",
     "format_quantity": "quantities",
-    "get_dotted": "schema",
+    "get_dotted": "keys",
     "load_design": "schema",
     "parse_quantity": "quantities",
-    "reference_markdown": "schema",
-    "set_dotted": "schema",
+    "reference_markdown": "keys",
+    "set_dotted": "keys",
 }
 
 __all__ = sorted(_EXPORTS)

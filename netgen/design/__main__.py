@@ -1,5 +1,5 @@
 """``python -m netgen.design``: print the design-key reference (docs/design_reference.md)."""
 
-from .schema import reference_markdown
+from .keys import reference_markdown
 
 print(reference_markdown())

@@ -33,7 +33,7 @@ _EXPORTS = {
     "model_cards": "cards",
     "netlist_elements": "cards",
     "parse_spice_number": "cards",
-    "portable_cards": "renderer",
+    "portable_cards": "portable",
     "read_cards": "cards",
     "render": "renderer",
     "source_waveform": "cards",

@@ -23,10 +23,12 @@ from netgen.design import SizedDesign
 from netgen.errors import RenderError
 from netgen.synthesis import comp_branches, element_name, line_plan, loss_ohm, tail_plan
 
+from .portable import format_number as _fmt
+from .portable import portable_cards
 from .safety import check_model_file, check_netlist_text
 from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 
-__all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "portable_cards", "MODES", "DIALECTS"]
+__all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
 MODES = ("tran", "ac", "op")
 #: where an ``ac`` netlist puts its port: the drain terminal (the network alone) or the generator
@@ -54,14 +56,6 @@ def design_folder(design) -> Path:
     return (design.source.parent if design.source is not None else Path.cwd()).resolve()
 
 
-def _fmt(value) -> str:
-    """The only number formatter of the templates: ``'{:.10g}'``; refuses NaN/inf."""
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise RenderError(f"template: the 'n' filter needs a number, got {type(value).__name__}; pass a numeric context value.")
-    x = float(value)
-    if not math.isfinite(x):
-        raise RenderError(f"template: a value is {x!r}; every netlist number must be finite (check the sized values).")
-    return "{:.10g}".format(x)
 
 
 @functools.lru_cache(maxsize=1)
@@ -525,118 +519,3 @@ def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
             raise RenderError(f"netlist: loss resistor {m.group(1)} has value '{m.group(4)}'; write plain numbers for RLOSS_ values.") from None
         out.append((m.group(1), m.group(2).lower(), m.group(3).lower(), r))
     return out
-
-
-# ---------------------------------------------------------------- portable dialect
-
-#: card width of the portable dialect (SPICE2-era 80 columns; netgen.netlist.portable.MAX_CARD_CHARS)
-PORTABLE_CARD_CHARS = 80
-#: comment-line width of the portable dialect (netgen.netlist.portable.MAX_COMMENT_CHARS)
-PORTABLE_COMMENT_CHARS = 255
-#: minbreak = TMAX / MINBREAK_DIVISOR when the netlist has T lines (measured: docs/simulator_notes.md)
-MINBREAK_DIVISOR = 100.0
-
-
-def portable_cards(text: str) -> str:
-    """The card-level rules of the portable dialect applied to a rendered netlist.
-
-    1. ``.save`` cards (and their ``+`` lines) are dropped: vector selection is
-       simulator-specific, and a SPICE3 reader keeps every node anyway.
-    2. When the netlist has a ``T`` line, ``.options minbreak=<TMAX/100>`` goes right
-       before ``.tran``. Measured in ngspice 39 (docs/simulator_notes.md): a lossless T line in
-       a switching circuit makes the time step collapse after a few hundred periods unless
-       near-coincident breakpoints are merged; 0.01 TMAX cured every case tried.
-       docs/portable_dialect.md says what a simulator without the option should do.
-    3. Cards longer than 80 characters are split at spaces onto ``+`` continuation lines
-       (a word longer than a line, e.g. a B-source expression, after an operator); comment
-       lines longer than 255 characters are split into several comment lines.
-
-    Parameters
-    ----------
-    text : str
-        A netlist as ``render`` finishes it (ends with ``.end``).
-
-    Returns
-    -------
-    str
-        The portable netlist; idempotent (applying it twice changes nothing).
-    """
-    lines = text.splitlines()
-    kept: list[str] = []
-    dropping = False
-    for ln in lines:
-        low = ln.lstrip().lower()
-        if low.startswith(".save"):
-            dropping = True
-            continue
-        if dropping and ln.startswith("+"):
-            continue
-        dropping = False
-        kept.append(ln)
-    has_line = any(ln[:1].upper() == "T" for ln in kept)
-    has_minbreak = any(ln.lower().startswith(".options") and "minbreak" in ln.lower() for ln in kept)
-    out: list[str] = []
-    for ln in kept:
-        words = ln.split()
-        if has_line and not has_minbreak and words and words[0].lower() == ".tran":
-            out.append(f".options minbreak={_fmt(_tran_tmax(words) / MINBREAK_DIVISOR)}")
-        out.extend(_wrap_card(ln))
-    return "\n".join(out) + "\n"
-
-
-def _tran_tmax(words: list[str]) -> float:
-    """TMAX of a ``.tran TSTEP TSTOP [TSTART [TMAX]] [uic]`` card (TSTEP when TMAX is absent), s."""
-    from .cards import (
-        parse_spice_number,  # a user template may write scale suffixes (1p)
-    )
-
-    rest = [w for w in words[1:] if w.lower() != "uic"]
-    try:
-        return parse_spice_number(rest[3] if len(rest) > 3 else rest[0])
-    except (IndexError, ValueError):
-        raise RenderError(f"template: the .tran card '{' '.join(words)}' has no readable TSTEP/TMAX; write '.tran TSTEP TSTOP 0 TMAX uic'.") from None
-
-
-def _wrap_card(line: str) -> list[str]:
-    """One card or comment line split to the portable widths."""
-    if line.lstrip().startswith("*"):
-        if len(line) <= PORTABLE_COMMENT_CHARS:
-            return [line]
-        body = line.lstrip()[1:].strip()
-        width = PORTABLE_COMMENT_CHARS - 4
-        return ["* " + body[i:i + width] for i in range(0, len(body), width)]
-    width = PORTABLE_CARD_CHARS
-    if len(line) <= width:
-        return [line]
-    words: list[str] = []
-    for w in line.split():
-        while len(w) > width - 2:  # room for the "+ " of a continuation line
-            cut = _operator_cut(w, width - 2)
-            if cut <= 0:
-                break
-            words.append(w[: cut + 1])
-            w = w[cut + 1:]
-        words.append(w)
-    out, cur = [], ""
-    for w in words:
-        if cur and len(cur) + 1 + len(w) > width:
-            out.append(cur)
-            cur = "+ " + w
-        else:
-            cur = f"{cur} {w}" if cur else w
-    out.append(cur)
-    return out
-
-
-def _operator_cut(word: str, limit: int) -> int:
-    """Index of the last operator before ``limit`` after which ``word`` may be split (-1: none).
-
-    The sign of an exponent (``1e-09``) is not an operator: splitting there would break the number.
-    """
-    for i in range(min(limit, len(word)) - 1, 0, -1):
-        ch = word[i]
-        if ch in "*/,":
-            return i
-        if ch in "+-" and not (word[i - 1] in "eE" and i >= 2 and (word[i - 2].isdigit() or word[i - 2] == ".")):
-            return i
-    return -1

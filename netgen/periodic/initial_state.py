@@ -202,7 +202,7 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
     ``IC=v1,i1,v2,i2`` and the history sources of :func:`history_sources`; ``uic`` is added to
     the ``.tran`` card if it lacks it. Elements outside the network (the control and gate
     circuits) are left as they are. Every card added is SPICE3; for the portable dialect run
-    :func:`netgen.netlist.renderer.portable_cards` on the result to fold long cards.
+    :func:`netgen.netlist.portable.portable_cards` on the result to fold long cards.
     """
     lines = netlist.splitlines()
     cards = read_cards(netlist)
