@@ -100,6 +100,10 @@ def _load_evaluator(text: str | None):
 @click.option("--evaluator", hidden=True, default=None, help="module:function evaluating a Design (tests, custom flows).")
 def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs, out, workers, cluster,
                   keep_waveforms, resize, attempts, no_plots, list_only, quiet, fast, confirm_n, evaluator):
+    """
+    Run a study (the help text is _HELP above). Length: a click command with many options; the
+    body only checks them in order, calls the study and prints its summary (no physics).
+    """
     from netgen.design import load_design
     from netgen.studies import (
         STORE_NAME,

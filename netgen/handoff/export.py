@@ -339,6 +339,10 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
         within the longest allowed run (``sim.max_cycles``).
     RenderError
         The portable netlist is not portable (a template bug; the message lists the problems).
+
+    Length: the pack's files in the order the receiver reads them (netlists in both dialects,
+    the state they start on, expected metrics and waveforms, Touchstone, README, manifest), all
+    written into one atomic folder.
     """
     from netgen.errors import RenderError
     from netgen.netlist import check_portable, format_problems, portable_cards, render
@@ -476,6 +480,10 @@ def _json_default(obj):
 
 def _readme(design, sized, metrics, tran, portable, tstop, cycles, z0_ohm, z_dev, verify_note,
             f_hz, z_ac, harm, names) -> str:
+    """
+    Length: mostly the text of the receiver's README (cautions, files, how to run, what to
+    compare).
+    """
     f0 = design.f0_hz
     period = 1.0 / f0
     name = design.name

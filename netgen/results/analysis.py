@@ -357,6 +357,10 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     ------
     SimulationError
         If a node of a loss resistor is missing from ``wf.v``.
+
+    Length: the computations in order (Fourier coefficients, powers on one window, intrinsic
+    plane, loss budget, the energy check) and then the metrics contract as one dict literal, key
+    by key as docs/metrics.md lists it.
     """
     design = sized.design
     n_h = int(harmonics if harmonics is not None else design.sim.harmonics)

@@ -342,6 +342,9 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
         kind -> PNG path or file name (only the file name is used).
     netlist_text : str
         Shown folded at the end.
+
+    Length: the report's sections in page order, each a call or a short f-string; the page reads
+    top to bottom as the code does.
     """
     outdir = Path(outdir)
     d = metrics.get("design", {})

@@ -142,6 +142,9 @@ def compensator_plan(design, wave_class: str, ropt_ohm: float, known_b=None) -> 
     SizingError
         When the solution needs a negative inductance (the package resonates below a
         controlled harmonic, or too many harmonics are asked for).
+
+    Length: one square linear system per class (class F and inverse F), set up and checked for
+    realisability side by side.
     """
     par = parasitics(design)
     if not par.capacitive:

@@ -251,6 +251,8 @@ def bound_for(sized) -> dict:
         ``efficiency`` (0..1 or None), ``name`` (saying what it assumes), ``source``; where the
         bound allows only some voltage harmonics, ``voltage_harmonics`` lists them (a simulation
         with voltage elsewhere may beat the bound, and the analysis says so).
+
+    Length: one branch per topology family, each naming its assumptions and source.
     """
     design = getattr(sized, "design", sized)
     topo = design.topology
