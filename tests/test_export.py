@@ -197,3 +197,23 @@ def test_pack_readme_cautions_in_full_even_after_the_report_module_loaded():
     for words in ("High voltage", "3.56 x Vdd", "RF burns and exposure", "Emission limits", "local codes",
                   "licensed practice"):
         assert words in text
+
+
+@pytest.mark.ngspice
+def test_pack_folder_and_files_follow_the_umask(tmp_path):
+    # the pack is an ordinary folder: 0777/0666 less the user's umask (common practice for files a
+    # program writes), not mkdtemp's private 0700
+    import os
+    import stat
+
+    from netgen.design.schema import load_design
+    from netgen.handoff.export import export_pack
+
+    old = os.umask(0o027)
+    try:
+        out = tmp_path / "pack"
+        export_pack(load_design(DESIGN), out, verify=False)
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(out.stat().st_mode) == 0o750
+    assert {stat.S_IMODE(f.stat().st_mode) for f in out.iterdir()} == {0o640}

@@ -40,6 +40,7 @@ import numpy as np
 
 from netgen import __version__
 from netgen.errors import OutputError, SimulationError
+from netgen.fileio import current_umask
 from netgen.netlist import Unsupported
 from netgen.periodic import estimate, with_initial_state
 
@@ -432,6 +433,7 @@ def export_pack(design, outdir: str | Path, *, z0_ohm: float = 50.0, verify: boo
     try:
         parent.mkdir(parents=True, exist_ok=True)
         tmp = Path(tempfile.mkdtemp(prefix=f".{outdir.name}.tmp-", dir=parent))
+        os.chmod(tmp, 0o777 & ~current_umask())  # mkdtemp's 0700 -> an ordinary folder (the user's umask)
     except OSError as exc:
         raise OutputError(f"{outdir}: cannot create the pack folder ({exc.strerror}); choose another with -o.") from None
     try:
