@@ -23,6 +23,7 @@ import tomllib
 
 from netgen.errors import DesignError
 
+from .presets import DEVICE_PRESETS
 from .quantities import parse_quantity
 
 __all__ = [
@@ -30,6 +31,7 @@ __all__ = [
     "DeviceSpec",
     "NetworkSpec",
     "SimSpec",
+    "DriveSpec",
     "SCHEMA",
     "TOPOLOGIES",
     "DEVICE_MODELS",
@@ -53,7 +55,7 @@ TOPOLOGIES = (
     "class_e",
     "class_b_tuned",
 )
-DEVICE_MODELS = ("switch", "gm", "spice")
+DEVICE_MODELS = ("switch", "gm", "spice", "angelov")
 
 #: Names that reach a netlist (design name, subcircuit name, component names).
 SAFE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
@@ -95,7 +97,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "ropt": Key("ropt_ohm", "ohm", None, "Optimum drain load resistance at f0 (overrides pout).", lo=0.01, hi=1e6),
     },
     "device": {
-        "model": Key("model", "str", "switch", "Device model: switch (idealised switch), gm (transconductance device with knee), spice (user subcircuit).", choices=DEVICE_MODELS),
+        "model": Key("model", "str", "switch", "Device model: switch (idealised switch), gm (transconductance device with knee), spice (user subcircuit), angelov (the Angelov compact FET model, docs/devices.md).", choices=DEVICE_MODELS),
         "ron": Key("ron_ohm", "ohm", "0.2 ohm", "Switch on-resistance.", lo=1e-6, hi=1e4),
         "roff": Key("roff_ohm", "ohm", "1 Mohm", "Switch off-resistance.", lo=1.0, hi=1e15),
         "transition": Key("transition", "", 0.0, "Switch edge time as a fraction of the period; 0 is an abrupt switch. A finite edge is a real loss (the switch conducts while the voltage is high).", lo=0.0, hi=0.25),
@@ -111,8 +113,29 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file, inside its folder; models, subcircuits and .param only)."),
         "subckt": Key("subckt", "str", None, "spice device: subcircuit name in the included file."),
         "pins": Key("pins", "pins", None, "spice device: subcircuit pin order as a list of 'drain', 'gate', 'source', e.g. [\"drain\", \"gate\", \"source\"]."),
-        "vgate_bias": Key("vgate_bias_v", "V", "0 V", "spice device: gate DC bias.", lo=-1e3, hi=1e3),
+        "vgate_bias": Key("vgate_bias_v", "V", "0 V", "spice and angelov devices: gate DC bias (angelov: the source of [drive] sits on it).", lo=-1e3, hi=1e3),
         "vgate_amp": Key("vgate_amp_v", "V", "1 V", "spice device: gate drive amplitude (sine at f0), scaled by drive.", lo=0.0, hi=1e3),
+        "preset": Key("preset", "str", None, "angelov device: a named parameter set of an invented generic device (" + ", ".join(DEVICE_PRESETS) + "; docs/devices.md); keys given in [device] override it.", choices=tuple(DEVICE_PRESETS)),
+        "ipk": Key("ipk_a", "A", "0.5 A", "angelov: Ipk, drain current at the peak of the transconductance (Ids = Ipk (1 + tanh psi) tanh(alpha Vds)(1 + lambda Vds)).", lo=0.0, hi=1e4, lo_open=True),
+        "vpk": Key("vpk_v", "V", "-1 V", "angelov: Vpk, gate-source voltage at the peak of the transconductance.", lo=-100.0, hi=100.0),
+        "p1": Key("p1_per_v", "", 1.5, "angelov: P1 in 1/V, linear coefficient of psi = P1 (Vgs - Vpk) + P2 (Vgs - Vpk)^2 + P3 (Vgs - Vpk)^3.", lo=1e-3, hi=1e3),
+        "p2": Key("p2_per_v2", "", 0.0, "angelov: P2 in 1/V^2, quadratic coefficient of psi.", lo=-1e3, hi=1e3),
+        "p3": Key("p3_per_v3", "", 0.0, "angelov: P3 in 1/V^3, cubic coefficient of psi.", lo=-1e3, hi=1e3),
+        "alpha": Key("alpha_per_v", "", 2.0, "angelov: alpha in 1/V, the knee (saturation) parameter of tanh(alpha Vds).", lo=1e-3, hi=1e4),
+        "lambda": Key("lambda_per_v", "", 0.0, "angelov: lambda in 1/V, channel-length modulation (output conductance) of (1 + lambda Vds).", lo=0.0, hi=1.0),
+        "rd": Key("rd_ohm", "ohm", "0 ohm", "angelov: drain access resistance Rd (0: none).", lo=0.0, hi=1e3),
+        "rs": Key("rs_ohm", "ohm", "0 ohm", "angelov: source access resistance Rs (0: none; it degenerates the gate drive).", lo=0.0, hi=1e3),
+        "cgs0": Key("cgs0_f", "F", "1 pF", "angelov: gate-source junction capacitance at zero bias (Cgs = Cgs0 / (1 - Vgs/Vbi)^M, a SPICE junction diode).", lo=0.0, hi=1.0),
+        "cgd0": Key("cgd0_f", "F", "0.1 pF", "angelov: gate-drain junction capacitance at zero bias (Cgd = Cgd0 / (1 - Vgd/Vbi)^M).", lo=0.0, hi=1.0),
+        "vbi": Key("vbi_v", "V", "0.8 V", "angelov: built-in potential Vbi of the gate junctions.", lo=0.05, hi=5.0),
+        "mj": Key("mj", "", 0.5, "angelov: grading exponent M of the gate junctions.", lo=0.05, hi=0.95),
+        "vcj": Key("vcj_v", "V", "0 V", "angelov: offset of both gate junctions, a DC source in series with each diode (C = C0 / (1 - (V - Vcj)/Vbi)^M); 0 for a Schottky gate (it conducts forward as a real one), above the largest gate swing for an insulated gate.", lo=-100.0, hi=100.0),
+        "rev_is": Key("rev_is_a", "A", "1e-12 A", "angelov: saturation current of the reverse-conduction (body/channel) diode from source to drain.", lo=1e-30, hi=1.0),
+        "rev_n": Key("rev_n", "", 1.0, "angelov: emission coefficient of the reverse-conduction diode.", lo=0.5, hi=5.0),
+    },
+    "drive": {
+        "pin": Key("pin_dbm", "dBm", "20 dBm", "angelov device: available power of the gate source, Pavail = |Vs|^2/(8 Rs) (dBm, or W converted to dBm).", lo=-100.0, hi=90.0),
+        "source_r": Key("source_r_ohm", "ohm", "50 ohm", "angelov device: source resistance Rs of the gate drive.", lo=0.01, hi=1e6),
     },
     "network": {
         "loaded_q": Key("loaded_q", "", 5.0, "Loaded Q of the f0 tank / series-tuned output (sets tank L and C).", lo=0.5, hi=1000.0),
@@ -168,6 +191,41 @@ class DeviceSpec:
     pins: tuple[str, ...] | None = None
     vgate_bias_v: float = 0.0
     vgate_amp_v: float = 1.0
+    preset: str | None = None
+    ipk_a: float = 0.5
+    vpk_v: float = -1.0
+    p1_per_v: float = 1.5
+    p2_per_v2: float = 0.0
+    p3_per_v3: float = 0.0
+    alpha_per_v: float = 2.0
+    lambda_per_v: float = 0.0
+    rd_ohm: float = 0.0
+    rs_ohm: float = 0.0
+    cgs0_f: float = 1e-12
+    cgd0_f: float = 1e-13
+    vbi_v: float = 0.8
+    mj: float = 0.5
+    vcj_v: float = 0.0
+    rev_is_a: float = 1e-12
+    rev_n: float = 1.0
+
+
+@dataclass(frozen=True)
+class DriveSpec:
+    """The gate drive of the angelov device; see :data:`SCHEMA` ``[drive]``."""
+
+    pin_dbm: float = 20.0
+    source_r_ohm: float = 50.0
+
+    @property
+    def pin_avail_w(self) -> float:
+        """Available power of the source in W (10^(dBm/10) mW)."""
+        return 1e-3 * 10.0 ** (self.pin_dbm / 10.0)
+
+    @property
+    def vs_peak_v(self) -> float:
+        """Open-circuit source amplitude |Vs| in V from Pavail = |Vs|^2/(8 Rs) (maximum power transfer)."""
+        return math.sqrt(8.0 * self.source_r_ohm * self.pin_avail_w)
 
 
 @dataclass(frozen=True)
@@ -226,6 +284,7 @@ class Design:
     device: DeviceSpec = field(default_factory=DeviceSpec)
     network: NetworkSpec = field(default_factory=NetworkSpec)
     sim: SimSpec = field(default_factory=SimSpec)
+    drive: DriveSpec = field(default_factory=DriveSpec)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
     source: Path | None = field(default=None, compare=False)
 
@@ -359,6 +418,8 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         table = doc.get(section, {})
         if not isinstance(table, dict):
             raise DesignError(f"{where}: '{section}' must be a table ([{section}]).")
+        if section == "device":
+            table = _with_preset(table)
         for key in table:
             if key not in keys:
                 raise DesignError(f"{section}.{key}: unknown key{_closest(key, keys)}")
@@ -410,9 +471,19 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         device=DeviceSpec(**dev),
         network=NetworkSpec(**values["network"]),
         sim=SimSpec(**sim),
+        drive=DriveSpec(**values["drive"]),
         raw=_plain(doc),
         source=source,
     )
+
+
+def _with_preset(table: dict) -> dict:
+    """The [device] table with the keys of ``device.preset`` (netgen.design.presets) filled in where
+    the table does not give them; the table itself is not changed."""
+    name = table.get("preset")
+    if not isinstance(name, str) or name not in DEVICE_PRESETS:
+        return table  # a wrong preset is refused by the key check with the valid names
+    return {**DEVICE_PRESETS[name], **table}
 
 
 def _resolve_include(base: Path, text: str) -> Path:

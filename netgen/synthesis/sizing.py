@@ -103,10 +103,12 @@ def size(design: Design) -> SizedDesign:
         "pout_est_w": (pout, "W", f"P = a Vdd_eff^2/R with a = {a:.6g} (class {cls})"),
     }
     dev = design.device
-    if dev.model == "gm":
+    if dev.model in ("gm", "angelov"):
         fdc, f1 = conduction_fourier(dev.conduction_angle_deg)
         v1 = math.sqrt(2.0 * pout * ropt)
-        if dev.imax_a is not None:
+        if dev.model == "angelov":
+            imax, how_i = 2.0 * dev.ipk_a, "Imax = 2 Ipk (the Angelov I-V at tanh psi = 1, lambda neglected; docs/devices.md)"
+        elif dev.imax_a is not None:
             imax, how_i = dev.imax_a, "set by device.imax"
         else:
             imax = v1 / ropt / f1
@@ -268,6 +270,8 @@ def _veff_how(design: Design) -> str:
         return "Vdd_eff = Vdd - Ron Idc/duty (mean on-state drop of the switch; our estimate)"
     if m == "gm":
         return "Vdd_eff = Vdd - Vknee (common practice; Cripps)"
+    if m == "angelov":
+        return "Vdd_eff = Vdd - (2/alpha + 2 Ipk (Rd + Rs)) (knee where tanh(alpha Vds) = 0.96, plus the access drop at Imax; our estimate)"
     return "Vdd_eff = Vdd (user device: no drop assumed)"
 
 
