@@ -14,7 +14,7 @@ __all__ = ["DEVICE_PRESETS"]
 DEVICE_PRESETS: dict[str, dict[str, object]] = {
     # an invented low-voltage (about 12 V) depletion-mode device of about 2 W: Schottky gate
     "lv_gan_2w": {
-        "ipk": "0.4 A", "vpk": "-1.2 V", "p1": 1.6, "p2": 0.1, "p3": -0.05,
+        "ipk": "0.4 A", "vpk": "-1.2 V", "p1": 1.6, "p2": 0.1, "p3": 0.05,
         "alpha": 2.5, "lambda": 0.01, "rd": "0.3 ohm", "rs": "0.2 ohm",
         "cgs0": "2.5 pF", "cgd0": "0.15 pF", "vbi": "1 V", "mj": 0.5, "vcj": "0 V",
         "rev_is": "1e-12 A", "rev_n": 1.0, "cout": "0.6 pF",

@@ -259,6 +259,7 @@ def _angelov_ctx(design) -> dict:
         "rev_is_a": dev.rev_is_a, "rev_n": dev.rev_n, "di": di, "si": si,
         "vgs": "v(gate)" if si == "0" else f"v(gate,{si})",
         "vds": f"v({di})" if si == "0" else f"v({di},{si})",
+        "u": f"({'v(gate)' if si == '0' else f'v(gate,{si})'}-({_fmt(dev.vpk_v)}))",
         "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
     }
 

@@ -26,7 +26,7 @@ from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in, pwl_mean_product, pwl_point_energy
 from netgen.synthesis import COUT_Q_WARN, bound_for
 
-from .drive import drive_metrics
+from .drive import angelov_warnings, drive_metrics
 from .planes import PLANES, intrinsic_columns, plane_warnings
 from .stress import buildability_warnings, part_stress, stress_summary
 
@@ -463,7 +463,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
                          for k, r in part_stress(wf, netlist_text).items()}
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = (([impossible] if impossible else []) + design_warnings(sized, metrics)
-                           + plane_warnings(sized, metrics) + buildability_warnings(sized))
+                           + plane_warnings(sized, metrics) + buildability_warnings(sized) + angelov_warnings(design))
     q = (sized.derived or {}).get("cout_q")
     if q and q[0] > COUT_Q_WARN:
         metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "

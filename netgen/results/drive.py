@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["drive_metrics"]
+__all__ = ["drive_metrics", "angelov_warnings"]
 
 
 def _f(x) -> float | None:
@@ -41,3 +41,19 @@ def drive_metrics(design, pout_w: float, pin_w: float | None) -> dict:
         # power the source could give but the gate reflects: 10 log10(Pavail / Pin) >= 0
         "input_mismatch_db": _db(pav / pin_w) if pin_ok else None,
     }
+
+
+def angelov_warnings(design) -> list[str]:
+    """A gate function psi(u) = P1 u + P2 u^2 + P3 u^3 that is not monotonic turns the channel back
+    on at large negative (or positive) gate swing, an artefact of the polynomial outside its fitted
+    range; psi' = P1 + 2 P2 u + 3 P3 u^2 > 0 for every u needs P2 = P3 = 0 or P3 > 0 and
+    P2^2 < 3 P1 P3 (the discriminant of psi'; docs/devices.md)."""
+    dev = design.device
+    if dev.model != "angelov":
+        return []
+    p1, p2, p3 = dev.p1_per_v, dev.p2_per_v2, dev.p3_per_v3
+    if (p2 == 0.0 and p3 == 0.0) or (p3 > 0.0 and p2 * p2 < 3.0 * p1 * p3):
+        return []
+    return [f"the angelov gate function psi is not monotonic (P1 = {p1:g}, P2 = {p2:g}, P3 = {p3:g}): the channel turns "
+            "back on for a large gate swing; check that the swing stays where the parameters were fitted, or choose "
+            "P3 > 0 with P2^2 < 3 P1 P3 (docs/devices.md)"]
