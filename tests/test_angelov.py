@@ -146,7 +146,7 @@ CRIPPS = {
 @pytest.mark.slow
 def test_tuned_class_b_near_zero_knee_tends_to_pi_over_4():
     # Cripps, "RF Power Amplifiers for Wireless Communications", 2nd ed., ch. 3: ideal class B at
-    # full swing reaches pi/4 = 78.5 % drain efficiency; measured 76.95 % here (the tanh turn-on
+    # full swing reaches pi/4 = 78.5 % drain efficiency; measured 76.8 % here (the tanh turn-on
     # is soft, so a little quiescent current remains)
     from netgen.pipeline import evaluate
 
@@ -181,6 +181,10 @@ def test_shipped_angelov_designs_pae_and_pin(path):
     assert m["pae"] <= m["drain_efficiency"]
     assert m["pin_w"] <= m["pin_avail_w"] * (1 + 1e-6)  # maximum power transfer (Pozar, sec. 2.6)
     assert m["gain_transducer_db"] == pytest.approx(10 * math.log10(m["pout_w"] / m["pin_avail_w"]))
+    # the drain current is bounded by the law (Ids <= 2 Ipk (1 + lambda Vds), Angelov et al. 1992) plus
+    # small capacitive currents; trapezoidal ringing of the Cout current broke this (docs/devices.md)
+    d = load_design(path).device
+    assert m["peak_id_a"] < 1.5 * 2 * d.ipk_a * (1 + d.lambda_per_v * m["peak_vd_v"])
     assert m["start"]["method"] == "dc" and "angelov device has nonlinear gate charges" in m["start"]["reason"]
 
 

@@ -24,7 +24,7 @@ DEVICE_PRESETS: dict[str, dict[str, object]] = {
     "hv_ldmos_30w": {
         "ipk": "2.5 A", "vpk": "4.5 V", "p1": 0.9, "p2": 0.0, "p3": 0.02,
         "alpha": 0.6, "lambda": 0.005, "rd": "0.2 ohm", "rs": "0.05 ohm",
-        "cgs0": "25 pF", "cgd0": "1.2 pF", "vbi": "0.8 V", "mj": 0.4, "vcj": "12 V",
+        "cgs0": "120 pF", "cgd0": "7 pF", "vbi": "0.8 V", "mj": 0.4, "vcj": "40 V",
         "rev_is": "1e-10 A", "rev_n": 1.0, "cout": "12 pF",
     },
 }
