@@ -4,10 +4,10 @@ equation, the Cripps class-B limit, the drive metrics, the periodic-start fallba
 from __future__ import annotations
 
 import math
-import tomllib
 from pathlib import Path
 
 import pytest
+import tomllib
 
 from netgen.design import DEVICE_PRESETS, design_from_dict, load_design
 from netgen.netlist import device_expression, read_cards, render

@@ -6,6 +6,9 @@ The environment is sandboxed (``SandboxedEnvironment``), undefined names are err
 name (:data:`netgen.design.schema.SAFE_NAME`) and the checked model-file path of a spice device.
 Output is byte-identical for identical input (no timestamps). Every context variable is
 documented in docs/template_context.md; the portable dialect in docs/portable_dialect.md.
+
+Length (just over 600 lines): the template context is one mapping built in one place so that the
+templates and docs/template_context.md can be checked against it; splitting it would scatter it.
 """
 
 from __future__ import annotations

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["drive_metrics", "angelov_warnings"]
+__all__ = ["angelov_warnings", "drive_metrics"]
 
 
 def _f(x) -> float | None:

@@ -12,7 +12,7 @@ between the two points that straddle it.
 from __future__ import annotations
 
 import math
-from typing import Iterable, Sequence
+from collections.abc import Iterable, Sequence
 
 __all__ = ["COMPRESSION_LEVELS_DB", "compression_points", "drive_compression"]
 
