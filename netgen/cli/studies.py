@@ -185,6 +185,11 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         summary = summarize(store.rows(sid), spec_list, plan.n_points)  # streamed, one row at a time
         if confirmation is not None:
             summary["confirmation"] = confirmation
+        from netgen.studies import drive_compression
+
+        compression = drive_compression(store.rows(sid))
+        if compression is not None:
+            summary["compression"] = compression
         first_failed = store.con.execute(
             "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'failed' ORDER BY idx LIMIT 1", (sid,)
         ).fetchone()
@@ -204,6 +209,7 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
     lost = f", {summary['lost']} lost" if summary["lost"] else ""
     click.echo(f"{plan.n_points} points: {summary['ok']} ok, {summary['not_settled']} not settled, "
                f"{summary['failed']} failed{lost} ({counts['skipped']} already stored, {counts['ran']} run now).")
+    _echo_compression(summary.get("compression"))
     for name, n_pass in summary["specs"].items():
         click.echo(f"  {name}: {n_pass}/{summary['results']} pass")
     if "yield" in summary:
@@ -265,3 +271,17 @@ def main(argv=None) -> None:
 
 if __name__ == "__main__":  # pragma: no cover
     main()
+
+
+def _echo_compression(comp: dict | None) -> None:
+    """The compression points of a drive sweep (netgen.studies.compression), one line."""
+    if not comp:
+        return
+    parts = []
+    for key, label in (("p1db", "P1dB"), ("p3db", "P3dB")):
+        c = comp.get(key)
+        parts.append(f"{label} at Pin {c['pin_dbm']:.2f} dBm, Pout {c['pout_dbm']:.2f} dBm" if c
+                     else f"{label} not reached")
+    g0 = comp.get("reference_gain_db")
+    lead = f"peak gain {g0:.2f} dB; " if g0 is not None else ""
+    click.echo("  " + lead + "; ".join(parts))

@@ -4,8 +4,8 @@ Takes a TOML file (or a dict); gives a frozen :class:`Design` with every quantit
 Also holds the frozen records passed between the later stages (:class:`Component`,
 :class:`SizedDesign`, :class:`Waveforms`), so every stage can depend on them.
 
-Modules: ``quantities`` (text with units -> floats), ``schema`` (the one table of keys,
-validation, defaults), ``keys`` (dotted key paths; the key reference page, printed by
+Modules: ``quantities`` (text with units -> floats), ``key_table`` (the one table of keys and the file
+limits), ``schema`` (loading, validation, defaults, the spec records), ``keys`` (dotted key paths; the key reference page, printed by
 ``python -m netgen.design``),
 ``records`` (the frozen records).
 """
@@ -15,16 +15,18 @@ from importlib import import_module
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
-    "BLOCK_SECTIONS": "schema",
+    "BLOCK_SECTIONS": "key_table",
     "BlockSpec": "schema",
     "COMPONENT_UNITS": "records",
     "Component": "records",
     "Design": "schema",
+    "DEVICE_PRESETS": "presets",
     "DeviceSpec": "schema",
-    "SCHEMA": "schema",
+    "DriveSpec": "schema",
+    "SCHEMA": "key_table",
     "SimSpec": "schema",
     "SizedDesign": "records",
-    "TOPOLOGIES": "schema",
+    "TOPOLOGIES": "key_table",
     "Waveforms": "records",
     "design_from_dict": "schema",
     "format_quantity": "quantities",

@@ -10,7 +10,8 @@ from typing import Any
 
 from netgen.errors import DesignError
 
-from .schema import _INF, SCHEMA, _closest, _plain
+from .key_table import _INF, SCHEMA
+from .schema import _closest, _plain
 
 __all__ = ["get_dotted", "set_dotted", "reference_markdown"]
 
@@ -55,7 +56,7 @@ def reference_markdown() -> str:
     lines = [
         "# Design file reference",
         "",
-        "Generated from `netgen/design/schema.py` (`python -m netgen.design > docs/design_reference.md`).",
+        "Generated from `netgen/design/key_table.py` (`python -m netgen.design > docs/design_reference.md`).",
         "Quantities are text with units: `\"915 MHz\"`, `\"2.2nH\"`, `\"1.5p\"` (SPICE-style scale suffix, unit implied),",
         "`\"50 ohm\"`. SI prefixes are case-sensitive (`M` mega, `m` milli); `meg` is accepted for mega.",
         "A bare number where a unit is expected is an error. Keys are addressed by dotted paths (`design.vdd`).",

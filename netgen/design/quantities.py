@@ -41,6 +41,7 @@ UNIT_ALIASES: dict[str, tuple[str, ...]] = {
     "m": ("m", "meter", "metre"),
     "dB": ("dB", "db"),
     "deg": ("deg", "°"),
+    "dBm": ("dBm", "dbm", "DBM"),
 }
 
 _MEG = re.compile(r"(?<=[0-9.\s])meg", re.IGNORECASE)
@@ -81,7 +82,7 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
     """
     example = {"Hz": "915 MHz", "V": "24 V", "A": "1.2 A", "W": "8 W", "ohm": "50 ohm",
                "H": "2.2 nH", "F": "1.5 pF", "s": "10 ns", "m": "25 mm", "dB": "0.2 dB",
-               "deg": "180 deg"}.get(unit, "")
+               "deg": "180 deg", "dBm": "20 dBm"}.get(unit, "")
     if isinstance(value, bool):
         raise DesignError(f"{key}: expected a quantity in {unit or 'plain numbers'}, got {str(value).lower()} (TOML true/false).")
     if isinstance(value, (int, float)):
@@ -115,6 +116,8 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
         return number
     if units:
         canon = _canonical_unit(units)
+        if unit == "dBm" and canon == "W":
+            return _watts_to_dbm(number, value, key)
         if canon != unit:
             raise DesignError(
                 f"{key}: {value!r} is in {units!r} but this key takes {unit}; write e.g. \"{example}\"."
@@ -126,6 +129,13 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
             f"{key}: {value!r} has no unit; write it with its unit, e.g. \"{example}\"."
         )
     return number
+
+
+def _watts_to_dbm(number: float, value: object, key: str) -> float:
+    """A power in W as dBm: 10 log10(P / 1 mW) (the definition of the dBm)."""
+    if number <= 0:
+        raise DesignError(f"{key}: {value!r} is not a positive power; give it in W above 0 or in dBm.")
+    return 10.0 * math.log10(number / 1e-3)
 
 
 def _check_finite(number: float, value: object, key: str) -> None:

@@ -8,13 +8,14 @@ sweep/tolerance dotted paths all read that table, so they cannot drift apart.
 Values with units are text ("915 MHz"); they are parsed once, here, by
 :func:`netgen.design.quantities.parse_quantity`, and stored in SI floats whose
 attribute names end in their unit (``f0_hz``).
+
+The key table itself is :mod:`netgen.design.key_table`; the presets live in :mod:`netgen.design.presets`.
 """
 
 from __future__ import annotations
 
 import difflib
 import math
-import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -23,6 +24,20 @@ import tomllib
 
 from netgen.errors import DesignError
 
+from .key_table import (  # noqa: F401  (the table and its limits)
+    _EXTRA_SECTIONS,
+    _INF,
+    BLOCK_SECTIONS,
+    DEVICE_MODELS,
+    MAX_DEPTH,
+    MAX_FILE_BYTES,
+    MAX_KEYS,
+    SAFE_NAME,
+    SCHEMA,
+    TOPOLOGIES,
+    Key,
+)
+from .presets import DEVICE_PRESETS
 from .quantities import parse_quantity
 
 __all__ = [
@@ -32,6 +47,7 @@ __all__ = [
     "BlockSpec",
     "BLOCK_SECTIONS",
     "SimSpec",
+    "DriveSpec",
     "SCHEMA",
     "TOPOLOGIES",
     "DEVICE_MODELS",
@@ -42,117 +58,6 @@ __all__ = [
     "MAX_DEPTH",
     "MAX_KEYS",
 ]
-
-#: Built-in topology names (see :mod:`netgen.synthesis.topologies`).
-TOPOLOGIES = (
-    "class_f_line",
-    "class_f_feed",
-    "class_f_lumped",
-    "inverse_f_line",
-    "class_e",
-    "class_b_tuned",
-)
-DEVICE_MODELS = ("switch", "gm", "spice")
-#: what a Touchstone block replaces (docs/touchstone_blocks.md)
-BLOCK_SECTIONS = ("network", "match", "template")
-
-#: Names that reach a netlist (design name, subcircuit name, component names).
-SAFE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
-#: A design file larger than this is refused (hand-written designs are a few kB).
-MAX_FILE_BYTES = 1_000_000
-#: deepest nesting of tables and arrays in a design file (a design needs 3: [network.values])
-MAX_DEPTH = 8
-#: most keys and array items in a design file, counted over all tables (a design has tens)
-MAX_KEYS = 5_000
-
-
-@dataclass(frozen=True)
-class Key:
-    """One key of the schema: its unit ('' plain number, 'str', 'bool', 'int'), default and range."""
-
-    attr: str
-    unit: str
-    default: Any
-    doc: str
-    lo: float | None = None
-    hi: float | None = None
-    lo_open: bool = False  # True: value must be > lo (else >= lo)
-    choices: tuple[str, ...] | None = None
-    required: bool = False
-
-
-_INF = math.inf
-
-#: section -> key -> Key. The order is the order of the reference page.
-SCHEMA: dict[str, dict[str, Key]] = {
-    "design": {
-        "name": Key("name", "str", None, "Design name; letters, digits, underscore; starts with a letter.", required=True),
-        "topology": Key("topology", "str", None, "A built-in topology (" + ", ".join(TOPOLOGIES) + ") or a path to a user template (*.j2), relative to the design file.", required=True),
-        "f0": Key("f0_hz", "Hz", None, "Fundamental (operating) frequency.", lo=1e3, hi=1e12, required=True),
-        "vdd": Key("vdd_v", "V", None, "Drain supply voltage.", lo=0.0, hi=10e3, lo_open=True, required=True),
-        "load": Key("load_ohm", "ohm", "50 ohm", "Load (antenna port) resistance RL.", lo=0.01, hi=1e6),
-        "load_x": Key("load_x_ohm", "ohm", "0 ohm", "Load reactance at f0 (load-pull / mismatch studies); realised as a series L (>0) or C (<0) sized at f0.", lo=-1e6, hi=1e6),
-        "pout": Key("pout_w", "W", None, "Target fundamental output power; Ropt is sized from it. Give pout or ropt.", lo=0.0, hi=1e7, lo_open=True),
-        "ropt": Key("ropt_ohm", "ohm", None, "Optimum drain load resistance at f0 (overrides pout).", lo=0.01, hi=1e6),
-    },
-    "device": {
-        "model": Key("model", "str", "switch", "Device model: switch (idealised switch), gm (transconductance device with knee), spice (user subcircuit).", choices=DEVICE_MODELS),
-        "ron": Key("ron_ohm", "ohm", "0.2 ohm", "Switch on-resistance.", lo=1e-6, hi=1e4),
-        "roff": Key("roff_ohm", "ohm", "1 Mohm", "Switch off-resistance.", lo=1.0, hi=1e15),
-        "transition": Key("transition", "", 0.0, "Switch edge time as a fraction of the period; 0 is an abrupt switch. A finite edge is a real loss (the switch conducts while the voltage is high).", lo=0.0, hi=0.25),
-        "duty": Key("duty", "", 0.5, "Fraction of the period the switch is on.", lo=0.05, hi=0.95),
-        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source, at the current generator: the intrinsic plane). Sizing absorbs it (docs/topologies.md, 'The intrinsic plane'). switch and gm: the netlist adds it as COUT. spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing absorbs it (counted once).", lo=0.0, hi=1.0),
-        "package_l": Key("package_l_h", "H", "0 H", "Package series inductance Ld between Cout and the drain terminal (bond wire); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
-        "package_c": Key("package_c_f", "F", "0 F", "Package shunt capacitance Cp at the drain terminal (the package plane); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
-        "imax": Key("imax_a", "A", None, "gm device: peak drain current; default sized from the design (Raab/Cripps Fourier coefficients).", lo=0.0, hi=1e4, lo_open=True),
-        "vknee": Key("vknee_v", "V", "0 V", "gm device: knee voltage (drain current = gm-limited current x tanh(vds/vknee)).", lo=0.0, hi=1e3),
-        "conduction_angle": Key("conduction_angle_deg", "deg", "180 deg", "gm device: conduction angle at full drive (180 deg is class-B bias).", lo=10.0, hi=360.0),
-        "drive": Key("drive", "", 1.0, "gm and spice devices: relative drive level (1.0 reaches imax).", lo=0.0, hi=20.0, lo_open=True),
-        "rgate": Key("rgate_ohm", "ohm", "50 ohm", "gm device: gate input resistance used for the drive power (PAE).", lo=0.01, hi=1e6),
-        "include": Key("include", "str", None, "spice device: path of the model file to .include (relative to the design file, inside its folder; models, subcircuits and .param only)."),
-        "subckt": Key("subckt", "str", None, "spice device: subcircuit name in the included file."),
-        "pins": Key("pins", "pins", None, "spice device: subcircuit pin order as a list of 'drain', 'gate', 'source', e.g. [\"drain\", \"gate\", \"source\"]."),
-        "vgate_bias": Key("vgate_bias_v", "V", "0 V", "spice device: gate DC bias.", lo=-1e3, hi=1e3),
-        "vgate_amp": Key("vgate_amp_v", "V", "1 V", "spice device: gate drive amplitude (sine at f0), scaled by drive.", lo=0.0, hi=1e3),
-    },
-    "network": {
-        "loaded_q": Key("loaded_q", "", 5.0, "Loaded Q of the f0 tank / series-tuned output (sets tank L and C).", lo=0.5, hi=1000.0),
-        "resonator_z": Key("resonator_z_ohm", "ohm", None, "class_f_lumped: characteristic impedance sqrt(L/C) of the harmonic resonators (default: balances the even-harmonic short against the odd-harmonic open for the inductor Q, about 0.1-0.2 Ropt; see netgen.synthesis.sizing.lumped_resonator_z).", lo=0.1, hi=1e5),
-        "harmonics": Key("harmonics", "int", 2, "class_f_lumped: number of odd harmonics with a resonator (3f0 .. (2N+1)f0); with a device Cout (or package) in class F and inverse F: number of harmonics the Cout compensator opens (class F 3f0 .. (2N+1)f0, inverse F 2f0 .. 2N f0).", lo=1, hi=10),
-        "eps_eff": Key("eps_eff", "", 1.0, "Effective relative permittivity of the lines (for the physical length of a quarter-wave line).", lo=1.0, hi=200.0),
-        "inductor_q": Key("inductor_q", "", _INF, "Unloaded Q of every inductor at f0 (a series resistance omega0*L/Q); inf is lossless.", lo=1.0, hi=_INF),
-        "capacitor_esr": Key("capacitor_esr_ohm", "ohm", "0 ohm", "Series resistance of every RF capacitor.", lo=0.0, hi=100.0),
-        "line_loss": Key("line_loss_db", "dB", "0 dB", "Loss of each quarter-wave line at f0 (realised as distributed series resistance).", lo=0.0, hi=10.0),
-        "feed_l": Key("feed_l_h", "H", None, "DC-feed choke inductance (default: reactance 60 x Ropt at f0).", lo=0.0, hi=1.0, lo_open=True),
-        "block_c": Key("block_c_f", "F", None, "DC-block capacitance (default: reactance Ropt/60 at f0).", lo=0.0, hi=1.0, lo_open=True),
-        "match": Key("match", "str", "lowpass", "Ropt -> RL matching section where the topology needs one: lowpass or highpass L-section.", choices=("lowpass", "highpass")),
-        "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `pashape size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
-        "values": Key("values", "values", {}, "Explicit component values by name (e.g. tank_l = \"2.4 nH\"); they override sizing."),
-    },
-    "block": {
-        "file": Key("file", "str", None, "Touchstone file (.s1p/.s2p, version 1 or 2) of a measured or EM-simulated network, relative to the design file; the block replaces block.section (docs/touchstone_blocks.md)."),
-        "section": Key("section", "str", "network", "What the block replaces: network (everything between the drain and RLOAD except the DC feed; port 1 at the drain, port 2 at RLOAD), match (the L-section match and load reactance before RLOAD), or template (a user template places it with dev.touchstone(...)).", choices=BLOCK_SECTIONS),
-        "order": Key("order", "int", 0, "Order of the rational (vector) fit ngspice runs: real poles + 2 x complex pairs; 0 picks the lowest order that meets block.fit_tol.", lo=0, hi=60),
-        "fit_tol": Key("fit_tol", "", 0.01, "Largest allowed |S_fit - S_file| over the file's points from DC to sim.harmonics x f0; a worse fit is refused.", lo=1e-6, hi=0.5),
-        "passivity": Key("passivity", "str", "enforce", "A rational fit that is not passive: enforce (scikit-rf's passivity enforcement, then re-checked) or refuse.", choices=("enforce", "refuse")),
-    },
-    "sim": {
-        "points_per_cycle": Key("points_per_cycle", "int", 1000, "Maximum time step as a fraction of the period (TMAX = T/points_per_cycle).", lo=50, hi=20000),
-        "settle_tol": Key("settle_tol", "", 1e-3, "Relative tolerance on DC power, load power and drain waveform for periodic steady state.", lo=1e-6, hi=0.1),
-        "min_cycles": Key("min_cycles", "int", 6, "Cycles simulated before convergence is judged.", lo=2, hi=1_000_000),
-        "max_cycles": Key("max_cycles", "int", 3000, "Give up (and report 'not settled') after this many cycles.", lo=4, hi=1_000_000),
-        "timeout": Key("timeout_s", "s", "600 s", "Wall-clock limit of one simulation.", lo=0.1, hi=1e6),
-        "harmonics": Key("harmonics", "int", 5, "Harmonics analysed and reported (n = 1..N).", lo=1, hi=50),
-        "average_periods": Key("average_periods", "int", 6, "Settled periods averaged for the harmonic table (V_n, I_n, Z_n, power per harmonic); raise it where harmonics scatter from cycle to cycle (lossless lines with a hard switch).", lo=2, hi=100_000),
-        "warm_start": Key("warm_start", "bool", True, "Start warm (true; see periodic_start) or from zero (false)."),
-        "periodic_start": Key("periodic_start", "bool", True, "Warm start on the periodic steady state computed directly from the netlist (true; where the netlist has parts that computation does not model, and with false, the DC state of feed and block with bias-mode nulling)."),
-        "backend": Key("backend", "str", "shared", "Simulator path: shared (libngspice through PySpice) or batch (the ngspice executable).", choices=("shared", "batch")),
-    },
-}
-
-# Keys the sweep / tolerance commands may add at the top level of a design file.
-_EXTRA_SECTIONS = ("sweep", "tolerance", "meta")
-
 
 @dataclass(frozen=True)
 class DeviceSpec:
@@ -176,6 +81,41 @@ class DeviceSpec:
     pins: tuple[str, ...] | None = None
     vgate_bias_v: float = 0.0
     vgate_amp_v: float = 1.0
+    preset: str | None = None
+    ipk_a: float = 0.5
+    vpk_v: float = -1.0
+    p1_per_v: float = 1.5
+    p2_per_v2: float = 0.0
+    p3_per_v3: float = 0.0
+    alpha_per_v: float = 2.0
+    lambda_per_v: float = 0.0
+    rd_ohm: float = 0.0
+    rs_ohm: float = 0.0
+    cgs0_f: float = 1e-12
+    cgd0_f: float = 1e-13
+    vbi_v: float = 0.8
+    mj: float = 0.5
+    vcj_v: float = 0.0
+    rev_is_a: float = 1e-12
+    rev_n: float = 1.0
+
+
+@dataclass(frozen=True)
+class DriveSpec:
+    """The gate drive of the angelov device; see :data:`SCHEMA` ``[drive]``."""
+
+    pin_dbm: float = 20.0
+    source_r_ohm: float = 50.0
+
+    @property
+    def pin_avail_w(self) -> float:
+        """Available power of the source in W (10^(dBm/10) mW)."""
+        return 1e-3 * 10.0 ** (self.pin_dbm / 10.0)
+
+    @property
+    def vs_peak_v(self) -> float:
+        """Open-circuit source amplitude |Vs| in V from Pavail = |Vs|^2/(8 Rs) (maximum power transfer)."""
+        return math.sqrt(8.0 * self.source_r_ohm * self.pin_avail_w)
 
 
 @dataclass(frozen=True)
@@ -246,6 +186,7 @@ class Design:
     network: NetworkSpec = field(default_factory=NetworkSpec)
     sim: SimSpec = field(default_factory=SimSpec)
     block: BlockSpec = field(default_factory=BlockSpec)
+    drive: DriveSpec = field(default_factory=DriveSpec)
     raw: dict = field(default_factory=dict, compare=False, repr=False)
     source: Path | None = field(default=None, compare=False)
 
@@ -379,6 +320,8 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         table = doc.get(section, {})
         if not isinstance(table, dict):
             raise DesignError(f"{where}: '{section}' must be a table ([{section}]).")
+        if section == "device":
+            table = _with_preset(table)
         for key in table:
             if key not in keys:
                 raise DesignError(f"{section}.{key}: unknown key{_closest(key, keys)}")
@@ -432,6 +375,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         network=NetworkSpec(**values["network"]),
         sim=SimSpec(**sim),
         block=block,
+        drive=DriveSpec(**values["drive"]),
         raw=_plain(doc),
         source=source,
     )
@@ -466,6 +410,15 @@ def _block_spec(values: dict, base: Path, topology: str, given: bool) -> BlockSp
                           "place a 1-port in a user template (block.section = \"template\").")
     return BlockSpec(file=path, section=section, order=values["order"], fit_tol=values["fit_tol"],
                      passivity=values["passivity"])
+
+
+def _with_preset(table: dict) -> dict:
+    """The [device] table with the keys of ``device.preset`` (netgen.design.presets) filled in where
+    the table does not give them; the table itself is not changed."""
+    name = table.get("preset")
+    if not isinstance(name, str) or name not in DEVICE_PRESETS:
+        return table  # a wrong preset is refused by the key check with the valid names
+    return {**DEVICE_PRESETS[name], **table}
 
 
 def _resolve_include(base: Path, text: str, key: str = "device.include") -> Path:

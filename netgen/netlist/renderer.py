@@ -6,6 +6,9 @@ The environment is sandboxed (``SandboxedEnvironment``), undefined names are err
 name (:data:`netgen.design.schema.SAFE_NAME`) and the checked model-file path of a spice device.
 Output is byte-identical for identical input (no timestamps). Every context variable is
 documented in docs/template_context.md; the portable dialect in docs/portable_dialect.md.
+
+Length (just over 600 lines): the template context is one mapping built in one place so that the
+templates and docs/template_context.md can be checked against it; splitting it would scatter it.
 """
 
 from __future__ import annotations
@@ -208,6 +211,8 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         alpha = math.radians(dev.conduction_angle_deg) / 2.0
         imax = sized.derived["imax_a"][0]
         device.update(imax_a=imax, vg_bias=-math.cos(alpha), gm_a_per_v=imax / (1.0 - math.cos(alpha)))
+    elif dev.model == "angelov":
+        device["angelov"] = _angelov_ctx(d)
     else:
         pins = {"drain": "dsw", "gate": "gate", "source": "0"}
         device["nodes"] = " ".join(pins[p] for p in dev.pins)
@@ -239,6 +244,25 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "ropt_ohm": sized.ropt_ohm,
         "version": __version__,
         "digest": sized.digest(),
+    }
+
+
+def _angelov_ctx(design) -> dict:
+    """Template values of the angelov device (templates/devices.j2 ``angelov``): its parameters,
+    the intrinsic node names (``adi``/``asi`` behind Rd/Rs, else ``dsw``/ground), the control
+    voltages as B-source text and the gate source amplitude from drive.pin (docs/devices.md)."""
+    dev, drv = design.device, design.drive
+    di = "adi" if dev.rd_ohm > 0 else "dsw"
+    si = "asi" if dev.rs_ohm > 0 else "0"
+    return {
+        "ipk_a": dev.ipk_a, "vpk_v": dev.vpk_v, "p1": dev.p1_per_v, "p2": dev.p2_per_v2, "p3": dev.p3_per_v3,
+        "alpha": dev.alpha_per_v, "lambda_": dev.lambda_per_v, "rd_ohm": dev.rd_ohm, "rs_ohm": dev.rs_ohm,
+        "cgs0_f": dev.cgs0_f, "cgd0_f": dev.cgd0_f, "vbi_v": dev.vbi_v, "mj": dev.mj, "vcj_v": dev.vcj_v,
+        "rev_is_a": dev.rev_is_a, "rev_n": dev.rev_n, "di": di, "si": si,
+        "vgs": "v(gate)" if si == "0" else f"v(gate,{si})",
+        "vds": f"v({di})" if si == "0" else f"v({di},{si})",
+        "u": f"({'v(gate)' if si == '0' else f'v(gate,{si})'}-({_fmt(dev.vpk_v)}))",
+        "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
     }
 
 

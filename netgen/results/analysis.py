@@ -26,6 +26,7 @@ from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in, pwl_mean_product, pwl_point_energy
 from netgen.synthesis import COUT_Q_WARN, bound_for
 
+from .drive import angelov_warnings, drive_metrics
 from .planes import PLANES, intrinsic_columns, plane_warnings
 from .stress import buildability_warnings, part_stress, stress_summary
 
@@ -406,7 +407,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
 
     losses = _loss_budget(win, design, netlist_text, pload_total - pout)
     device_w = losses["device_conduction"] + losses["device_switching"]
-    coupled_pin = pin if design.device.model == "spice" else None  # a gm gate feeds only RGIN
+    coupled_pin = pin if design.device.model in ("spice", "angelov") else None  # a gm gate feeds only RGIN
     impossible = _impossible(pout, pdc, coupled_pin, device_w)
     if impossible:
         eff = pae = None  # never printed as a result (design_warnings says why)
@@ -444,6 +445,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
         "pin_w": _f(pin),
         "drain_efficiency": _f(eff),
         "pae": _f(pae),
+        **drive_metrics(design, pout, pin),
         "peak_vd_v": _f(vd_max),
         "peak_vd_over_vdd": _f(vd_max / vdd),
         "min_vd_v": _f(vd_min),
@@ -466,7 +468,7 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
                          for k, r in part_stress(wf, netlist_text, losses).items()}
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = (([impossible] if impossible else []) + design_warnings(sized, metrics)
-                           + plane_warnings(sized, metrics) + buildability_warnings(sized))
+                           + plane_warnings(sized, metrics) + buildability_warnings(sized) + angelov_warnings(design))
     q = (sized.derived or {}).get("cout_q")
     if q and q[0] > COUT_Q_WARN:
         metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "

@@ -163,6 +163,9 @@ def format_table(metrics: dict) -> str:
         ("peak Vd (V)", _num(metrics.get("peak_vd_v")), "peak Vd/Vdd", _num(metrics.get("peak_vd_over_vdd"), "{:.3f}")),
         ("peak Id (A)", _num(metrics.get("peak_id_a")), "balance err (%)", _pct(metrics.get("loss_balance_error"))),
     ]
+    if metrics.get("pin_avail_w") is not None:
+        pairs.append(("Pin avail (dBm)", _num(metrics.get("pin_avail_dbm"), "{:.2f}"), "Pin gate (dBm)", _num(metrics.get("pin_dbm"), "{:.2f}")))
+        pairs.append(("G_T (dB)", _num(metrics.get("gain_transducer_db"), "{:.2f}"), "G_P (dB)", _num(metrics.get("gain_power_db"), "{:.2f}")))
     for a, va, b, vb in pairs:
         lines.append(f"  {a:<16}{va:>12}     {b:<16}{vb:>12}")
     lines.append("")
@@ -381,6 +384,10 @@ def write_report(outdir, sized, metrics: dict, plot_paths: dict, netlist_text: s
         ("total load power (W)", _num(metrics.get("pload_total_w"))),
         ("fundamental power leaving the drain (W)", _num(metrics.get("p1_drain_w"))),
         ("drive power Pin (W)", _num(metrics.get("pin_w"))),
+        ("available drive power Pavail (dBm)", _num(metrics.get("pin_avail_dbm"), "{:.2f}")),
+        ("delivered drive power at the gate (dBm)", _num(metrics.get("pin_dbm"), "{:.2f}")),
+        ("transducer gain Pout/Pavail (dB)", _num(metrics.get("gain_transducer_db"), "{:.2f}")),
+        ("power gain Pout/Pin (dB)", _num(metrics.get("gain_power_db"), "{:.2f}")),
         ("drain efficiency (%)", _pct(metrics.get("drain_efficiency"))), ("PAE (%)", _pct(metrics.get("pae"))),
         ("peak drain voltage (V)", _num(metrics.get("peak_vd_v"))),
         ("peak drain voltage / Vdd", _num(metrics.get("peak_vd_over_vdd"), "{:.3f}")),

@@ -7,7 +7,8 @@ Modules: ``grammar`` (variations, load circles, tolerances, specs and yield), ``
 study, Monte Carlo draws, the summary), ``execute``
 (running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures), ``fast`` (metrics from
 the periodic estimate alone, confirmed in ngspice), ``tune`` (bounded optimisation toward targets),
-``loadpull`` (harmonic load-pull at the intrinsic plane), ``closure_plots`` (their figures).
+``loadpull`` (harmonic load-pull at the intrinsic plane), ``closure_plots`` (their figures),
+``compression`` (P1dB and P3dB of a drive sweep).
 """
 
 from importlib import import_module
@@ -19,6 +20,8 @@ _EXPORTS = {
     "STORE_NAME": "store",
     "SweepStore": "store",
     "confirm_sample": "fast",
+    "compression_points": "compression",
+    "drive_compression": "compression",
     "evaluate_estimate": "fast",
     "evaluate_fast": "fast",
     "evaluate_ngspice": "fast",

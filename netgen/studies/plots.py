@@ -32,6 +32,7 @@ __all__ = [
     "plot_histograms",
     "plot_load_circle",
     "plot_sweep",
+    "plot_drive",
 ]
 
 #: metric -> (label, display scale)
@@ -252,6 +253,42 @@ def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path) -> Path:
     return _save(fig, path)
 
 
+def plot_drive(rows: Sequence[dict], path: Path) -> Path:
+    """A drive sweep (axis drive.pin, dBm): Pout (dBm), transducer gain (dB), drain efficiency and
+    PAE (%) against the available input power, with P1dB and P3dB marked where reached
+    (netgen.studies.compression)."""
+    from .compression import DRIVE_AXIS, drive_compression
+
+    x, pout = line_data(rows, DRIVE_AXIS, "pout_w")
+    pout_dbm = 10.0 * np.log10(np.where(pout > 0, pout, np.nan) / 1e-3)
+    _, eff = line_data(rows, DRIVE_AXIS, "drain_efficiency")
+    _, pae = line_data(rows, DRIVE_AXIS, "pae")
+    comp = drive_compression(rows) or {}
+    fig, axes = plt.subplots(3, 1, figsize=(6.4, 6.6), sharex=True)
+    axes[0].plot(x, pout_dbm, "o-", color="#1f4e79", ms=4, lw=1.2)
+    axes[0].set_ylabel("output power (dBm)", fontsize=8)
+    axes[1].plot(x, pout_dbm - x, "o-", color="#7a3b00", ms=4, lw=1.2)
+    axes[1].set_ylabel("transducer gain (dB)", fontsize=8)
+    axes[2].plot(x, eff * 100.0, "o-", color="#1f4e79", ms=4, lw=1.2, label="drain efficiency")
+    axes[2].plot(x, pae * 100.0, "s--", color="#2e7d32", ms=4, lw=1.2, label="PAE")
+    axes[2].set_ylabel("efficiency (%)", fontsize=8)
+    axes[2].legend(fontsize=7, loc="upper left")
+    for key, label, style, dy in (("p1db", "P1dB", ":", -12), ("p3db", "P3dB", "-.", -24)):
+        c = comp.get(key)
+        if not c:
+            continue
+        for ax in axes:
+            ax.axvline(c["pin_dbm"], color="#888888", ls=style, lw=1.0)
+        axes[0].annotate(f"{label} {c['pout_dbm']:.1f} dBm", (c["pin_dbm"], c["pout_dbm"]), fontsize=7,
+                         xytext=(4, dy), textcoords="offset points")
+    for ax in axes:
+        ax.grid(True, color="#dddddd", lw=0.6)
+    axes[-1].set_xlabel("available input power (dBm)")
+    fig.suptitle("drive sweep", fontsize=10)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
 def plot_sweep(db, outdir, specs: Sequence[Spec] = ()) -> dict:
     """All plots that suit the stored sweep; returns {kind: path}.
 
@@ -282,6 +319,8 @@ def plot_sweep(db, outdir, specs: Sequence[Spec] = ()) -> dict:
         made["load_circle"] = plot_load_circle(rows, rl, outdir / "load_circle.png")
         if len(units) == 1:
             made["line_load_phase_deg"] = plot_line(rows, "load_phase_deg", outdir / "sweep_load_phase.png", "deg")
+    if numeric == ["drive.pin"] and not spec["samples"] and len(units) == 1:
+        made["drive"] = plot_drive(rows, outdir / "drive_sweep.png")
     if len(numeric) == 1 and not spec["samples"] and len(units) == 1:
         made[f"line_{numeric[0]}"] = plot_line(rows, numeric[0], outdir / f"sweep_{numeric[0].replace('.', '_')}.png",
                                                units[numeric[0]])

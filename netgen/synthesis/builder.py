@@ -177,8 +177,11 @@ def ropt_from_power(design: Design, cls: str) -> tuple[float, float, str]:
                 f"{design.pout_w:g} W; lower device.ron or design.pout, or raise design.vdd."
             )
         veff = 0.5 * (vdd + math.sqrt(disc))
-    elif dev.model == "gm":
-        veff = vdd - dev.vknee_v
+    elif dev.model in ("gm", "angelov"):
+        knee = dev.vknee_v if dev.model == "gm" else angelov_knee_v(dev)
+        veff = vdd - knee
+        if veff <= 0 and dev.model == "angelov":
+            raise SizingError(f"device.alpha: the knee of the angelov device ({knee:.3g} V) is not below design.vdd = {vdd:g} V; raise alpha or vdd.")
         if veff <= 0:
             raise SizingError(f"device.vknee: {dev.vknee_v:g} V is not below design.vdd = {vdd:g} V; lower the knee voltage.")
         if design.ropt_ohm is not None:
@@ -188,6 +191,12 @@ def ropt_from_power(design: Design, cls: str) -> tuple[float, float, str]:
         if design.ropt_ohm is not None:
             return design.ropt_ohm, veff, "set by design.ropt"
     return a * veff**2 / design.pout_w, veff, CLASS_SOURCE[cls]
+
+
+def angelov_knee_v(dev) -> float:
+    """Knee voltage of the angelov device in V: 2/alpha (tanh(alpha Vds) reaches 0.96 there) plus the
+    access-resistance drop 2 Ipk (Rd + Rs) at the peak current (our estimate; docs/devices.md)."""
+    return 2.0 / dev.alpha_per_v + 2.0 * dev.ipk_a * (dev.rd_ohm + dev.rs_ohm)
 
 
 #: a value the formulas cannot give for a fixed L-section orientation (network.match_shunt);
