@@ -215,12 +215,27 @@ def test_refused_with_one_line(tmp_path, problem):
     assert not (tmp_path / "out").exists()
 
 
+def _scaled_touchstone(text: str, k: float) -> str:
+    """The Touchstone text with every S-parameter multiplied by k (comments and options kept)."""
+    out = []
+    for line in text.splitlines():
+        if line.strip() and line.lstrip()[0] not in "!#":
+            v = [float(x) for x in line.split()]
+            line = " ".join(repr(x) for x in [v[0], *(x * k for x in v[1:])])
+        out.append(line)
+    return "\n".join(out) + "\n"
+
+
 def test_fit_passivity_refuse_or_enforce(tmp_path):
-    # The class_b_tuned network is lossless at DC (series capacitor) and at high frequencies (shunt
-    # capacitor), so its fit touches ||S|| = 1 from above; with block.passivity = "refuse" that is
-    # refused in one line, with "enforce" the enforced fit passes scikit-rf's passivity test.
+    # A measured file often exceeds ||S|| = 1 by calibration noise where the network is lossless
+    # (common practice: VNA data of low-loss parts). The class_b_tuned network is lossless at DC
+    # (series capacitor), so its data scaled by 1 + 5e-4 stay inside the data check's allowance
+    # (DATA_PASSIVITY_TOL = 1e-3, docs/touchstone_blocks.md) while any fit of them is not passive
+    # near DC: "refuse" says so in one line, "enforce" returns a fit that passes scikit-rf's
+    # passivity test (its Hamiltonian-matrix test, VectorFitting.is_passive). The scaling makes the
+    # case independent of whether an unscaled fit lands a hair above or below 1 in a given release.
     d = load_design(SIMS / "class_b_tuned.toml")
-    text = section_touchstone_text(size(d), "network")
+    text = _scaled_touchstone(section_touchstone_text(size(d), "network"), 1.0005)
     with pytest.raises(DesignError) as err:
         design_block(_with_block(d, tmp_path, text, passivity="refuse"))
     assert "not passive" in str(err.value) and "\n" not in str(err.value)

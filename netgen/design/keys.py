@@ -11,7 +11,7 @@ from typing import Any
 from netgen.errors import DesignError
 
 from .key_table import _INF, SCHEMA
-from .schema import _closest, _plain
+from .schema import closest_hint, plain_toml
 
 __all__ = ["get_dotted", "set_dotted", "reference_markdown"]
 
@@ -36,14 +36,14 @@ def set_dotted(doc: dict, path: str, value: Any) -> dict:
         raise DesignError(f"'{path}': a key path has a section and a key, e.g. design.vdd.")
     section, key = parts[0], parts[1]
     if section not in SCHEMA:
-        raise DesignError(f"'{path}': unknown section '{section}'{_closest(section, SCHEMA)}")
+        raise DesignError(f"'{path}': unknown section '{section}'{closest_hint(section, SCHEMA)}")
     if key not in SCHEMA[section]:
-        raise DesignError(f"'{path}': unknown key{_closest(key, SCHEMA[section])}")
+        raise DesignError(f"'{path}': unknown key{closest_hint(key, SCHEMA[section])}")
     if key == "values" and len(parts) != 3:
         raise DesignError(f"'{path}': name the component, e.g. network.values.tank_l.")
     if key != "values" and len(parts) != 2:
         raise DesignError(f"'{path}': too many parts; a key path is section.key.")
-    out = _plain(doc)
+    out = plain_toml(doc)
     node = out
     for part in parts[:-1]:
         node = node.setdefault(part, {})

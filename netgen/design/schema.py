@@ -301,7 +301,8 @@ def check_shape(doc: dict, where: str) -> None:
                 stack.append((child, depth + 1))
 
 
-def _closest(name: str, options) -> str:
+def closest_hint(name: str, options) -> str:
+    """The "; did you mean ..." tail of an error message for NAME among OPTIONS (difflib, cutoff 0.5)."""
     match = difflib.get_close_matches(name, list(options), n=1, cutoff=0.5)
     return f"; did you mean '{match[0]}'?" if match else f"; valid keys: {', '.join(options)}."
 
@@ -312,7 +313,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         raise DesignError(f"{where}: expected a TOML table at the top level.")
     for section in doc:
         if section not in SCHEMA and section not in _EXTRA_SECTIONS:
-            raise DesignError(f"{where}: unknown section [{section}]{_closest(section, SCHEMA)}")
+            raise DesignError(f"{where}: unknown section [{section}]{closest_hint(section, SCHEMA)}")
     if "design" not in doc:
         raise DesignError(f"{where}: missing section [design]; it needs at least name, topology, f0 and vdd.")
     values: dict[str, dict[str, Any]] = {}
@@ -324,7 +325,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
             table = _with_preset(table)
         for key in table:
             if key not in keys:
-                raise DesignError(f"{section}.{key}: unknown key{_closest(key, keys)}")
+                raise DesignError(f"{section}.{key}: unknown key{closest_hint(key, keys)}")
         values[section] = {}
         for key, spec in keys.items():
             path = f"{section}.{key}"
@@ -376,7 +377,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         sim=SimSpec(**sim),
         block=block,
         drive=DriveSpec(**values["drive"]),
-        raw=_plain(doc),
+        raw=plain_toml(doc),
         source=source,
     )
 
@@ -438,12 +439,12 @@ def _resolve_include(base: Path, text: str, key: str = "device.include") -> Path
     return inc
 
 
-def _plain(doc: Any) -> Any:
+def plain_toml(doc: Any) -> Any:
     """A deep copy made of plain dicts/lists (tomllib output already is)."""
     if isinstance(doc, dict):
-        return {k: _plain(v) for k, v in doc.items()}
+        return {k: plain_toml(v) for k, v in doc.items()}
     if isinstance(doc, list):
-        return [_plain(v) for v in doc]
+        return [plain_toml(v) for v in doc]
     return doc
 
 
@@ -455,7 +456,7 @@ def _parse_value(value: Any, spec: Key, path: str) -> Any:
         if any(ch in value for ch in "\n\r\x00"):
             raise DesignError(f"{path}: must be on one line.")
         if spec.choices and value not in spec.choices:
-            raise DesignError(f"{path}: '{value}' is not one of {', '.join(spec.choices)}{_closest(value, spec.choices)}")
+            raise DesignError(f"{path}: '{value}' is not one of {', '.join(spec.choices)}{closest_hint(value, spec.choices)}")
         if spec.attr in ("name", "subckt") and not SAFE_NAME.match(value):
             raise DesignError(
                 f"{path}: '{_printable(value)}' is not a safe name; use letters, digits and underscores, starting with a letter (at most 64)."
@@ -463,7 +464,7 @@ def _parse_value(value: Any, spec: Key, path: str) -> Any:
         if spec.attr == "topology" and value not in TOPOLOGIES:
             if not value.endswith(".j2"):
                 raise DesignError(
-                    f"{path}: '{_printable(value)}' is not a built-in topology{_closest(value, TOPOLOGIES)} "
+                    f"{path}: '{_printable(value)}' is not a built-in topology{closest_hint(value, TOPOLOGIES)} "
                     "(a user template is a path ending in .j2)."
                 )
         return value

@@ -6,7 +6,7 @@ skipped), ``KEY=value`` parameters, ``.model`` cards, the time functions of inde
 syntax tree. Anything outside this subset raises :class:`Unsupported`, whose message says what
 was met; the caller then starts the simulation another way.
 
-Number syntax: SPICE values with scale suffixes (``netgen.results.analysis.parse_spice_number``). PULSE
+Number syntax: SPICE values with scale suffixes (:func:`parse_spice_number`, the one reader every room uses). PULSE
 and SIN argument order and defaults: the SPICE3 input language (ngspice manual, independent
 sources), from memory of it.
 """
@@ -23,9 +23,9 @@ import numpy as np
 __all__ = ["parse_spice_number", "Unsupported", "Card", "read_cards", "netlist_elements", "card_params", "spice_value", "model_cards",
            "SourceWaveform", "source_waveform", "device_expression", "GROUND"]
 
-_SUFFIX = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "m": 1e-3, "u": 1e-6, "µ": 1e-6,
+_SUFFIX = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "m": 1e-3, "mil": 25.4e-6, "u": 1e-6, "µ": 1e-6,
            "n": 1e-9, "p": 1e-12, "f": 1e-15}
-_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(meg|[tgkmuµnpf])?([a-zA-Zµ]*)$", re.IGNORECASE)
+_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(meg|mil|[tgkmuµnpf])?([a-zA-Zµ]*)$", re.IGNORECASE)
 
 
 def parse_spice_number(text: str) -> float:

@@ -49,16 +49,11 @@ def check_netlist(netlist: str, *, allow_shell: bool = False, base_dir: str | Pa
     check_netlist_text(netlist, "Netlist", SimulationError, roots)
 
 
-_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)(meg|mil|[tgkmunpf])?", re.IGNORECASE)
-_SCALE = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "m": 1e-3, "mil": 25.4e-6,
-          "u": 1e-6, "n": 1e-9, "p": 1e-12, "f": 1e-15}
-
-
 def spice_number(token: str) -> float:
-    m = _NUM.match(token.strip())
-    if not m:
-        raise ValueError(token)
-    return float(m.group(1)) * _SCALE.get((m.group(2) or "").lower(), 1.0)
+    """A SPICE value with its scale suffix as a float (the one reader: ``netgen.netlist.parse_spice_number``)."""
+    from netgen.netlist import parse_spice_number
+
+    return parse_spice_number(token)
 
 
 def tran_stop(netlist: str) -> float:

@@ -187,23 +187,29 @@ def parse_vary(text: str) -> Variation:
             if item.lower() not in ("true", "false"):
                 raise DesignError(f"{path}: expected true or false, got {item!r}.")
             v: Any = item.lower() == "true"
-            sets.append({path: v}); axis.append(item.lower())
+            sets.append({path: v})
+            axis.append(item.lower())
         elif unit in ("str",):
-            sets.append({path: item}); axis.append(item)
+            sets.append({path: item})
+            axis.append(item)
         elif unit == "int":
             v = parse_quantity(_num(item), "", path)
             if v != int(v):
                 raise DesignError(f"{path}: {item!r} is not a whole number.")
-            sets.append({path: int(v)}); axis.append(float(v))
+            sets.append({path: int(v)})
+            axis.append(float(v))
         elif unit == "":
             v = parse_quantity(_num(item), "", path)
-            sets.append({path: v}); axis.append(v)
+            sets.append({path: v})
+            axis.append(v)
         elif unit is None:
             v, _u = _split_quantity(item, path)
-            sets.append({path: item}); axis.append(v)
+            sets.append({path: item})
+            axis.append(v)
         else:
             v = parse_quantity(item, unit, path)
-            sets.append({path: item}); axis.append(v)
+            sets.append({path: item})
+            axis.append(v)
     unit_out = unit if unit not in (None, "", "int", "str", "bool") else ""
     return Variation(path, tuple(sets), tuple(axis), unit_out)
 
