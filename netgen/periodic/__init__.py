@@ -9,7 +9,7 @@ where the estimate does not apply. ``pwl_fourier`` holds the exact Fourier integ
 piecewise-linear waveforms used here and by the results.
 """
 
-from importlib import import_module
+from netgen.lazy import lazy_exports
 
 # bound eagerly: the function ``fourier`` shares its name with the module defining it, and a later
 # ``import netgen.periodic.pwl_fourier`` (first load) would otherwise leave the module in its place
@@ -35,15 +35,4 @@ _EXPORTS = {
 __all__ = sorted(_EXPORTS)
 
 
-def __getattr__(name: str):
-    try:
-        module = _EXPORTS[name]
-    except KeyError:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
-    value = getattr(import_module(f"{__name__}.{module}"), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return list(__all__)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -11,7 +11,7 @@ closed forms), ``network`` (the numpy network model), ``sizing`` (``size``: the 
 overrides, the sized TOML file).
 """
 
-from importlib import import_module
+from netgen.lazy import lazy_exports
 
 #: public name -> module of this package that defines it (loaded on first use, so importing
 #: the package costs nothing and pulls in no heavy dependency)
@@ -44,15 +44,4 @@ _EXPORTS = {
 __all__ = sorted(_EXPORTS)
 
 
-def __getattr__(name: str):
-    try:
-        module = _EXPORTS[name]
-    except KeyError:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
-    value = getattr(import_module(f"{__name__}.{module}"), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return list(__all__)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)
