@@ -139,7 +139,7 @@ def _diode(card: Card, models: dict) -> NonlinearElement:
             q_hi = f1 + (f3 * over + mj / (2.0 * vj) * ((vfc + over) ** 2 - vfc ** 2)) / f2
             return cjo * np.where(v < vfc, q_dep, q_hi)
 
-    return NonlinearElement(t[0], a, b, (a, b), current, charge, "D", (nvt, i_s))
+    return NonlinearElement(t[0], a, b, tuple(x for x in (a, b) if x not in GROUND), current, charge, "D", (nvt, i_s))
 
 
 def _bsource(card: Card) -> NonlinearElement:
