@@ -51,6 +51,9 @@ THERMAL_VOLTAGE_V = 1.380649e-23 * 300.15 / 1.602176634e-19
 #: voltage: on the full grid and on the coarse grids of the nested iteration
 NEWTON_TOL = 1e-10
 COARSE_TOL = 1e-4
+#: a step with the previous Jacobian (the chord method) is kept while it cuts the residual at
+#: least this much; otherwise the Jacobian is formed and factored again
+CHORD_RATE = 0.3
 #: smallest grid of the nested iteration in solve_ports
 COARSE_MIN = 48
 #: exponent above which a diode's exponential is continued linearly (currents of 1e3 A and more,
@@ -292,9 +295,13 @@ def _newton(elements: list[NonlinearElement], ports: list[str], voc_k: np.ndarra
     open-circuit port voltages) until the largest residual is below ``tol`` times the largest
     open-circuit voltage; (port voltages, drawn currents), both (P, M).
 
-    Length: one damped Newton iteration in its order (element laws and their derivatives on the
-    grid, the residual, the dense Jacobian from circulant blocks, the step and its line search);
-    the pieces share a dozen arrays that mean nothing apart.
+    The LU factors of the Jacobian are kept while steps with them still cut the residual by
+    ``CHORD_RATE`` (the chord method), since a factorisation of the P M unknowns costs what many
+    solves with it do.
+
+    Length: one damped Newton iteration in its order (the residual by FFTs, the step from the
+    kept or a fresh factorisation, the junction limiting and the line search); the pieces share
+    a dozen arrays that mean nothing apart.
     """
     P = len(ports)
     pidx = {p: k for k, p in enumerate(ports)}
@@ -327,49 +334,65 @@ def _newton(elements: list[NonlinearElement], ports: list[str], voc_k: np.ndarra
         zi = np.fft.irfft(np.einsum("qpk,pk->qk", zdraw_m, np.fft.rfft(inj, axis=1)), M, axis=1)
         return v - voc - zi, inj
 
+    from scipy.linalg import lu_factor, lu_solve  # imported here: `pashape --help` loads no scipy
+
     v = voc.copy() if v0 is None else v0
     r, inj = residual(v)
+    lu = None
     for _ in range(NEWTON_MAX):
+        fresh = lu is None
         V = _voltages(ports, v)
-        G = np.zeros((P, P, M))
-        C = np.zeros((P, P, M))
-        for e in elements:
-            for node in e.controls:
-                c = pidx[node]
-                g = _deriv(e.current, V, node, dv)
-                cap = _deriv(e.charge, V, node, dv) if e.charge is not None else None
-                for term, sign in ((e.a, 1.0), (e.b, -1.0)):
-                    if term in pidx:
-                        G[pidx[term], c] += sign * g
-                        if cap is not None:
-                            C[pidx[term], c] += sign * cap
-        J = np.eye(P * M)
-        for q in range(P):
-            for p in range(P):
-                zc = kz[:, q, p][circ_idx]
-                zdc = kzd[:, q, p][circ_idx]
-                for c in range(P):
-                    if G[p, c].any() or C[p, c].any():
-                        J[q * M:(q + 1) * M, c * M:(c + 1) * M] -= zc * G[p, c][None, :] + zdc * C[p, c][None, :]
-        try:
-            step = np.linalg.solve(J, -r.ravel()).reshape(P, M)
-        except np.linalg.LinAlgError:
-            raise Unsupported("the device equations could not be solved (singular Jacobian)") from None
+        if fresh:
+            lu = lu_factor(_jacobian(elements, ports, V, kz, kzd, circ_idx, dv, M), check_finite=False)
+        step = lu_solve(lu, -r.ravel(), check_finite=False).reshape(P, M)
+        if not np.all(np.isfinite(step)):
+            raise Unsupported("the device equations could not be solved (singular Jacobian)")
         step, limited = _limit_junctions(elements, V, ports, step)
-        big = float(np.abs(step).max())
         lam, norm0 = 1.0, float(np.linalg.norm(r))
         while True:
             v_new = v + lam * step
             r_new, inj_new = residual(v_new)
-            if limited or float(np.linalg.norm(r_new)) <= (1 - 0.25 * lam) * norm0 or lam < 1e-4:
+            norm = float(np.linalg.norm(r_new))
+            if not fresh or limited or norm <= (1 - 0.25 * lam) * norm0 or lam < 1e-4:
                 break
             lam *= 0.5
+        if not fresh and (limited or norm > CHORD_RATE * norm0):
+            lu = None  # the old Jacobian no longer contracts fast enough: a fresh Newton step
+            continue
         v, r, inj = v_new, r_new, inj_new
         if float(np.abs(r).max()) < tol * scale:
             break
     else:
         raise Unsupported(f"the device equations did not converge in {NEWTON_MAX} Newton steps")
     return v, inj
+
+
+def _jacobian(elements, ports, V, kz, kzd, circ_idx, dv, M) -> np.ndarray:
+    """The dense Jacobian of :func:`_newton`'s residual, (P M, P M): block (q, c) is
+    ``delta_qc I - sum_p (Z_qp G_pc + (Z D)_qp C_pc)`` (module docstring)."""
+    P = len(ports)
+    pidx = {p: k for k, p in enumerate(ports)}
+    G = np.zeros((P, P, M))
+    C = np.zeros((P, P, M))
+    for e in elements:
+        for node in e.controls:
+            c = pidx[node]
+            g = _deriv(e.current, V, node, dv)
+            cap = _deriv(e.charge, V, node, dv) if e.charge is not None else None
+            for term, sign in ((e.a, 1.0), (e.b, -1.0)):
+                if term in pidx:
+                    G[pidx[term], c] += sign * g
+                    if cap is not None:
+                        C[pidx[term], c] += sign * cap
+    J = np.eye(P * M)
+    for q in range(P):
+        for p in range(P):
+            zc = kz[:, q, p][circ_idx]
+            zdc = kzd[:, q, p][circ_idx]
+            for c in range(P):
+                if G[p, c].any() or C[p, c].any():
+                    J[q * M:(q + 1) * M, c * M:(c + 1) * M] -= zc * G[p, c][None, :] + zdc * C[p, c][None, :]
+    return J
 
 
 def port_list(elements: list[NonlinearElement]) -> list[str]:
