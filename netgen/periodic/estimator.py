@@ -422,6 +422,14 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, block
     Unsupported
         Something in the netlist is outside what the direct solution models.
 
+    """
+    with collocation.blas_single_thread():
+        return _estimate(netlist, f0_hz, points, cap=cap, blocks=blocks)
+
+
+def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dict | None) -> PeriodicState:
+    """:func:`estimate` (BLAS on one thread around it).
+
     Length: the method's steps in the order of the module docstring (read the cards, build the
     network, solve the device, superpose, collect the state); split further they would pass a
     dozen arrays between functions that have no meaning alone.
