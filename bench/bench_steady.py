@@ -39,7 +39,7 @@ except ImportError:  # pragma: no cover
                               reference_tail, set_tstop, tail_change, waveform_powers)
 
 __all__ = ["warm_up", "netgen_runs", "long_run", "measure_design", "settle_cycles", "settle_summary", "overhead", "memory_batch",
-           "chunk_overhead", "line_segments"]
+           "chunk_overhead", "line_segments", "device_starts", "subcircuit_sized"]
 
 _DIVIDER = """bench divider
 V1 in 0 DC 10
@@ -377,3 +377,96 @@ def memory_batch(name: str) -> dict:
     res = json.loads(proc.stdout.strip().splitlines()[-1])
     res["design"] = name
     return res
+
+
+#: the class-E example with the user's own level-1 MOSFET subcircuit (tests/test_own_designs.py, DRYER)
+SUBCIRCUIT_DESIGN = {
+    "design": {"name": "dryer_1356", "topology": "class_e", "f0": "13.56 MHz", "vdd": "24 V",
+               "load": "50 ohm", "pout": "25 W"},
+    "device": {"model": "spice", "include": "nmos_l1.lib", "subckt": "NSW1",
+               "pins": ["drain", "gate", "source"], "vgate_bias": "4 V", "vgate_amp": "6 V", "cout": "120 pF"},
+    "network": {"loaded_q": 8},
+    "sim": {"points_per_cycle": 500, "max_cycles": 800},
+}
+
+
+def subcircuit_sized():
+    """The sized class-E design with the level-1 MOSFET subcircuit of tests/data/nmos_l1.lib."""
+    import copy
+
+    from common import REPO
+
+    from netgen.design import design_from_dict
+    from netgen.synthesis.sizing import size
+
+    doc = copy.deepcopy(SUBCIRCUIT_DESIGN)
+    data = REPO / "tests" / "data"
+    doc["device"]["include"] = str(data / "nmos_l1.lib")
+    return size(design_from_dict(doc, source=data / "own.toml"))
+
+
+def device_starts(*, repeats: int = 3, cold_cycles: int = 600, progress=print) -> dict:
+    """The periodic start of the two device paths against the naive run and the DC start, one run each.
+
+    * ``angelov``: sims/class_b_angelov.toml, the device with nonlinear charges, started on the
+      collocation estimate (netgen.periodic.collocation);
+    * ``subcircuit``: the class-E design with the user's own level-1 MOSFET subcircuit, started on
+      the state extrapolated from ngspice's cycles (netgen.periodic.extrapolate).
+
+    Each row is :func:`measure_design` (no warm oracle) plus the ratios measured in this run:
+    naive cycles (and seconds) to 0.1 % over pashape's, and the DC start's over pashape's.
+    """
+    out = {}
+    for key, name, sized in (("angelov", "class_b_angelov", load_sized("class_b_angelov")),
+                             ("subcircuit", "class_e_level1_subcircuit", subcircuit_sized())):
+        progress(f"device start {key}: {name}")
+        row = measure_design(name, sized, cold_cycles=cold_cycles, warm_cycles=0, repeats=repeats,
+                             chunk=25, progress=progress)
+        ng, dc, naive = row["netgen"], row["netgen_dc_start"], row["naive"]
+        row["start_method"] = "periodic" if "periodic estimate)" in ng["note"] else (
+            "extrapolated" if "extrapolated" in ng["note"] else "dc")
+        row["cycle_ratio_naive"] = (naive["cycles_to_tol"] / ng["cycles"]) if naive["cycles_to_tol"] else None
+        row["cycle_ratio_dc_start"] = dc["cycles"] / ng["cycles"]
+        row["time_ratio_naive"] = row["ratio"]
+        row["time_ratio_dc_start"] = dc["seconds"] / ng["seconds"]
+        out[key] = row
+        progress(f"  {key}: pashape {ng['cycles']} cycles {ng['seconds']:.2f} s; DC start {dc['cycles']} cycles "
+                 f"{dc['seconds']:.2f} s; naive {naive['cycles_to_tol']} cycles {naive['seconds_to_tol']} s")
+    return out
+
+
+def main(argv=None) -> int:
+    """``python bench/bench_steady.py --devices``: the device-start rows only, merged into
+    bench/results.json under ``device_starts`` (the rest of the file is left as it is)."""
+    import argparse
+    from pathlib import Path
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--devices", action="store_true", help="measure the device starts (angelov, subcircuit)")
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("-o", "--out", default=str(Path(__file__).resolve().parent / "results.json"))
+    args = ap.parse_args(argv)
+    if not args.devices:
+        ap.error("nothing to do: give --devices (bench/run_all.py runs everything)")
+    from common import machine_info
+
+    from netgen.fileio import atomic_write_text
+
+    rows = device_starts(repeats=args.repeats)
+    path = Path(args.out)
+    results = json.loads(path.read_text()) if path.exists() else {}
+    results["device_starts"] = {"machine": machine_info(), **rows}
+    atomic_write_text(path, json.dumps(results, indent=1, default=str) + "\n")
+    for key, r in rows.items():
+        print(f"{key}: {r['start_method']} start {r['netgen']['cycles']} cycles {r['netgen']['seconds']:.2f} s | "
+              f"DC start {r['netgen_dc_start']['cycles']} cycles ({r['cycle_ratio_dc_start']:.1f}x), "
+              f"{r['netgen_dc_start']['seconds']:.2f} s ({r['time_ratio_dc_start']:.2f}x) | naive "
+              f"{r['naive']['cycles_to_tol']} cycles ({r['cycle_ratio_naive']:.1f}x), {r['naive']['seconds_to_tol']} s "
+              f"({r['time_ratio_naive']:.2f}x) | Pdc {100 * r['netgen']['pdc_err']:+.3f} %, P1 {100 * r['netgen']['p1_err']:+.3f} % "
+              "vs the naive reference")
+    print(f"wrote {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -156,6 +156,10 @@ def main(argv=None) -> int:
                                "detail": big}
     results["bias_networks"] = bias
 
+    if not quick and not args.only:
+        log("device starts: the angelov device (collocation) and a SPICE subcircuit (extrapolation)")
+        results["device_starts"] = _guard(lambda: bs.device_starts(repeats=3, progress=log), log)
+
     log("per-run overhead: shared library vs batch executable")
     results["overhead"] = _guard(lambda: bs.overhead(runs=5 if quick else 30), log)
     if not quick:

@@ -323,8 +323,9 @@ def test_periodic_start_needs_no_long_run_with_a_huge_choke():
 
 @pytest.mark.ngspice
 def test_a_netlist_outside_the_estimate_falls_back_to_the_dc_warm_start():
-    # a device given as a resistor-and-switch subcircuit is outside what netgen.periodic.estimator solves: the
-    # run starts from the DC state instead, and the note says why
+    # a device given as a resistor-and-switch subcircuit is outside what netgen.periodic.estimator solves: with
+    # sim.periodic_start = false the run starts from the DC state with bias nulling, and the note says why;
+    # with the default the state is extrapolated from ngspice's cycles (netgen.periodic.extrapolate)
     def make(ic, tstop_s, mode="tran", idc_a=0.0):
         net = lumped_tuned(ic, tstop_s, mode=mode, idc_a=idc_a)
         if mode != "tran":
@@ -333,12 +334,21 @@ def test_a_netlist_outside_the_estimate_falls_back_to_the_dc_warm_start():
                ".model SWMOD SW(RON=0.2 ROFF=1e6 VT=0.5 VH=0)\n")
         net = net.replace(".model SWMOD SW(RON=0.2 ROFF=1e6 VT=0.5 VH=0)\n", "")
         return net.replace("S1 dsw 0 g 0 SWMOD\n", "XSW dsw g swx\n" + sub)
-    sim = SimSpec(max_cycles=200, points_per_cycle=500)
-    w = steady.simulate_netlist(make, f0_hz=F0, vdd_v=VDD, sim=sim,
-                                make_op=lambda i: make(None, 0, mode="op", idc_a=i), idc_est_a=0.457,
-                                feeds=("L_feed",), blocks=("C_block",))
-    assert w.settled, w.note
-    assert "bias mode nulled" in w.note and "no periodic estimate" in w.note and "XSW" in w.note
+    runs = {}
+    for periodic in (False, True):
+        sim = SimSpec(max_cycles=200, points_per_cycle=500, periodic_start=periodic)
+        runs[periodic] = w = steady.simulate_netlist(make, f0_hz=F0, vdd_v=VDD, sim=sim,
+                                                     make_op=lambda i: make(None, 0, mode="op", idc_a=i),
+                                                     idc_est_a=0.457, feeds=("L_feed",), blocks=("C_block",))
+        assert w.settled, w.note
+    assert "bias mode nulled" in runs[False].note and "XSW" not in runs[False].note
+    w = runs[True]
+    assert w.start["method"] == "extrapolated" and "no periodic estimate" in w.note and "XSW" in w.note
+    assert w.cycles < runs[False].cycles
+    # the same periodic state either way (it is unique: a contraction, common practice), within the tolerance
+    for key in ("pdc_w", "pload_w"):
+        a, b = runs[True].history[key][-1], runs[False].history[key][-1]
+        assert abs(a - b) <= 1e-3 * abs(b)
 
 
 @pytest.mark.ngspice

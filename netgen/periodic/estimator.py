@@ -63,6 +63,7 @@ from netgen.netlist import (
     spice_value,
 )
 
+from . import collocation
 from .device import LINEAR_KINDS, read_device, solve_device
 
 __all__ = ["Unsupported", "PeriodicState", "estimate", "grid_points"]
@@ -220,9 +221,11 @@ class _Net:
                 Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
 
 
-def _network(cards: list[Card], device: str, period_s: float, blocks: dict | None = None) -> tuple[_Net, set[str]]:
-    """The linear elements connected (through other linear elements) to ``dsw``."""
-    elements = [c for c in cards if not c.text.startswith(".")]
+def _network(cards: list[Card], device: str, period_s: float, blocks: dict | None = None, *,
+             exclude: frozenset = frozenset(), roots: tuple = ("dsw",)) -> tuple[_Net, set[str]]:
+    """The linear elements connected (through other linear elements) to ``dsw`` (and to the
+    other ``roots``), leaving out ``device`` and the elements named in ``exclude``."""
+    elements = [c for c in cards if not c.text.startswith(".") and c.name not in exclude]
     adj: dict[str, set[str]] = {}
 
     def terminals(c: Card) -> list[str]:
@@ -242,7 +245,7 @@ def _network(cards: list[Card], device: str, period_s: float, blocks: dict | Non
         for x in ns:
             adj.setdefault(x, set()).update(ns)
     seen: set[str] = set()
-    stack = ["dsw"]
+    stack = [x for x in roots if x not in GROUND]
     while stack:
         x = stack.pop()
         if x in seen:
@@ -338,6 +341,9 @@ class PeriodicState:
     #: Touchstone block instances: element -> (Block, port nodes); their port currents are
     #: ``<element>#p1``, ``#p2`` in ``series`` (A, into the port)
     blocks: dict = field(default_factory=dict, repr=False)
+    #: the nodes of a device solved by periodic collocation (netgen.periodic.collocation): their
+    #: voltages at t = 0 start the run (``.ic``), V
+    ports: tuple = ()
 
     @property
     def period_s(self) -> float:
@@ -416,6 +422,14 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, block
     Unsupported
         Something in the netlist is outside what the direct solution models.
 
+    """
+    with collocation.blas_single_thread():
+        return _estimate(netlist, f0_hz, points, cap=cap, blocks=blocks)
+
+
+def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dict | None) -> PeriodicState:
+    """:func:`estimate` (BLAS on one thread around it).
+
     Length: the method's steps in the order of the module docstring (read the cards, build the
     network, solve the device, superpose, collect the state); split further they would pass a
     dozen arrays between functions that have no meaning alone.
@@ -424,31 +438,53 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, block
     cards = read_cards(netlist)
     models = model_cards(cards)
     M = grid_points(points) if cap else max(int(points) + int(points) % 2, 8)
-    dev = read_device(cards, models, period, M)
-    if cap and not dev.linear and M > GRID_MAX_NONLINEAR:
-        M = grid_points(points, nonlinear=True)
+    ports: list[str] = []
+    if collocation.has_multinode_device(cards):
+        # a device of several nonlinear elements with charges: periodic collocation (collocation.py)
+        nonlin = collocation.read_elements(cards, models)
+        ports = collocation.port_list(nonlin)
+        if cap:
+            M = grid_points(points, nonlinear=True)
+            M = min(M, collocation.MAX_UNKNOWNS // max(len(ports), 1) // 2 * 2)
+        dev_name, t0_s = next((e.name for e in nonlin if e.kind == "B"), nonlin[0].name), 0.0
+        net, _ = _network(cards, "", period, blocks, exclude=frozenset(e.name.upper() for e in nonlin),
+                          roots=("dsw", *ports))
+    else:
         dev = read_device(cards, models, period, M)
+        if cap and not dev.linear and M > GRID_MAX_NONLINEAR:
+            M = grid_points(points, nonlinear=True)
+            dev = read_device(cards, models, period, M)
+        dev_name, t0_s = dev.name, dev.t0_s
+        net, _ = _network(cards, dev.name.upper(), period, blocks)
     h = period / M
-    net, _ = _network(cards, dev.name.upper(), period, blocks)
     if "dsw" not in net.index:
         raise Unsupported("the device node 'dsw' is not connected to the network")
     K = M // 2 + 1
     k = np.arange(K)
     theta = 2 * np.pi * k / M
-    # trapezoidal rule: s_k = (2/h) j tan(theta/2); the Nyquist bin (C short, L open) is capped
-    s = 1j * (2.0 / h) * np.tan(np.minimum(theta / 2, math.pi / 2 * (1 - 1e-9)))
-    Y, b = net.assemble(s, theta, period, M, dev.t0_s)
+    # the simulator's integration per bin: trapezoidal, s_k = (2/h) j tan(theta/2) (the Nyquist bin,
+    # C short and L open, capped), or ngspice's damped form when the netlist sets xmu
+    s = collocation.s_bins(theta, h, collocation.xmu_of(cards))
+    Y, b = net.assemble(s, theta, period, M, t0_s)
     idsw = net.index["dsw"]
-    draw = np.zeros_like(b)
-    draw[:, idsw] = -1.0  # one unit of current drawn from dsw by the device
+    cols = [idsw] + [net.index[p] for p in ports]
+    draw = np.zeros(b.shape + (len(cols),), complex)
+    for j, col in enumerate(cols):
+        draw[:, col, j] = -1.0  # one unit of current drawn from dsw (from each port) by the device
     try:
-        X = np.linalg.solve(Y, np.stack([b, draw], axis=-1))
+        X = np.linalg.solve(Y, np.concatenate([b[..., None], draw], axis=-1))
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     x_src, x_draw = X[..., 0], X[..., 1]
-    i_dev = solve_device(dev, x_src[:, idsw], x_draw[:, idsw], M)
-    spec = np.fft.rfft(i_dev)
-    x_all = np.fft.irfft(x_src + x_draw * spec[:, None], M, axis=0)  # (M, n)
+    if ports:
+        pid = cols[1:]
+        inj = collocation.solve_ports(nonlin, ports, x_src[:, pid], X[:, pid, 2:], s, M)
+        x_all = np.fft.irfft(x_src + np.einsum("knp,pk->kn", X[..., 2:], np.fft.rfft(inj, axis=1)), M, axis=0)
+        i_dev = x_all[:, len(net.nodes) + net.branches["VISW"]] if "VISW" in net.branches else np.zeros(M)
+    else:
+        i_dev = solve_device(dev, x_src[:, idsw], x_draw[:, idsw], M)
+        spec = np.fft.rfft(i_dev)
+        x_all = np.fft.irfft(x_src + x_draw * spec[:, None], M, axis=0)  # (M, n)
     if not np.all(np.isfinite(x_all)):
         raise Unsupported("the periodic solution is not finite")
     series: dict[str, np.ndarray] = {}
@@ -479,9 +515,12 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, block
                 dc[f"{toks[0]}#branch"] = (float(x_src[0, col].real) / M, float(x_draw[0, col].real))
         if kind in "LCT":
             elements[c.tokens[0]] = (kind, tuple(toks[1:5] if kind == "T" else toks[1:3]))
+    for e in nonlin if ports else ():
+        if e.kind == "D" and e.charge is not None:  # junction voltage at t = 0 (IC= of the diode)
+            elements[e.name] = ("D", (e.a, e.b))
     series["dsw#device"] = i_dev
     peaks = {key: float(series[name].max()) for key, name in (("vd_max_v", "drain"), ("id_max_a", "vidrain#branch"))
              if name in series}
-    return PeriodicState(f0_hz=f0_hz, points=M, t0_s=dev.t0_s, series=series, lines=lines,
-                         elements=elements, device=dev.name, dc=dc, peaks=peaks,
-                         z_port=-x_draw[:PORT_HARMONICS + 1, idsw].copy(), blocks=inst)
+    return PeriodicState(f0_hz=f0_hz, points=M, t0_s=t0_s, series=series, lines=lines,
+                         elements=elements, device=dev_name, dc=dc, peaks=peaks,
+                         z_port=-x_draw[:PORT_HARMONICS + 1, idsw].copy(), blocks=inst, ports=tuple(ports))

@@ -54,7 +54,7 @@ def initial_conditions(state: PeriodicState) -> dict[str, float]:
     for name, (kind, nodes) in state.elements.items():
         if kind == "L":
             ic[name] = float(state.at(f"{name.lower()}#branch", 0.0))
-        elif kind == "C":
+        elif kind in "CD":  # a capacitor, or a junction diode's voltage (its charge's state)
             a, b = nodes
             va = 0.0 if a in GROUND else float(state.at(a, 0.0))
             vb = 0.0 if b in GROUND else float(state.at(b, 0.0))
@@ -220,7 +220,7 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
             continue
         name = by_name[key]
         kind = state.elements[name][0]
-        if kind in "LC":
+        if kind in "LCD":
             replace[c.start] = (c.stop, _set_ic(c.text, _fmt(ic[name])))
         else:
             (p1, p2, ic_vals), more = history_sources(state, name)
@@ -245,6 +245,12 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
         from .block_state import block_initial_states, with_block_states
 
         out = with_block_states(out, BLOCK_SUBCKT, block_initial_states(state))
+    if state.ports:
+        # a device with nonlinear charges: ngspice with uic starts every node at 0 V and takes a
+        # junction's charge from its node voltages, not from the diode's IC=; '.ic' sets them
+        # (measured: without it the gate started at +4.2 V instead of -4.4 V, and the jolt
+        # excited the bias network's choke-block mode for 230 cycles)
+        extra.append(".ic " + " ".join(f"v({n})={_fmt(state.at(n, 0.0))}" for n in state.ports))
     end = max((i for i, ln in enumerate(out) if re.fullmatch(r"\.end\b.*", ln.strip().lower())
                and not re.match(r"\.end[a-z]", ln.strip().lower())), default=len(out))
     return "\n".join(out[:end] + extra + out[end:]) + "\n"

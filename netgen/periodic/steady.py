@@ -52,7 +52,7 @@ from netgen.design import SimSpec, SizedDesign, Waveforms
 from netgen.errors import SimulationError
 from netgen.netlist import netlist_elements, parse_spice_number
 
-from . import estimator, initial_state
+from . import estimator, extrapolate, initial_state
 from .bias_nulling import (
     CORRECT_AT,
     AuxSource,
@@ -282,6 +282,7 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
             why_not = str(exc)
     warm = bool(sim.warm_start and (state is not None or make_op is not None and idc_est_a is not None))
     sources: list[AuxSource] = []
+    extrapolated = None
     if state is not None:
         # started on the periodic orbit: judged from the first cycle, stopped every 2 cycles
         netlist = initial_state.with_initial_state(probe, state)
@@ -296,6 +297,20 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
             # stop once after the longest line delay, set the history sources to zero, go on
             check.release = simulator.Resume(release[1], chunk)
             chunk = release[0]
+    elif warm and sim.periodic_start and make_op is not None and idc_est_a is not None \
+            and not touchstone and not any(k.startswith("T") for k in elements):
+        # the device is outside the estimate (a SPICE subcircuit ...): extrapolate the periodic state
+        # from ngspice's own period-boundary states (netgen.periodic.extrapolate), then judge as usual
+        op_netlist = make_op(idc_est_a)
+        op = simulator.run_op(op_netlist, backend=backend, timeout_s=sim.timeout_s)
+        ic = dc_initial_conditions(op_netlist, probe, op=op)
+        netlist, ext_cycles, ext_rounds = extrapolate.extrapolated_start(
+            make_tran(ic, tstop), make_tran(None, tstop), T, backend=backend, timeout_s=sim.timeout_s,
+            progress=progress)
+        extrapolated = (ext_cycles, ext_rounds)
+        check = SettleCheck(period_s=T, vdd_v=vdd_v, rload_ohm=rload, tol=sim.settle_tol,
+                            min_cycles=max(sim.min_cycles, sim.average_periods), step_cycles=LATE_CHUNK_CYCLES)
+        chunk = (max(sim.min_cycles, sim.average_periods, 6) + 1e-6) * T
     else:
         ic = None
         if warm:
@@ -331,7 +346,9 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
     coeffs = window_fourier(t_all, vecs, (end_cycles - k_f) * T, T, k_f, int(sim.harmonics))
     points = window_points(t_all, vecs, nodes, (end_cycles - k_f) * T, end_cycles * T)
     settled = bool(check.settled)
-    if state is not None:
+    if extrapolated is not None:
+        start = {"method": "extrapolated", "reason": why_not, "cycles": extrapolated[0], "rounds": extrapolated[1]}
+    elif state is not None:
         vl = state.series["load"]
         start = {"method": "periodic", "reason": "",
                  "pdc_w": -vdd_v * state.mean("vdd#branch"),
@@ -339,7 +356,10 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
                  "pload_w": state.mean_square("load") / rload, **state.peaks}
     else:
         start = {"method": "dc" if warm else "cold", "reason": why_not}
-    if state is not None:
+    if extrapolated is not None:
+        how = (f" (started on a periodic state extrapolated from {extrapolated[0]} cycles in {extrapolated[1]} "
+               f"rounds; no periodic estimate: {why_not})")
+    elif state is not None:
         how = " (started on the periodic estimate)"
     elif sources:
         how = " (warm start, bias mode nulled" + (f"; no periodic estimate: {why_not})" if why_not else ")")
@@ -353,7 +373,8 @@ def simulate_netlist(make_tran: Callable[[dict | None, float], str], *, f0_hz: f
         hint = settle_hint(check.reason, settle_tol=sim.settle_tol, max_cycles=sim.max_cycles, warm=warm,
                            periodic=state is not None, bias_nulled=bool(sources))
         note = f"not settled within sim.max_cycles = {sim.max_cycles}{how}; {check.reason}. {hint}"
-    return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=len(check.pdc_w),
+    ran = len(check.pdc_w) + (extrapolated[0] if extrapolated else 0)  # the extrapolation rounds count
+    return Waveforms(f0_hz=f0_hz, t_s=t_s, v=v, i=i, settled=settled, cycles=ran,
                      history={"pdc_w": np.array(check.pdc_w), "pload_w": np.array(check.pload_w)},
                      note=note, peaks=peaks, fourier=coeffs, start=start, points=points)
 
