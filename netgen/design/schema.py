@@ -127,8 +127,12 @@ class NetworkSpec:
     harmonics: int = 2
     eps_eff: float = 1.0
     inductor_q: float = math.inf
+    inductor_loss_law: str = "constant_q"
     capacitor_esr_ohm: float = 0.0
+    capacitor_loss_law: str = "constant_esr"
     line_loss_db: float = 0.0
+    line_loss_law: str = "conductor_dielectric"
+    line_dielectric_share: float = 0.0
     feed_l_h: float | None = None
     block_c_f: float | None = None
     match: str = "lowpass"

@@ -79,24 +79,27 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
     out: dict[str, dict] = {}
     for name, tok in el.items():
         kind = name[0]
-        if kind not in "LC" or len(tok) < 4:
+        if kind not in "LC" or len(tok) < 4 or "__" in name:  # '__': a loss-ladder section (docs/losses.md)
             continue
         a, b = tok[1].lower(), tok[2].lower()
         va, vb = _v(wf, a), _v(wf, b)
         v = None if va is None or vb is None else va - vb
         # the series loss resistor of this part: RLOSS_* from node b (x_<component>) onwards
+        # (RLOSS_<part>, not a ladder section RLOSS_<part>__s<k>, which carries only part of the current)
         rl_name, rl = next(((k, t) for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4
                             and t[1].lower() == b and b.startswith("x_")), (None, None))
+        sensed = rl_name is not None and "__" not in rl_name
+        part_key = b[2:] if b.startswith("x_") else None
         i_r, p_loss = None, None
         if rl is not None:
             r = _value(rl[3])
             vr_a, vr_b = _v(wf, rl[1].lower()), _v(wf, rl[2].lower())
-            if r and vr_a is not None and vr_b is not None:
+            if sensed and r and vr_a is not None and vr_b is not None:
                 i_r = (vr_a - vr_b) / r
                 p_loss = float(np.mean((vr_a - vr_b) ** 2) / r)
             budget = {k.lower(): w for k, w in (losses or {}).items()}
-            if rl_name[6:].lower() in budget:
-                p_loss = float(budget[rl_name[6:].lower()])
+            if part_key in budget:
+                p_loss = float(budget[part_key])
         if kind == "L":
             i = currents.get(name, i_r)
         else:
