@@ -127,6 +127,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "match": Key("match", "str", "lowpass", "Ropt -> RL matching section where the topology needs one: lowpass or highpass L-section.", choices=("lowpass", "highpass")),
         "match_shunt": Key("match_shunt", "str", "auto", "Where the L-section's shunt element sits: auto (at the higher-resistance side, decided from Ropt and RL when sizing), input (drain side), load (across the load) or none (series element only). `pashape size` and sweeps write the nominal choice, so a sized design keeps its circuit when Vdd or the load move Ropt across RL.", choices=("auto", "input", "load", "none")),
         "values": Key("values", "values", {}, "Explicit component values by name (e.g. tank_l = \"2.4 nH\"); they override sizing."),
+        "srf": Key("srf_hz", "srf", {}, "Self-resonant frequency of a part by component name (e.g. tank_l = \"6 GHz\", from its datasheet); `pashape size` and `pashape run` warn when it is below 2 x the highest harmonic the part acts at (docs/losses.md, buildability)."),
     },
     "block": {
         "file": Key("file", "str", None, "Touchstone file (.s1p/.s2p, version 1 or 2) of a measured or EM-simulated network, relative to the design file; the block replaces block.section (docs/touchstone_blocks.md)."),

@@ -140,6 +140,8 @@ class NetworkSpec:
     #: explicit component values by component name, still as text (parsed by sizing,
     #: which knows each component's unit)
     values: dict[str, str] = field(default_factory=dict)
+    #: self-resonant frequency (Hz) of parts by component name ([network.srf]; buildability warnings)
+    srf_hz: dict[str, float] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -336,7 +338,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
                 values[section][spec.attr] = _parse_value(table[key], spec, path)
             elif spec.required:
                 raise DesignError(f"{path}: missing; add it to [{section}] ({spec.doc})")
-            elif spec.default is None or spec.unit in ("str", "bool", "int", "", "values", "pins"):
+            elif spec.default is None or spec.unit in ("str", "bool", "int", "", "values", "srf", "pins"):
                 values[section][spec.attr] = spec.default
             else:
                 values[section][spec.attr] = _parse_value(spec.default, spec, path)
@@ -490,6 +492,18 @@ def _parse_value(value: Any, spec: Key, path: str) -> Any:
             if not isinstance(text, str):
                 raise DesignError(f"{path}.{name}: expected a quantity with its unit as text, e.g. \"2.2 nH\".")
             out[name] = text
+        return out
+    if unit == "srf":
+        if not isinstance(value, dict):
+            raise DesignError(f"{path}: expected a table of self-resonant frequencies by component name ([network.srf]).")
+        out = {}
+        for name, text in value.items():
+            if not SAFE_NAME.match(name):
+                raise DesignError(f"{path}.{_printable(name)}: not a component name; use letters, digits and underscores.")
+            hz = parse_quantity(text, "Hz", f"{path}.{name}")
+            if not (hz > 0 and math.isfinite(hz)):
+                raise DesignError(f"{path}.{name}: a self-resonant frequency must be a positive frequency, e.g. \"6 GHz\".")
+            out[name] = hz
         return out
     if unit == "pins":
         if not isinstance(value, list) or sorted(value) != ["drain", "gate", "source"]:
