@@ -7,7 +7,6 @@ line and shunt primitives (independent of netgen.synthesis.network's ABCD code).
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np

@@ -216,6 +216,8 @@ def _fit(kind: str, law: str, value: float, r_f0: float, f0_hz: float, n_max: in
     sol = _nnls(np.array(cols).T, r_t, x_t, anchor=True)
     tiny = 1e-9 * r_f0
     keep = [(float(rk), float(t)) for rk, t in zip(sol[2:], tau) if rk > tiny]
+    if sol[1] <= 0:  # no main element left (never seen: the f0 reactance is held): keep the law's f0 value
+        return LossNet(kind, value, r_f0)
     if kind == "C":
         main = value / float(sol[1])  # the column was 1/(j w value): sol[1] = value / C_main
         secs = tuple((rk, t / rk) for rk, t in keep)  # C_k = tau_k / R_k
