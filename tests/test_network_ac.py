@@ -7,7 +7,6 @@ line and shunt primitives (independent of netgen.synthesis.network's ABCD code).
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np
@@ -18,6 +17,7 @@ from skrf.media import DefinedGammaZ0
 
 from netgen.design.schema import design_from_dict, load_design
 from netgen.simulator.engine import run_ac
+from netgen.synthesis.losses import line_loss_net, loss_net
 from netgen.synthesis.network import abcd_drain_to_load, abcd_tline, line_plan, z_drain, z_in, z_intrinsic
 from netgen.netlist.renderer import render
 from netgen.synthesis.sizing import size
@@ -40,21 +40,17 @@ class SkrfModel:
         self.w = 2 * np.pi * self.freq.f
         self.m = DefinedGammaZ0(self.freq, z0_port=50, z0=50, gamma=1j * self.w / C0)
 
-    def _r(self, name):
-        # loss of a component: omega0 L / Q (unloaded Q) or the capacitor ESR
-        c = self.s.components[name]
-        net = self.d.network
-        if not c.lossy:
-            return 0.0
-        if c.kind == "L":
-            return 0.0 if math.isinf(net.inductor_q) else 2 * np.pi * self.d.f0_hz * c.value / net.inductor_q
-        return net.capacitor_esr_ohm
+    def _ladder_z(self, ln):
+        # the rendered loss ladder (netgen.synthesis.losses.LossNet: the netlist's values), its
+        # impedance written out here: R0 + sum of R_k || L_k (or R_k || C_k) sections
+        z = np.full(self.w.shape, complex(ln.r0_ohm))
+        for r, x in ln.sections:
+            zx = 1j * self.w * x if ln.kind != "C" else 1 / (1j * self.w * x)
+            z = z + r * zx / (r + zx)
+        return z
 
     def ser(self, name):
-        c = self.s.components[name]
-        el = self.m.inductor(c.value) if c.kind == "L" else self.m.capacitor(c.value)
-        r = self._r(name)
-        return el ** self.m.resistor(r) if r > 0 else el
+        return self.m.resistor(self._z(name))
 
     def to_gnd(self, name):
         """1-port: the component from a node to ground."""
@@ -78,8 +74,9 @@ class SkrfModel:
 
     def _z(self, name):
         c = self.s.components[name]
-        z = 1j * self.w * c.value if c.kind == "L" else 1 / (1j * self.w * c.value)
-        return z + self._r(name)
+        ln = loss_net(self.s, name)
+        z = 1j * self.w * ln.main if c.kind == "L" else 1 / (1j * self.w * ln.main)
+        return z + self._ladder_z(ln)
 
     def line(self, base):
         plan = line_plan(self.s, base)
@@ -87,7 +84,7 @@ class SkrfModel:
         seg = lm.line(plan["td_seg"] * C0, unit="m")
         net = seg
         for _ in range(plan["k"] - 1):
-            net = net ** self.m.resistor(plan["r_seg"]) ** seg
+            net = net ** self.m.resistor(self._ladder_z(line_loss_net(self.s, base))) ** seg
         return net
 
     def tail(self):

@@ -129,7 +129,8 @@ def test_header_lists_components_and_digest():
 
 def test_loss_elements_values():
     # inductor loss R = omega0 L / Q (definition of unloaded Q, Pozar ch. 6); ESR as given
-    s = size(make(network={"inductor_q": 40, "capacitor_esr": "0.1 ohm"}))
+    # (the fixed law: one resistor; the frequency laws are checked in tests/test_losses.py)
+    s = size(make(network={"inductor_q": 40, "capacitor_esr": "0.1 ohm", "inductor_loss_law": "fixed"}))
     losses = {n: (a, b, r) for n, a, b, r in loss_elements(render(s))}
     w = 2 * math.pi * 1e9
     assert_allclose(losses["RLOSS_tank_l"][2], w * s.value("tank_l") / 40, rtol=1e-9)
@@ -141,7 +142,7 @@ def test_loss_elements_values():
 def test_lossy_line_segments():
     # 2 equal resistors between 3 segments, each passing |S21| = 1/(1 + R/(2 Z0)) (Pozar), so
     # together 0.2 dB: R = 2 Z0 (10^(0.2/(20*2)) - 1) (network.line_plan)
-    s = size(make(network={"line_loss": "0.2 dB"}))
+    s = size(make(network={"line_loss": "0.2 dB", "line_loss_law": "fixed"}))
     text = render(s)
     segs = re.findall(r"^T_line_(\d) ", text, re.M)
     assert segs == ["1", "2", "3"]

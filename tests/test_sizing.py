@@ -186,8 +186,9 @@ def _parallel_lc_x(zr, n, m):
 @pytest.mark.parametrize("n_res", [1, 2, 3])
 def test_lumped_default_resonator_z_balances_short_and_open(n_res):
     # Our rule (netgen.synthesis.sizing.lumped_resonator_z): Zr^2 S Q_r = Ropt^2, S the resonators' series
-    # reactance per ohm of Zr at the worst even harmonic below (2N+1) f0, 1/Q_r = 1/(3 Q_u) +
-    # ESR/Zr + 1/50. S is recomputed here from the element impedances of each parallel LC.
+    # reactance per ohm of Zr at the worst even harmonic below (2N+1) f0, 1/Q_r = 1/Q_u(3 f0) +
+    # ESR/Zr + 1/50, with Q_u(3 f0) = Q_u for the default constant-Q inductor (3 Q_u for a fixed R,
+    # the definition of Q = omega L/R). S is recomputed here from the element impedances of each parallel LC.
     from netgen.synthesis.builder import RESONATOR_Q_TOL, even_reactance_factor, lumped_resonator_z
 
     d = make("class_f_lumped", network={"harmonics": n_res, "inductor_q": 40, "capacitor_esr": "0.1 ohm"})
@@ -199,9 +200,14 @@ def test_lumped_default_resonator_z_balances_short_and_open(n_res):
     if n_res == 2:
         assert_allclose(s_max, 1.2 + 0.4 / 0.84, rtol=1e-12)
     zr, margin, how = lumped_resonator_z(d, ropt)
-    q_r = 1 / (1 / (3 * 40) + 0.1 / zr + 1 / RESONATOR_Q_TOL)
+    q_r = 1 / (1 / 40 + 0.1 / zr + 1 / RESONATOR_Q_TOL)
     assert_allclose(zr**2 * s_max * q_r, ropt**2, rtol=1e-9)
     assert_allclose(margin, math.sqrt(q_r / s_max), rtol=1e-9)
+    d_fixed = make("class_f_lumped", network={"harmonics": n_res, "inductor_q": 40, "capacitor_esr": "0.1 ohm",
+                                              "inductor_loss_law": "fixed"})
+    zr_f, _m, _h = lumped_resonator_z(d_fixed, ropt)
+    q_f = 1 / (1 / (3 * 40) + 0.1 / zr_f + 1 / RESONATOR_Q_TOL)
+    assert_allclose(zr_f**2 * s_max * q_f, ropt**2, rtol=1e-9)
     s = size(d)
     assert_allclose(math.sqrt(s.value("res3_l") / s.value("res3_c")), zr, rtol=1e-12)
     assert "Zr^2 S Q_r = Ropt^2" in s.components["res3_l"].how

@@ -65,3 +65,60 @@ def test_buildability_flags_tiny_parts():
     warns = buildability_warnings(size(d))
     assert any(w.startswith("part comp1_l = ") and "transmission-line stub" in w for w in warns), warns
     assert buildability_warnings(size(load_design(SIMS / "class_e.toml"))) == []
+
+
+def _srf_design(**srf):
+    from netgen.design.schema import design_from_dict
+
+    return design_from_dict({
+        "design": {"name": "srf", "topology": "class_b_tuned", "f0": "900 MHz", "vdd": "12 V", "load": "50 ohm", "pout": "2 W"},
+        "device": {"model": "gm"},
+        "network": {"inductor_q": 50, "srf": srf},
+    })
+
+
+def test_srf_warning_below_twice_the_highest_harmonic():
+    # common practice (recalled from memory): a part's self-resonant frequency should sit well above the
+    # highest frequency it works at (SRF_MARGIN = 2 here); a tuned class B shorts every harmonic up to
+    # sim.harmonics = 5, so its tank acts up to 5 f0 = 4.5 GHz and the threshold is 9 GHz
+    from netgen.results.stress import SRF_MARGIN, acting_harmonic, buildability_warnings
+
+    s = size(_srf_design(tank_l="4 GHz", tank_c="6 GHz", block_c="20 GHz"))
+    assert acting_harmonic(s) == 5 and SRF_MARGIN == 2.0
+    warns = [w for w in buildability_warnings(s) if "self-resonant" in w]
+    assert len(warns) == 2, warns
+    l_warn = next(w for w in warns if w.startswith("part tank_l"))
+    assert "4000 MHz, below 5 f0 = 4500 MHz" in l_warn and "above 9000 MHz" in l_warn
+    c_warn = next(w for w in warns if w.startswith("part tank_c"))
+    assert "within a factor 2 of 5 f0" in c_warn
+    # an SRF at 2 x the acting harmonic or above: no warning (block_c at 20 GHz, the rest unlisted)
+    assert not any("self-resonant" in w for w in buildability_warnings(size(_srf_design(tank_l="9 GHz"))))
+
+
+def test_srf_key_errors_are_one_sentence():
+    # a name that is no inductor or capacitor of the sized network, and a value that is no frequency:
+    # DesignError (exit code 2) naming the key
+    from netgen.errors import DesignError
+
+    with pytest.raises(DesignError, match=r"network\.srf\.tank_x: .*name one of feed_l, block_c, tank_l, tank_c"):
+        size(_srf_design(tank_x="4 GHz"))
+    with pytest.raises(DesignError, match=r"network\.srf\.tank_l"):
+        _srf_design(tank_l="4 nH")
+
+
+def test_srf_and_size_warnings_in_cli(tmp_path):
+    # `pashape size` prints the buildability warnings (the same sentences `pashape run` puts in
+    # metrics.json "warnings") on stderr and still writes the sized file, which keeps [network.srf]
+    from click.testing import CliRunner
+
+    from netgen.cli import cli
+    from netgen.design.schema import load_design as load
+
+    src = tmp_path / "d.toml"
+    src.write_text('[design]\nname = "d"\ntopology = "class_b_tuned"\nf0 = "900 MHz"\nvdd = "12 V"\nload = "50 ohm"\n'
+                   'pout = "2 W"\n[device]\nmodel = "gm"\n[network.srf]\ntank_l = "3 GHz"\n')
+    out = tmp_path / "sized.toml"
+    res = CliRunner().invoke(cli, ["size", str(src), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert "Warning: part tank_l (inductor" in res.output and "self-resonant frequency of 3000 MHz" in res.output
+    assert load(out).network.srf_hz == {"tank_l": 3e9}

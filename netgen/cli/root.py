@@ -203,9 +203,13 @@ def size(design_file: Path, outfile: Path) -> None:
     from netgen.synthesis import size as size_design
     from netgen.synthesis import write_sized_toml
 
+    from netgen.results import buildability_warnings
+
     sized = size_design(_load(design_file))
     write_sized_toml(sized, outfile)
     click.echo(f"Ropt = {sized.ropt_ohm:.4g} ohm; {len(sized.components)} components sized; wrote {outfile}.")
+    for text in buildability_warnings(sized):  # the same sentences `pashape run` puts in metrics.json warnings
+        click.echo(f"Warning: {text}", err=True)
 
 
 @cli.command()

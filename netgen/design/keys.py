@@ -39,9 +39,9 @@ def set_dotted(doc: dict, path: str, value: Any) -> dict:
         raise DesignError(f"'{path}': unknown section '{section}'{closest_hint(section, SCHEMA)}")
     if key not in SCHEMA[section]:
         raise DesignError(f"'{path}': unknown key{closest_hint(key, SCHEMA[section])}")
-    if key == "values" and len(parts) != 3:
-        raise DesignError(f"'{path}': name the component, e.g. network.values.tank_l.")
-    if key != "values" and len(parts) != 2:
+    if key in ("values", "srf") and len(parts) != 3:
+        raise DesignError(f"'{path}': name the component, e.g. network.{key}.tank_l.")
+    if key not in ("values", "srf") and len(parts) != 2:
         raise DesignError(f"'{path}': too many parts; a key path is section.key.")
     out = plain_toml(doc)
     node = out
@@ -65,7 +65,7 @@ def reference_markdown() -> str:
     for section, keys in SCHEMA.items():
         lines += [f"## [{section}]", "", "| key | unit | default | range | meaning |", "| --- | --- | --- | --- | --- |"]
         for key, spec in keys.items():
-            unit = {"str": "text", "bool": "true/false", "int": "whole number", "": "number", "values": "table", "pins": "list"}.get(spec.unit, spec.unit)
+            unit = {"str": "text", "bool": "true/false", "int": "whole number", "": "number", "values": "table", "srf": "table of frequencies", "pins": "list"}.get(spec.unit, spec.unit)
             default = "required" if spec.required else ("-" if spec.default is None else f"`{spec.default}`")
             if spec.choices:
                 rng = " / ".join(spec.choices)

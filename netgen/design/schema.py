@@ -127,8 +127,12 @@ class NetworkSpec:
     harmonics: int = 2
     eps_eff: float = 1.0
     inductor_q: float = math.inf
+    inductor_loss_law: str = "constant_q"
     capacitor_esr_ohm: float = 0.0
+    capacitor_loss_law: str = "constant_esr"
     line_loss_db: float = 0.0
+    line_loss_law: str = "conductor_dielectric"
+    line_dielectric_share: float = 0.0
     feed_l_h: float | None = None
     block_c_f: float | None = None
     match: str = "lowpass"
@@ -136,6 +140,8 @@ class NetworkSpec:
     #: explicit component values by component name, still as text (parsed by sizing,
     #: which knows each component's unit)
     values: dict[str, str] = field(default_factory=dict)
+    #: self-resonant frequency (Hz) of parts by component name ([network.srf]; buildability warnings)
+    srf_hz: dict[str, float] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -333,7 +339,7 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
                 values[section][spec.attr] = _parse_value(table[key], spec, path)
             elif spec.required:
                 raise DesignError(f"{path}: missing; add it to [{section}] ({spec.doc})")
-            elif spec.default is None or spec.unit in ("str", "bool", "int", "", "values", "pins"):
+            elif spec.default is None or spec.unit in ("str", "bool", "int", "", "values", "srf", "pins"):
                 values[section][spec.attr] = spec.default
             else:
                 values[section][spec.attr] = _parse_value(spec.default, spec, path)
@@ -487,6 +493,18 @@ def _parse_value(value: Any, spec: Key, path: str) -> Any:
             if not isinstance(text, str):
                 raise DesignError(f"{path}.{name}: expected a quantity with its unit as text, e.g. \"2.2 nH\".")
             out[name] = text
+        return out
+    if unit == "srf":
+        if not isinstance(value, dict):
+            raise DesignError(f"{path}: expected a table of self-resonant frequencies by component name ([network.srf]).")
+        out = {}
+        for name, text in value.items():
+            if not SAFE_NAME.match(name):
+                raise DesignError(f"{path}.{_printable(name)}: not a component name; use letters, digits and underscores.")
+            hz = parse_quantity(text, "Hz", f"{path}.{name}")
+            if not (hz > 0 and math.isfinite(hz)):
+                raise DesignError(f"{path}.{name}: a self-resonant frequency must be a positive frequency, e.g. \"6 GHz\".")
+            out[name] = hz
         return out
     if unit == "pins":
         if not isinstance(value, list) or sorted(value) != ["drain", "gate", "source"]:

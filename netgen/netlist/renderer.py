@@ -24,7 +24,7 @@ import jinja2
 from netgen import __version__
 from netgen.design import SizedDesign
 from netgen.errors import RenderError
-from netgen.synthesis import comp_branches, element_name, line_plan, loss_ohm, tail_plan
+from netgen.synthesis import comp_branches, element_name, line_plan, loss_net, loss_ohm, tail_plan
 
 from .portable import format_number as _fmt
 from .portable import portable_cards
@@ -110,6 +110,7 @@ def ac_grid(freqs_hz) -> tuple[int, float, float]:
 def _comp_ctx(sized: SizedDesign) -> dict:
     out = {}
     for name, c in sized.components.items():
+        ln = loss_net(sized, name) if c.kind in ("L", "C") else None
         out[name] = {
             "name": name,
             "kind": c.kind,
@@ -117,6 +118,10 @@ def _comp_ctx(sized: SizedDesign) -> dict:
             "unit": c.unit,
             "element": element_name(name),
             "rloss": loss_ohm(sized, name),
+            # the rendered main value and the loss ladder (netgen.synthesis.losses; docs/losses.md)
+            "main": ln.main if ln is not None else c.value,
+            "r0": ln.r0_ohm if ln is not None else 0.0,
+            "sections": ln.sections if ln is not None else (),
             "how": c.how,
             "role": c.role,
         }

@@ -16,6 +16,7 @@ _EXPORTS = {
     "CAUTION_LINE": "cautions",
     "CAUTION_SHORT": "cautions",
     "analyse": "analysis",
+    "buildability_warnings": "stress",
     "caution_texts": "cautions",
     "design_warnings": "analysis",
     "format_table": "report",

@@ -322,7 +322,9 @@ def _loss_budget(win: _Window, design, netlist_text: str, load_harmonics_w: floa
     for name, a, b, r in _loss_elements(netlist_text):
         dv = win.node(a, name) - win.node(b, name)
         key = name[6:] if name.upper().startswith("RLOSS_") else name
-        losses[key] = win.mean_product(dv, dv) / r
+        # the sections of a frequency-law ladder (RLOSS_<part>__s<k>, docs/losses.md) add to their part
+        key = key.split("__", 1)[0]
+        losses[key] = losses.get(key, 0.0) + win.mean_product(dv, dv) / r
     losses["load_harmonics"] = load_harmonics_w  # load power outside the fundamental (n >= 2, DC)
     return losses
 

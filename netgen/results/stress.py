@@ -17,7 +17,8 @@ import math
 
 import numpy as np
 
-__all__ = ["part_stress", "stress_summary", "buildability_warnings", "MIN_LUMPED_L_H", "MIN_LUMPED_C_F"]
+__all__ = ["part_stress", "stress_summary", "buildability_warnings", "acting_harmonic", "MIN_LUMPED_L_H", "MIN_LUMPED_C_F",
+           "SRF_MARGIN"]
 
 #: smallest lumped parts a designer can buy or build with a defined value (our rule of thumb: the
 #: smallest catalogue chip parts are about 0.5 nH and 0.2 pF, and a pad or a via adds that much)
@@ -25,6 +26,11 @@ MIN_LUMPED_L_H = 0.5e-9
 MIN_LUMPED_C_F = 0.2e-12
 #: a lumped part is a distributed one above this fraction of a wavelength (common practice: lambda/10)
 MAX_LUMPED_FRACTION = 0.1
+#: a part's self-resonant frequency should be at least this many times the highest frequency it acts
+#: at (common practice, recalled from memory: chip inductor and capacitor application notes ask for an
+#: SRF well above the operating frequency, commonly 1.5-2 x or more; below that the effective value
+#: drifts fast, L_eff = L/(1 - (f/SRF)^2), 33 % high at SRF/2)
+SRF_MARGIN = 2.0
 
 
 def _elements(netlist_text: str) -> dict[str, list[str]]:
@@ -79,24 +85,27 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
     out: dict[str, dict] = {}
     for name, tok in el.items():
         kind = name[0]
-        if kind not in "LC" or len(tok) < 4:
+        if kind not in "LC" or len(tok) < 4 or "__" in name:  # '__': a loss-ladder section (docs/losses.md)
             continue
         a, b = tok[1].lower(), tok[2].lower()
         va, vb = _v(wf, a), _v(wf, b)
         v = None if va is None or vb is None else va - vb
         # the series loss resistor of this part: RLOSS_* from node b (x_<component>) onwards
+        # (RLOSS_<part>, not a ladder section RLOSS_<part>__s<k>, which carries only part of the current)
         rl_name, rl = next(((k, t) for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4
                             and t[1].lower() == b and b.startswith("x_")), (None, None))
+        sensed = rl_name is not None and "__" not in rl_name
+        part_key = b[2:] if b.startswith("x_") else None
         i_r, p_loss = None, None
         if rl is not None:
             r = _value(rl[3])
             vr_a, vr_b = _v(wf, rl[1].lower()), _v(wf, rl[2].lower())
-            if r and vr_a is not None and vr_b is not None:
+            if sensed and r and vr_a is not None and vr_b is not None:
                 i_r = (vr_a - vr_b) / r
                 p_loss = float(np.mean((vr_a - vr_b) ** 2) / r)
             budget = {k.lower(): w for k, w in (losses or {}).items()}
-            if rl_name[6:].lower() in budget:
-                p_loss = float(budget[rl_name[6:].lower()])
+            if part_key in budget:
+                p_loss = float(budget[part_key])
         if kind == "L":
             i = currents.get(name, i_r)
         else:
@@ -123,15 +132,36 @@ def stress_summary(stress: dict[str, dict]) -> dict:
             "stress_ind_i_peak_part": ln, "stress_max_loss_w": pl, "stress_max_loss_part": pn}
 
 
+def acting_harmonic(sized) -> int:
+    """Highest harmonic n the output network's parts must act at (as an L or a C), for the SRF check.
+
+    The highest harmonic the topology controls (netgen.synthesis.controlled_pattern: class F opens
+    and shorts, tuned-B shorts), at least f0; class E controls none by name, but its shunt capacitor
+    and series resonator shape the switch current's harmonics: 3 f0 there (our rule).
+    """
+    from netgen.synthesis import controlled_pattern, resolve_topology
+
+    topo = resolve_topology(sized.design)
+    pattern = controlled_pattern(topo.name, sized.design)
+    n = max(pattern) if pattern else 1
+    if topo.wave_class == "E":
+        n = max(n, min(3, int(sized.design.sim.harmonics)))
+    return n
+
+
 def buildability_warnings(sized) -> list[str]:
     """Parts that cannot be bought or built as lumped parts at this frequency, with what to do.
 
     Flags an inductor below :data:`MIN_LUMPED_L_H` or a capacitor below :data:`MIN_LUMPED_C_F`
-    (parasitics of that size swamp them), with what to do. Self-resonance is not checked
-    (pashape has no key for a part's SRF).
+    (parasitics of that size swamp them), and a part whose self-resonant frequency
+    (``[network.srf]``, from its datasheet) is below :data:`SRF_MARGIN` times the highest harmonic
+    it acts at (:func:`acting_harmonic`): near its SRF a part's reactance is no longer omega L or
+    1/(omega C), and above it an inductor is a capacitor and a capacitor an inductor.
     """
     out = []
     d = sized.design
+    n_act = acting_harmonic(sized)
+    f_act = n_act * d.f0_hz
     for c in sized.components.values():
         if c.role == "comp":
             fix = "realise this Cout compensator branch as a transmission-line stub, or lower network.harmonics"
@@ -143,4 +173,18 @@ def buildability_warnings(sized) -> list[str]:
         elif c.kind == "C" and c.value < MIN_LUMPED_C_F:
             out.append(f"part {c.name} = {c.value * 1e15:.3g} fF at {d.f0_hz / 1e6:.6g} MHz is below the smallest buildable "
                        f"capacitor (about {MIN_LUMPED_C_F * 1e12:g} pF): {fix}")
+        srf = d.network.srf_hz.get(c.name)
+        if srf is not None and srf < SRF_MARGIN * f_act:
+            where = "below" if srf < f_act else "within a factor " + f"{SRF_MARGIN:g} of"
+            kind = "inductor" if c.kind == "L" else "capacitor"
+            out.append(f"part {c.name} ({kind}, {_value_text(c)}) has a self-resonant frequency of {srf / 1e6:.6g} MHz, "
+                       f"{where} {n_act} f0 = {f_act / 1e6:.6g} MHz, the highest harmonic it acts at: choose a part with an SRF "
+                       f"above {SRF_MARGIN * f_act / 1e6:.6g} MHz (a smaller case size or a smaller value), or a line-based "
+                       "topology")
     return out
+
+
+def _value_text(c) -> str:
+    if c.kind == "L":
+        return f"{c.value * 1e9:.4g} nH"
+    return f"{c.value * 1e12:.4g} pF"

@@ -341,9 +341,10 @@ def lumped_resonator_z(design: Design, ropt: float) -> tuple[float, float, str]:
       ``X_m = Zr S_m`` (:func:`even_reactance_factor`); the shunt f0 tank adds
       ``-Ropt/(Q_L (m - 1/m))`` on the load side, which only helps, so it is left out;
     * odd harmonics n = 3 .. 2N+1: resonator n is an open of ``R_n = Q_r Zr``, with the
-      resonator's effective Q from the inductor (series R = omega0 L/Q_u, so Q = n Q_u at n f0;
-      the worst is n = 3), the capacitor ESR (Q = Zr/ESR at any n) and the tolerance ceiling
-      :data:`RESONATOR_Q_TOL`: ``1/Q_r = 1/(3 Q_u) + ESR/Zr + 1/50``.
+      resonator's effective Q from the inductor (its Q at 3 f0, the worst n, by
+      network.inductor_loss_law: Q_u for constant Q, sqrt(3) Q_u for skin effect, 3 Q_u for a
+      fixed R), the capacitor ESR at 3 f0 (Q = Zr/ESR) and the tolerance ceiling
+      :data:`RESONATOR_Q_TOL`: ``1/Q_r = 1/Q_u(3 f0) + ESR(3 f0)/Zr + 1/50``.
 
     Their product ``X_even R_odd = Zr^2 S Q_r`` does not depend on how Ropt is split, so the
     balanced choice makes the short and the open equally far from Ropt (geometric mean):
@@ -355,8 +356,11 @@ def lumped_resonator_z(design: Design, ropt: float) -> tuple[float, float, str]:
     net = design.network
     n_res = int(net.harmonics)
     s_max = max(abs(even_reactance_factor(n_res, m)) for m in range(2, 2 * n_res + 1, 2))
-    inv_qu = 0.0 if math.isinf(net.inductor_q) else 1.0 / (3.0 * net.inductor_q)
-    esr = net.capacitor_esr_ohm
+    # the inductor's Q at 3 f0 by network.inductor_loss_law (netgen.synthesis.losses): 3 Q_u for a
+    # fixed R, sqrt(3) Q_u for skin effect, Q_u for constant Q; the ESR at 3 f0 likewise
+    q3 = {"fixed": 3.0, "skin": math.sqrt(3.0)}.get(net.inductor_loss_law, 1.0)
+    inv_qu = 0.0 if math.isinf(net.inductor_q) else 1.0 / (q3 * net.inductor_q)
+    esr = net.capacitor_esr_ohm / (3.0 if net.capacitor_loss_law == "constant_q" else 1.0)
 
     def q_r(zr: float) -> float:
         return 1.0 / (inv_qu + esr / zr + 1.0 / RESONATOR_Q_TOL)
@@ -374,7 +378,7 @@ def lumped_resonator_z(design: Design, ropt: float) -> tuple[float, float, str]:
     margin = math.sqrt(q_r(zr) / s_max)
     how = (f"Zr^2 S Q_r = Ropt^2 (even short ~ Ropt/M, odd open ~ M Ropt, M = sqrt(Q_r/S) = {margin:.3g}); "
            f"S = {s_max:.4g} resonator reactance at the worst even harmonic per ohm of Zr, "
-           f"1/Q_r = 1/(3 Q_u) + ESR/Zr + 1/{RESONATOR_Q_TOL:g} (our design rule)")
+           f"1/Q_r = 1/Q_u(3 f0) + ESR(3 f0)/Zr + 1/{RESONATOR_Q_TOL:g} (our design rule)")
     return zr, margin, how
 
 

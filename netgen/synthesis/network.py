@@ -19,6 +19,8 @@ import numpy as np
 
 from netgen.design import SizedDesign
 
+from .losses import LINE_SEGMENTS_LOSSY, line_loss_net, line_r_law_ohm, loss_net, r_law_ohm, z_loss_net
+
 __all__ = [
     "z_drain",
     "z_drain_with_section",
@@ -37,52 +39,38 @@ __all__ = [
     "comp_branches",
 ]
 
-#: number of lossless T segments a lossy line is split into (RLOSS resistors between them).
-#: Measured on sims/demo.toml, 100 cycles in ngspice 39: 8 segments 10.9 s, 4 -> 3.9 s,
-#: 3 -> 2.6 s, lossless 1.0 s (every segment adds breakpoints). 3 keeps the loss spread
-#: over the line (a single middle resistor would sit at a current null at 2 f0).
-LINE_SEGMENTS_LOSSY = 3
-
-
-# ---------------------------------------------------------------- shared with render
-
 def loss_ohm(sized: SizedDesign, name: str) -> float:
-    """Series loss resistance of component ``name``, ohm.
+    """Series loss resistance of component ``name`` at f0, ohm (the law's value there).
 
     Inductor: ``omega0 L / Q`` with Q = network.inductor_q (unloaded Q at f0; inf -> 0).
     Capacitor: network.capacitor_esr. Components with ``lossy=False`` (the feed choke,
-    whose loss is a DC resistance, not omega0 L / Q) and lines: 0.
+    whose loss is a DC resistance, not omega0 L / Q) and lines: 0. How it scales with
+    frequency, and the ladder that realises it: :mod:`netgen.synthesis.losses`.
     """
-    comp = sized.components[name]
-    if not comp.lossy:
-        return 0.0
-    net = sized.design.network
-    if comp.kind == "L":
-        q = net.inductor_q
-        return 0.0 if math.isinf(q) else 2 * math.pi * sized.design.f0_hz * comp.value / q
-    if comp.kind == "C":
-        return net.capacitor_esr_ohm
-    return 0.0
+    return float(r_law_ohm(sized, name, sized.design.f0_hz)[0])
 
 
 def line_plan(sized: SizedDesign, base: str) -> dict:
-    """How line ``base`` is built: ``{z0, td_seg, k, r_seg, r_total}``.
+    """How line ``base`` is built: ``{z0, td_seg, k, r_seg, r_total, r0, sections}``.
 
     A lossy line (network.line_loss > 0 dB) is k = 3 lossless segments of TD/k with k-1
-    equal series resistors between them. A series R between matched Z0 lines passes
-    |S21| = 1/(1 + R/(2 Z0)) (Pozar, ABCD -> S conversion), so each resistor is
-    R = 2 Z0 (10^(dB/(20 (k-1))) - 1) and the matched line loses line_loss dB at f0
-    (to within the small mismatch between the lumps; for low loss this is the distributed
-    alpha = R'/(2 Z0) of Pozar, lossy transmission lines).
+    equal series loss elements between them, each with the resistance ``r_seg`` at f0 (the law
+    of :func:`netgen.synthesis.losses.line_r_law_ohm`: the matched line loses line_loss dB at f0,
+    to within the small mismatch between the lumps; for low loss this is the distributed
+    alpha = R'/(2 Z0) of Pozar, lossy transmission lines). Each element is a resistor ``r0``
+    plus the ``R_k || L_k`` ``sections`` of the frequency law (:func:`line_loss_net`; none with
+    network.line_loss_law = fixed).
     """
     z0 = sized.value(f"{base}_z0")
     td = sized.value(f"{base}_td")
     db = sized.design.network.line_loss_db
     if db <= 0:
-        return {"z0": z0, "td_seg": td, "k": 1, "r_seg": 0.0, "r_total": 0.0}
+        return {"z0": z0, "td_seg": td, "k": 1, "r_seg": 0.0, "r_total": 0.0, "r0": 0.0, "sections": ()}
     k = LINE_SEGMENTS_LOSSY
-    r_seg = 2.0 * z0 * (10 ** (db / (20.0 * (k - 1))) - 1.0)
-    return {"z0": z0, "td_seg": td / k, "k": k, "r_seg": r_seg, "r_total": r_seg * (k - 1)}
+    r_seg = float(line_r_law_ohm(sized, base, sized.design.f0_hz)[0])
+    ln = line_loss_net(sized, base)
+    return {"z0": z0, "td_seg": td / k, "k": k, "r_seg": r_seg, "r_total": r_seg * (k - 1),
+            "r0": ln.r0_ohm, "sections": ln.sections}
 
 
 def tail_plan(sized: SizedDesign) -> list[tuple[str, str]]:
@@ -106,12 +94,9 @@ def tail_plan(sized: SizedDesign) -> list[tuple[str, str]]:
 
 def _z_elem(sized: SizedDesign, name: str, w: np.ndarray) -> np.ndarray:
     comp = sized.components[name]
-    r = loss_ohm(sized, name)
-    if comp.kind == "L":
-        return 1j * w * comp.value + r
-    if comp.kind == "C":
-        return 1.0 / (1j * w * comp.value) + r
-    raise ValueError(f"{name}: not an L or C")
+    if comp.kind not in ("L", "C"):
+        raise ValueError(f"{name}: not an L or C")
+    return z_loss_net(loss_net(sized, name), w)
 
 
 def _abcd_series(z: np.ndarray) -> np.ndarray:
@@ -148,8 +133,10 @@ def _abcd_line(sized: SizedDesign, base: str, w: np.ndarray) -> np.ndarray:
     plan = line_plan(sized, base)
     seg = abcd_tline(plan["z0"], plan["td_seg"], w)
     m = seg
-    for _ in range(plan["k"] - 1):
-        m = m @ _abcd_series(np.full(w.shape, plan["r_seg"], dtype=complex)) @ seg
+    if plan["k"] > 1:
+        z_loss = z_loss_net(line_loss_net(sized, base), w)
+        for _ in range(plan["k"] - 1):
+            m = m @ _abcd_series(z_loss) @ seg
     return m
 
 

@@ -98,6 +98,11 @@ def size(design: Design) -> SizedDesign:
     topo.sizer(b, ropt)
     comps = {c.name: c for c in b.items}
     comps = _apply_overrides(design, comps, topo.name)
+    for name in design.network.srf_hz:
+        if name not in comps or comps[name].kind not in ("L", "C"):
+            parts = ", ".join(n for n, c in comps.items() if c.kind in ("L", "C"))
+            raise DesignError(f"network.srf.{name}: the sized {topo.name} network has no inductor or capacitor of that name; "
+                              f"name one of {parts}.")
 
     derived: dict[str, tuple] = {
         "ropt_ohm": (ropt, "ohm", how_r),
