@@ -212,7 +212,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         imax = sized.derived["imax_a"][0]
         device.update(imax_a=imax, vg_bias=-math.cos(alpha), gm_a_per_v=imax / (1.0 - math.cos(alpha)))
     elif dev.model == "angelov":
-        device["angelov"] = _angelov_ctx(d)
+        device["angelov"] = _angelov_ctx(d, sized)
     else:
         pins = {"drain": "dsw", "gate": "gate", "source": "0"}
         device["nodes"] = " ".join(pins[p] for p in dev.pins)
@@ -247,10 +247,49 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
     }
 
 
-def _angelov_ctx(design) -> dict:
+def _input_ctx(sized: SizedDesign) -> dict | None:
+    """The input network's netlist lines (templates/devices.j2 ``angelov``), source side first:
+    ``elements`` (element, nodes a/b, value, series loss ``rloss`` as an ``RLIN_<name>`` resistor,
+    the DC block's initial voltage), ``gx`` (the node before the gate sense VIGATE), ``bias``
+    (whether a gate-bias supply VGG feeds gx). None without an input network (docs/devices.md)."""
+    from netgen.synthesis import input_loss_ohm
+
+    comps = sized.input_network
+    if not comps:
+        return None
+    d = sized.design
+    has_block = "in_block_c" in comps
+    end = "gm" if has_block else "gx"
+    elements = []
+    match = [c for c in comps.values() if c.role == "input_match"]
+    node = "gin"
+    for k, c in enumerate(match):
+        series = c.name.startswith("in_series")
+        b = (end if k == len(match) - 1 else "gmid") if series else "0"
+        elements.append({"name": c.name, "element": f"{c.kind}_{c.name[:-2]}", "a": node, "b": b,
+                         "value": c.value, "rloss": input_loss_ohm(d, c), "ic": None})
+        if series:
+            node = b
+    if not match:  # bias network only: the block straight from the source
+        end = "gin"
+    if has_block:
+        c = comps["in_block_c"]
+        # its DC voltage from the start: v(source side) - v(gate side) = 0 - Vgg (the source carries no DC)
+        elements.append({"name": c.name, "element": "C_in_block", "a": end, "b": "gx", "value": c.value,
+                         "rloss": input_loss_ohm(d, c), "ic": -d.device.vgate_bias_v})
+        feed = comps.get("in_feed_l") or comps.get("in_feed_r")
+        elements.append({"name": feed.name, "element": f"{feed.kind}_in_feed", "a": "vgg", "b": "gx",
+                         "value": feed.value, "rloss": 0.0, "ic": None})
+    elif node != "gx":
+        raise RenderError("drive.match: the input network does not end at the gate; give its values in [drive.values].")
+    return {"elements": elements, "bias": has_block}
+
+
+def _angelov_ctx(design, sized: SizedDesign | None = None) -> dict:
     """Template values of the angelov device (templates/devices.j2 ``angelov``): its parameters,
     the intrinsic node names (``adi``/``asi`` behind Rd/Rs, else ``dsw``/ground), the control
-    voltages as B-source text and the gate source amplitude from drive.pin (docs/devices.md)."""
+    voltages as B-source text, the gate source amplitude from drive.pin and the input network
+    (:func:`_input_ctx`; docs/devices.md)."""
     dev, drv = design.device, design.drive
     di = "adi" if dev.rd_ohm > 0 else "dsw"
     si = "asi" if dev.rs_ohm > 0 else "0"
@@ -263,6 +302,7 @@ def _angelov_ctx(design) -> dict:
         "vds": f"v({di})" if si == "0" else f"v({di},{si})",
         "u": f"({'v(gate)' if si == '0' else f'v(gate,{si})'}-({_fmt(dev.vpk_v)}))",
         "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
+        "input": _input_ctx(sized) if sized is not None else None,
     }
 
 

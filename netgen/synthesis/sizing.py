@@ -63,6 +63,7 @@ from .builder import (
     ropt_from_power,
 )
 from .network import z_drain
+from .input_match import angelov_input_z, input_network, input_network_z
 from .theory import bound_for
 from .topologies import resolve_topology
 
@@ -105,6 +106,8 @@ def size(design: Design) -> SizedDesign:
         "pout_est_w": (pout, "W", f"P = a Vdd_eff^2/R with a = {a:.6g} (class {cls})"),
     }
     dev = design.device
+    in_comps, in_derived = input_network(design, ropt)
+    derived.update(in_derived)
     if dev.model in ("gm", "angelov"):
         fdc, f1 = conduction_fourier(dev.conduction_angle_deg)
         v1 = math.sqrt(2.0 * pout * ropt)
@@ -119,7 +122,7 @@ def size(design: Design) -> SizedDesign:
         idc = imax * fdc
         how_idc = "Idc = Imax (sin a - a cos a)/(pi (1 - cos a)) (Cripps, reduced conduction angle)"
         if dev.model == "angelov":
-            idc, vg = angelov_idc_estimate(design, derived["vdd_eff_v"][0])
+            idc, vg = angelov_idc_estimate(design, derived["vdd_eff_v"][0], in_comps, ropt)
             how_idc = (f"Idc = mean over a period of Ipk (1 + tanh psi(Vgg + Vg cos wt)), Vg = {vg:.4g} V: |Vs| divided by "
                        "Rs and the gate capacitance Cgs + Cgd (1 + Vdd_eff/Vg) (Miller) at bias (our estimate; docs/devices.md)")
         derived["idc_est_a"] = (idc, "A", how_idc)
@@ -149,7 +152,7 @@ def size(design: Design) -> SizedDesign:
         derived["bias_damping"] = (design.load_ohm / (2.0 * zb), "",
                                    f"zeta ~ RL/(2 sqrt(L_feed/C_{cb_name[:-2]})): a series loop closed through roughly RL (estimate)")
     return SizedDesign(design=design, ropt_ohm=ropt, components=comps, derived=derived,
-                       idc_est_a=idc, pout_est_w=pout_est)
+                       idc_est_a=idc, pout_est_w=pout_est, input_network=in_comps)
 
 
 #: above this omega0 Cout Ropt the absorbed Cout makes a narrowband, loss-sensitive network (our rule)
@@ -271,7 +274,8 @@ def switch_dc_estimate(sized: SizedDesign, pout_w: float, veff_v: float) -> dict
     return {"idc_a": idc, "pfund_w": pfund, "pcap_w": pcap, "eta_bound": bound, "how": how}
 
 
-def angelov_idc_estimate(design: Design, veff_v: float, n: int = 720) -> tuple[float, float]:
+def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = None, ropt_ohm: float | None = None,
+                         n: int = 720) -> tuple[float, float]:
     """(Idc in A, gate amplitude Vg in V) of the angelov device for the warm start.
 
     The gate amplitude is the source's |Vs| divided by its resistance and the input capacitance at
@@ -293,6 +297,13 @@ def angelov_idc_estimate(design: Design, veff_v: float, n: int = 720) -> tuple[f
     vg = vs
     for _ in range(30):
         vg = vs / abs(1.0 + 1j * w * drv.source_r_ohm * (cgs + cgd * (1.0 + veff_v / max(vg, 1e-12))))
+    if in_comps:
+        # behind an input network (lossless here): the power it passes, Pavail (1 - |Gamma|^2),
+        # all reaches the gate's Re(1/Zdev): |Vg|^2 = 2 P / Re(1/Zdev)
+        zdev = angelov_input_z(design, z_drain_ohm=ropt_ohm)
+        zin = input_network_z(design, in_comps, zdev)
+        gam = (zin - drv.source_r_ohm) / (zin + drv.source_r_ohm)
+        vg = math.sqrt(2.0 * drv.pin_avail_w * (1.0 - abs(gam) ** 2) / max((1.0 / zdev).real, 1e-18))
     th = np.linspace(0.0, 2.0 * np.pi, n, endpoint=False)
     u = dev.vgate_bias_v + vg * np.cos(th) - dev.vpk_v
     i = dev.ipk_a * (1.0 + np.tanh(dev.p1_per_v * u + dev.p2_per_v2 * u * u + dev.p3_per_v3 * u * u * u))
