@@ -98,3 +98,4 @@ def test_drive_sweep_end_to_end(tmp_path):
     rows = list(csv.DictReader((tmp_path / "sweep.csv").open()))
     for r in rows:
         assert float(r["pae"]) <= float(r["drain_efficiency"])
+        assert r["am_pm_deg"] != "" and r["conduction_angle_deg"] != ""  # AM-PM and the conduction angle per point

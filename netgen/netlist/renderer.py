@@ -33,7 +33,7 @@ from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 
 __all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
-MODES = ("tran", "ac", "op")
+MODES = ("tran", "ac", "op", "ss")
 #: where an ``ac`` netlist puts its port: the drain terminal (the network alone) or the generator
 PLANES = ("package", "intrinsic")
 DIALECTS = ("ngspice", "portable")
@@ -144,7 +144,7 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
 
 
 def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None,
-                     ic=None, ac_freqs_hz=None, idc_a=None, plane: str = "package") -> dict:
+                     ic=None, ac_freqs_hz=None, idc_a=None, plane: str = "package", ss_port: int = 1) -> dict:
     """The variables a template sees (documented in docs/template_context.md).
 
     Length: one dict literal, entry by entry the documented template context
@@ -238,6 +238,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "ic": ic,
         "tran": {"tstep_s": tmax, "tstop_s": tstop, "tmax_s": tmax, "minbreak_s": 0.01 * tmax},
         "ac": {"points": ac[0], "fstart_hz": ac[1], "fstop_hz": ac[2], "plane": plane},
+        "ss_ports": {"port1": 1.0 if ss_port == 1 else 0.0, "port2": 1.0 if ss_port == 2 else 0.0},
         "comp_branches": comp_branches(sized),
         "idc_a": float(idc_a) if idc_a is not None else sized.idc_est_a,
         "header_lines": _header_lines(sized, mode, dialect),
@@ -402,16 +403,19 @@ def _include(sized: SizedDesign, dialect: str) -> dict:
 
 
 def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None, ic=None,
-           ac_freqs_hz=None, idc_a=None, plane: str = "package") -> str:
+           ac_freqs_hz=None, idc_a=None, plane: str = "package", ss_port: int = 1) -> str:
     """Netlist text for ``sized``.
 
     Parameters
     ----------
     sized : SizedDesign
-    mode : {"tran", "ac", "op"}
+    mode : {"tran", "ac", "op", "ss"}
         Full circuit with the device and ``.tran ... uic``; the passive network driven by
-        ``IPORT 0 drain AC 1`` with ``.ac``; or ``IPORT drain 0 DC idc_a`` with ``.op``
-        (docs/netlist_conventions.md).
+        ``IPORT 0 drain AC 1`` with ``.ac``; ``IPORT drain 0 DC idc_a`` with ``.op``
+        (docs/netlist_conventions.md); or ``ss``: the full circuit of an angelov design
+        linearised at its bias point, ``.ac`` at f0 with an AC source of 1 V at port 1 (VDRIVE,
+        behind the source resistance) or port 2 (VPORT2, in series with RLOAD), ``ss_port``
+        (netgen.studies.small_signal).
     dialect : {"ngspice", "portable"}
     tstop_s : float, optional
         Simulated time, s (default ``sim.max_cycles`` periods).
@@ -438,8 +442,10 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
         raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
     if plane not in PLANES:
         raise RenderError(f"plane: '{plane}' is not one of {', '.join(PLANES)}.")
+    if mode == "ss" and sized.design.device.model != "angelov":
+        raise RenderError("mode: 'ss' (the small-signal two-port) needs device.model = \"angelov\" (a driven gate).")
     ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a,
-                           plane=plane)
+                           plane=plane, ss_port=ss_port)
     d = sized.design
     name = d.topology if d.template_path is None else Path(d.topology).name
     text = _run_template(d, ctx, name)

@@ -16,7 +16,7 @@ from netgen.periodic import fourier
 __all__ = ["angelov_warnings", "conduction_angle_deg", "drive_metrics", "input_side", "input_warnings"]
 
 #: a drain current above this fraction of its peak counts as conducting (conduction_angle_deg)
-CONDUCTION_THRESHOLD = 0.02
+CONDUCTION_THRESHOLD = 0.01
 
 _RLIN = re.compile(r"^(RLIN_\S+)\s+(\S+)\s+(\S+)\s+(\S+)", re.IGNORECASE | re.MULTILINE)
 
@@ -86,7 +86,8 @@ def conduction_angle_deg(i_a: np.ndarray, threshold: float = CONDUCTION_THRESHOL
     on = np.where(x > 0, 1.0, 0.0)
     # a step that crosses the threshold counts the part of it above, by linear interpolation
     cross = (x > 0) != (nxt > 0)
-    frac = np.where(cross, np.where(x > 0, x / (x - nxt), nxt / (nxt - x)), 0.0)
+    den = np.where(cross, x - nxt, 1.0)
+    frac = np.where(cross, np.where(x > 0, x / den, -nxt / den), 0.0)
     share = np.where(cross, frac, 0.5 * (on + np.where(nxt > 0, 1.0, 0.0)))
     return float(360.0 * np.mean(share))
 
