@@ -33,7 +33,9 @@ from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 
 __all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
-MODES = ("tran", "ac", "op", "ss")
+MODES = ("tran", "ac", "op")
+#: the small-signal two-port of a driven angelov design (render only; netgen.studies.small_signal)
+SS_MODE = "ss"
 #: where an ``ac`` netlist puts its port: the drain terminal (the network alone) or the generator
 PLANES = ("package", "intrinsic")
 DIALECTS = ("ngspice", "portable")
@@ -436,8 +438,8 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     RenderError
         For an unknown mode/dialect, a missing or failing template.
     """
-    if mode not in MODES:
-        raise RenderError(f"mode: '{mode}' is not one of {', '.join(MODES)}.")
+    if mode not in (*MODES, SS_MODE):
+        raise RenderError(f"mode: '{mode}' is not one of {', '.join((*MODES, SS_MODE))}.")
     if dialect not in DIALECTS:
         raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
     if plane not in PLANES:
