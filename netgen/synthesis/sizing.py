@@ -397,7 +397,7 @@ def sized_toml_text(sized: SizedDesign) -> str:
     raw = sized.design.raw or {}
     doc = tomlkit.document()
     doc.add(tomlkit.comment(f"Sized design '{sized.design.name}' written by pashape; edit and load again."))
-    doc.add(tomlkit.comment("[network.values] holds every component; each overrides sizing when loaded."))
+    doc.add(tomlkit.comment("[network.values] (and [drive.values], the input network) hold every component; each overrides sizing when loaded."))
     for section, table in raw.items():
         if not isinstance(table, dict):
             continue
@@ -405,9 +405,13 @@ def sized_toml_text(sized: SizedDesign) -> str:
         for key, value in table.items():
             if section == "network" and key in ("values", "match_shunt"):
                 continue
+            if section == "drive" and key == "values" and sized.input_network:
+                continue
             t.add(key, value)
         if section == "network":
             _add_fixed_circuit(t, sized)
+        if section == "drive" and sized.input_network:
+            t.add("values", _values_table(sized, sized.input_network))  # the input network, [drive.values]
         doc.add(section, t)
     if "network" not in raw:
         t = tomlkit.table()
@@ -423,12 +427,13 @@ def _add_fixed_circuit(t, sized: SizedDesign) -> None:
     t.add("values", _values_table(sized))
 
 
-def _values_table(sized: SizedDesign):
-    """``[network.values]``: every component, with how it was obtained as the comment."""
+def _values_table(sized: SizedDesign, comps=None):
+    """``[network.values]`` (or ``comps``, the input network's ``[drive.values]``): every component,
+    with how it was obtained as the comment."""
     import tomlkit
 
     vals = tomlkit.table()
-    for comp in sized.components.values():
+    for comp in (sized.components if comps is None else comps).values():
         item = tomlkit.item(f"{comp.value!r} {comp.unit}")
         item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
         vals.add(comp.name, item)
