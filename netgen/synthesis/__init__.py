@@ -43,6 +43,7 @@ _EXPORTS = {
     "angelov_input_z": "input_match",
     "input_loss_ohm": "input_match",
     "input_network_z": "input_match",
+    "gate_voltage_ratio": "input_match",
     "junction_c": "input_match",
     "pozar_l_section": "input_match",
 }

@@ -16,7 +16,7 @@ from netgen.errors import DesignError, SizingError
 
 from .builder import FEED_X_RATIO
 
-__all__ = ["angelov_bias_point", "angelov_input_z", "input_loss_ohm", "input_network", "input_network_z", "junction_c", "pozar_l_section"]
+__all__ = ["angelov_bias_point", "angelov_input_z", "input_loss_ohm", "input_network", "input_network_z", "gate_voltage_ratio", "junction_c", "pozar_l_section"]
 
 #: thermal voltage kT/q at 27 C (SPICE's default temperature), V
 VT_V = 0.025865
@@ -295,3 +295,34 @@ def input_network_z(design: Design, comps: dict[str, Component], zdev_ohm: compl
         zc = z_of(c)
         z = z + zc if c.name.startswith("in_series") else z * zc / (z + zc)
     return z
+
+
+def gate_voltage_ratio(design: Design, comps: dict[str, Component], zdev_ohm: complex) -> complex:
+    """V(gate) / Vs at f0 through the source resistance and the input network (its losses
+    included) into the device's ``zdev_ohm``: the impedances of :func:`input_network_z` walked
+    from the source to the gate (a series part divides the voltage, a shunt part leaves it)."""
+    w = 2.0 * math.pi * design.f0_hz
+
+    def z_of(c: Component) -> complex:
+        z = 1j * w * c.value if c.kind == "L" else (1.0 / (1j * w * c.value) if c.kind == "C" else complex(c.value))
+        return z + input_loss_ohm(design, c)
+
+    # the chain from the gate outward: (kind, impedance), each entry with the impedance seen beyond it
+    chain = []
+    z = complex(zdev_ohm)
+    if "in_block_c" in comps:
+        zf = z_of(comps["in_feed_l"] if "in_feed_l" in comps else comps["in_feed_r"])
+        z = z * zf / (z + zf)
+        chain.append(("series", z_of(comps["in_block_c"]), z))
+        z = z + z_of(comps["in_block_c"])
+    for c in reversed([c for c in comps.values() if c.role == "input_match"]):
+        zc = z_of(c)
+        if c.name.startswith("in_series"):
+            chain.append(("series", zc, z))
+            z = z + zc
+        else:
+            z = z * zc / (z + zc)
+    ratio = z / (z + design.drive.source_r_ohm)
+    for kind, zc, z_beyond in reversed(chain):
+        ratio *= z_beyond / (z_beyond + zc)
+    return ratio

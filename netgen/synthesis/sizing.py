@@ -63,7 +63,7 @@ from .builder import (
     ropt_from_power,
 )
 from .network import z_drain
-from .input_match import angelov_input_z, input_network, input_network_z
+from .input_match import angelov_input_z, gate_voltage_ratio, input_network
 from .theory import bound_for
 from .topologies import resolve_topology
 
@@ -123,8 +123,10 @@ def size(design: Design) -> SizedDesign:
         how_idc = "Idc = Imax (sin a - a cos a)/(pi (1 - cos a)) (Cripps, reduced conduction angle)"
         if dev.model == "angelov":
             idc, vg = angelov_idc_estimate(design, derived["vdd_eff_v"][0], in_comps, ropt)
-            how_idc = (f"Idc = mean over a period of Ipk (1 + tanh psi(Vgg + Vg cos wt)), Vg = {vg:.4g} V: |Vs| divided by "
-                       "Rs and the gate capacitance Cgs + Cgd (1 + Vdd_eff/Vg) (Miller) at bias (our estimate; docs/devices.md)")
+            how_idc = (f"Idc = mean over a period of Ipk (1 + tanh psi(Vgg + Vg cos wt)), Vg = {vg:.4g} V: " + (
+                       "|Vs| times the voltage ratio through Rs and the input network into the gate's small-signal input at bias"
+                       if in_comps else "|Vs| divided by Rs and the gate capacitance Cgs + Cgd (1 + Vdd_eff/Vg) (Miller) at bias")
+                       + " (our estimate; docs/devices.md)")
         derived["idc_est_a"] = (idc, "A", how_idc)
         pout_est = min(pout, 0.5 * (imax * f1) ** 2 * ropt)
     else:
@@ -298,12 +300,10 @@ def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = 
     for _ in range(30):
         vg = vs / abs(1.0 + 1j * w * drv.source_r_ohm * (cgs + cgd * (1.0 + veff_v / max(vg, 1e-12))))
     if in_comps:
-        # behind an input network (lossless here): the power it passes, Pavail (1 - |Gamma|^2),
-        # all reaches the gate's Re(1/Zdev): |Vg|^2 = 2 P / Re(1/Zdev)
+        # behind an input network: |Vs| times the linear voltage ratio to the gate into the
+        # device's small-signal input at the bias (input_match.gate_voltage_ratio)
         zdev = angelov_input_z(design, z_drain_ohm=ropt_ohm)
-        zin = input_network_z(design, in_comps, zdev)
-        gam = (zin - drv.source_r_ohm) / (zin + drv.source_r_ohm)
-        vg = math.sqrt(2.0 * drv.pin_avail_w * (1.0 - abs(gam) ** 2) / max((1.0 / zdev).real, 1e-18))
+        vg = vs * abs(gate_voltage_ratio(design, in_comps, zdev))
     th = np.linspace(0.0, 2.0 * np.pi, n, endpoint=False)
     u = dev.vgate_bias_v + vg * np.cos(th) - dev.vpk_v
     i = dev.ipk_a * (1.0 + np.tanh(dev.p1_per_v * u + dev.p2_per_v2 * u * u + dev.p3_per_v3 * u * u * u))
