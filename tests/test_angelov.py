@@ -185,6 +185,11 @@ def test_shipped_angelov_designs_pae_and_pin(path):
     assert m["pin_w"] >= 0.0
     assert m["pae"] <= m["drain_efficiency"]
     assert m["pin_w"] <= m["pin_avail_w"] * (1 + 1e-6)  # maximum power transfer (Pozar, sec. 2.6)
+    assert 0.0 <= m["pin_port_w"] <= m["pin_avail_w"] * (1 + 1e-6)
+    # energy conservation across the input network (common practice) and available = delivered +
+    # reflected at f0 (Pozar, sec. 2.6, 11.1): within 1 %
+    assert abs(m["input_balance_error"]) < 0.01
+    assert abs(m["input_avail_balance_error"]) < 0.01
     assert m["gain_transducer_db"] == pytest.approx(10 * math.log10(m["pout_w"] / m["pin_avail_w"]))
     # the drain current is bounded by the law (Ids <= 2 Ipk (1 + lambda Vds), Angelov et al. 1992) plus
     # small capacitive currents; trapezoidal ringing of the Cout current broke this (docs/devices.md)

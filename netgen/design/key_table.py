@@ -109,6 +109,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "drive": {
         "pin": Key("pin_dbm", "dBm", "20 dBm", "angelov device: available power of the gate source, Pavail = |Vs|^2/(8 Rs) (dBm, or W converted to dBm).", lo=-100.0, hi=90.0),
         "source_r": Key("source_r_ohm", "ohm", "50 ohm", "angelov device: source resistance Rs of the gate drive.", lo=0.01, hi=1e6),
+        "match": Key("match", "str", "none", "angelov device: input matching network from the source resistance to the device's input impedance at f0 at the bias point: none (the gate behind the source resistance), lowpass (the L-section with the shunt capacitor) or highpass (the L-section with the shunt inductor; needs drive.bias); Pozar's L-section formulas, docs/devices.md.", choices=("none", "lowpass", "highpass")),
+        "bias": Key("bias", "str", "none", "angelov device: gate bias network: none (the drive source carries device.vgate_bias), choke (an RF choke from a gate-bias supply at device.vgate_bias, with a DC block toward the source) or resistor (a resistor feed, drive.bias_r, with the DC block).", choices=("none", "choke", "resistor")),
+        "bias_r": Key("bias_r_ohm", "ohm", "1 kohm", "angelov device: resistance of the resistor gate feed (drive.bias = resistor).", lo=1.0, hi=1e8),
+        "values": Key("values", "values", {}, "angelov device: explicit values of the input network by name (in_series_l, in_shunt_c, in_block_c, in_feed_l, in_feed_r ...; `pashape size` lists them); they override sizing."),
     },
     "network": {
         "loaded_q": Key("loaded_q", "", 5.0, "Loaded Q of the f0 tank / series-tuned output (sets tank L and C).", lo=0.5, hi=1000.0),

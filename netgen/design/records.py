@@ -80,6 +80,10 @@ class SizedDesign:
         Expected DC supply current (for the warm start), A.
     pout_est_w : float
         Expected fundamental load power at the ideal bound, W.
+    input_network : Mapping[str, Component]
+        The gate side of a driven device (angelov: the input match, DC block and gate feed,
+        netgen.synthesis.input_match), in circuit order from the source to the gate; empty
+        without one. Not part of ``components`` (the output network).
     """
 
     design: Design
@@ -88,6 +92,7 @@ class SizedDesign:
     derived: Mapping[str, tuple] = field(default_factory=dict)
     idc_est_a: float = 0.0
     pout_est_w: float = 0.0
+    input_network: Mapping[str, Component] = field(default_factory=dict)
 
     def value(self, name: str) -> float:
         """SI value of component ``name``."""
@@ -101,6 +106,8 @@ class SizedDesign:
             "components": [(c.name, c.kind, repr(c.value), c.role, c.lossy) for c in self.components.values()],
             "derived": {k: repr(v[0]) for k, v in sorted(self.derived.items())},
         }
+        if self.input_network:
+            payload["input_network"] = [(c.name, c.kind, repr(c.value), c.role) for c in self.input_network.values()]
         return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:16]
 
 

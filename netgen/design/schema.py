@@ -106,6 +106,17 @@ class DriveSpec:
 
     pin_dbm: float = 20.0
     source_r_ohm: float = 50.0
+    match: str = "none"
+    bias: str = "none"
+    bias_r_ohm: float = 1000.0
+    values: dict = field(default_factory=dict)
+
+    def __repr__(self) -> str:
+        # the input-network keys appear only where set, so the sized-design digest of a design
+        # without them (SizedDesign.digest, the goldens' sized_digest) is what it was before them
+        extra = "".join(f", {k}={getattr(self, k)!r}" for k, d in (("match", "none"), ("bias", "none"),
+                        ("bias_r_ohm", 1000.0), ("values", {})) if getattr(self, k) != d)
+        return f"DriveSpec(pin_dbm={self.pin_dbm!r}, source_r_ohm={self.source_r_ohm!r}{extra})"
 
     @property
     def pin_avail_w(self) -> float:

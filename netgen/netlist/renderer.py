@@ -34,6 +34,8 @@ from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 __all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
 MODES = ("tran", "ac", "op")
+#: the small-signal two-port of a driven angelov design (render only; netgen.studies.small_signal)
+SS_MODE = "ss"
 #: where an ``ac`` netlist puts its port: the drain terminal (the network alone) or the generator
 PLANES = ("package", "intrinsic")
 DIALECTS = ("ngspice", "portable")
@@ -149,7 +151,7 @@ def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
 
 
 def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None,
-                     ic=None, ac_freqs_hz=None, idc_a=None, plane: str = "package") -> dict:
+                     ic=None, ac_freqs_hz=None, idc_a=None, plane: str = "package", ss_port: int = 1) -> dict:
     """The variables a template sees (documented in docs/template_context.md).
 
     Length: one dict literal, entry by entry the documented template context
@@ -217,7 +219,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         imax = sized.derived["imax_a"][0]
         device.update(imax_a=imax, vg_bias=-math.cos(alpha), gm_a_per_v=imax / (1.0 - math.cos(alpha)))
     elif dev.model == "angelov":
-        device["angelov"] = _angelov_ctx(d)
+        device["angelov"] = _angelov_ctx(d, sized)
     else:
         pins = {"drain": "dsw", "gate": "gate", "source": "0"}
         device["nodes"] = " ".join(pins[p] for p in dev.pins)
@@ -243,6 +245,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "ic": ic,
         "tran": {"tstep_s": tmax, "tstop_s": tstop, "tmax_s": tmax, "minbreak_s": 0.01 * tmax},
         "ac": {"points": ac[0], "fstart_hz": ac[1], "fstop_hz": ac[2], "plane": plane},
+        "ss_ports": {"port1": 1.0 if ss_port == 1 else 0.0, "port2": 1.0 if ss_port == 2 else 0.0},
         "comp_branches": comp_branches(sized),
         "idc_a": float(idc_a) if idc_a is not None else sized.idc_est_a,
         "header_lines": _header_lines(sized, mode, dialect),
@@ -252,10 +255,49 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
     }
 
 
-def _angelov_ctx(design) -> dict:
+def _input_ctx(sized: SizedDesign) -> dict | None:
+    """The input network's netlist lines (templates/devices.j2 ``angelov``), source side first:
+    ``elements`` (element, nodes a/b, value, series loss ``rloss`` as an ``RLIN_<name>`` resistor,
+    the DC block's initial voltage), ``gx`` (the node before the gate sense VIGATE), ``bias``
+    (whether a gate-bias supply VGG feeds gx). None without an input network (docs/devices.md)."""
+    from netgen.synthesis import input_loss_ohm
+
+    comps = sized.input_network
+    if not comps:
+        return None
+    d = sized.design
+    has_block = "in_block_c" in comps
+    end = "gm" if has_block else "gx"
+    elements = []
+    match = [c for c in comps.values() if c.role == "input_match"]
+    node = "gin"
+    for k, c in enumerate(match):
+        series = c.name.startswith("in_series")
+        b = (end if k == len(match) - 1 else "gmid") if series else "0"
+        elements.append({"name": c.name, "element": f"{c.kind}_{c.name[:-2]}", "a": node, "b": b,
+                         "value": c.value, "rloss": input_loss_ohm(d, c), "ic": None})
+        if series:
+            node = b
+    if not match:  # bias network only: the block straight from the source
+        end = "gin"
+    if has_block:
+        c = comps["in_block_c"]
+        # its DC voltage from the start: v(source side) - v(gate side) = 0 - Vgg (the source carries no DC)
+        elements.append({"name": c.name, "element": "C_in_block", "a": end, "b": "gx", "value": c.value,
+                         "rloss": input_loss_ohm(d, c), "ic": -d.device.vgate_bias_v})
+        feed = comps.get("in_feed_l") or comps.get("in_feed_r")
+        elements.append({"name": feed.name, "element": f"{feed.kind}_in_feed", "a": "vgg", "b": "gx",
+                         "value": feed.value, "rloss": 0.0, "ic": None})
+    elif node != "gx":
+        raise RenderError("drive.match: the input network does not end at the gate; give its values in [drive.values].")
+    return {"elements": elements, "bias": has_block}
+
+
+def _angelov_ctx(design, sized: SizedDesign | None = None) -> dict:
     """Template values of the angelov device (templates/devices.j2 ``angelov``): its parameters,
     the intrinsic node names (``adi``/``asi`` behind Rd/Rs, else ``dsw``/ground), the control
-    voltages as B-source text and the gate source amplitude from drive.pin (docs/devices.md)."""
+    voltages as B-source text, the gate source amplitude from drive.pin and the input network
+    (:func:`_input_ctx`; docs/devices.md)."""
     dev, drv = design.device, design.drive
     di = "adi" if dev.rd_ohm > 0 else "dsw"
     si = "asi" if dev.rs_ohm > 0 else "0"
@@ -268,6 +310,7 @@ def _angelov_ctx(design) -> dict:
         "vds": f"v({di})" if si == "0" else f"v({di},{si})",
         "u": f"({'v(gate)' if si == '0' else f'v(gate,{si})'}-({_fmt(dev.vpk_v)}))",
         "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
+        "input": _input_ctx(sized) if sized is not None else None,
     }
 
 
@@ -367,16 +410,19 @@ def _include(sized: SizedDesign, dialect: str) -> dict:
 
 
 def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, tstop_s=None, ic=None,
-           ac_freqs_hz=None, idc_a=None, plane: str = "package") -> str:
+           ac_freqs_hz=None, idc_a=None, plane: str = "package", ss_port: int = 1) -> str:
     """Netlist text for ``sized``.
 
     Parameters
     ----------
     sized : SizedDesign
-    mode : {"tran", "ac", "op"}
+    mode : {"tran", "ac", "op", "ss"}
         Full circuit with the device and ``.tran ... uic``; the passive network driven by
-        ``IPORT 0 drain AC 1`` with ``.ac``; or ``IPORT drain 0 DC idc_a`` with ``.op``
-        (docs/netlist_conventions.md).
+        ``IPORT 0 drain AC 1`` with ``.ac``; ``IPORT drain 0 DC idc_a`` with ``.op``
+        (docs/netlist_conventions.md); or ``ss``: the full circuit of an angelov design
+        linearised at its bias point, ``.ac`` at f0 with an AC source of 1 V at port 1 (VDRIVE,
+        behind the source resistance) or port 2 (VPORT2, in series with RLOAD), ``ss_port``
+        (netgen.studies.small_signal).
     dialect : {"ngspice", "portable"}
     tstop_s : float, optional
         Simulated time, s (default ``sim.max_cycles`` periods).
@@ -397,14 +443,16 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
     RenderError
         For an unknown mode/dialect, a missing or failing template.
     """
-    if mode not in MODES:
-        raise RenderError(f"mode: '{mode}' is not one of {', '.join(MODES)}.")
+    if mode not in (*MODES, SS_MODE):
+        raise RenderError(f"mode: '{mode}' is not one of {', '.join((*MODES, SS_MODE))}.")
     if dialect not in DIALECTS:
         raise RenderError(f"dialect: '{dialect}' is not one of {', '.join(DIALECTS)}.")
     if plane not in PLANES:
         raise RenderError(f"plane: '{plane}' is not one of {', '.join(PLANES)}.")
+    if mode == "ss" and sized.design.device.model != "angelov":
+        raise RenderError("mode: 'ss' (the small-signal two-port) needs device.model = \"angelov\" (a driven gate).")
     ctx = template_context(sized, mode, dialect, tstop_s=tstop_s, ic=ic, ac_freqs_hz=ac_freqs_hz, idc_a=idc_a,
-                           plane=plane)
+                           plane=plane, ss_port=ss_port)
     d = sized.design
     name = d.topology if d.template_path is None else Path(d.topology).name
     text = _run_template(d, ctx, name)

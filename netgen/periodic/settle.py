@@ -293,6 +293,8 @@ class SettleCheck:
                  "idrain": "vidrain#branch", "gate": "gate", "igate": "vdrive#branch"}
         names.update({f"x:{v}": v for v in self.extra})
         new = {k: np.asarray(vecs[v], dtype=float) for k, v in names.items() if v in vecs}
+        if "vigate#branch" in vecs:  # behind an input network: the gate's own current (sign of vdrive#branch)
+            new["igate"] = -np.asarray(vecs["vigate#branch"], dtype=float)
         if self._buf is None:
             self._buf = new
             return

@@ -106,13 +106,15 @@ def _save_list(elements: dict) -> tuple[list[str], list[str]]:
     all_nodes = {t.lower() for toks in elements.values() for t in toks[1:3]}
     if "gate" in all_nodes:
         nodes.add("gate")
+    if "gin" in all_nodes:  # the input port of an input network (docs/devices.md)
+        nodes.add("gin")
     if "dint" in all_nodes:  # the generator node: the intrinsic plane (docs/netlist_conventions.md)
         nodes.add("dint")
     for key, toks in elements.items():
         # the loss resistors, and every inductor and capacitor (part stress, netgen.results.stress)
-        if key.startswith("RLOSS_") or key[:1].upper() in "LC":
+        if key.startswith(("RLOSS_", "RLIN_")) or key[:1].upper() in "LC":
             nodes.update(t.lower() for t in toks[1:3] if t not in ("0", "gnd"))
-    branches = [f"{s.lower()}#branch" for s in ("VDD", "VIDRAIN", "VISW", "VDRIVE") if s in elements]
+    branches = [f"{s.lower()}#branch" for s in ("VDD", "VIDRAIN", "VISW", "VDRIVE", "VIGATE") if s in elements]
     branches += sorted(f"{k.lower()}#branch" for k in elements if k[:1].upper() == "L")
     return sorted(nodes), branches
 
@@ -136,7 +138,9 @@ def _final_waveforms(vecs, f0_hz: float, ppc: int, nodes: list[str], elements: d
     if "vdd#branch" in vecs:
         i["supply"] = -np.interp(grid, t, vecs["vdd#branch"])
     if "vdrive#branch" in vecs:
-        i["gate"] = -np.interp(grid, t, vecs["vdrive#branch"])
+        i["gate"] = i["source"] = -np.interp(grid, t, vecs["vdrive#branch"])
+    if "vigate#branch" in vecs:  # behind an input network: the gate's own current (docs/devices.md)
+        i["gate"] = np.interp(grid, t, vecs["vigate#branch"])
     for name in elements:  # inductor currents, keyed by element name (first node to second)
         if name[:1].upper() == "L" and f"{name.lower()}#branch" in vecs:
             i[name] = np.interp(grid, t, vecs[f"{name.lower()}#branch"])
@@ -160,6 +164,7 @@ FOURIER_VECTORS = {
     "drain_v": ("drain", 1.0), "int_v": ("dint", 1.0), "load_v": ("load", 1.0), "vdd_v": ("vdd", 1.0), "gate_v": ("gate", 1.0),
     "drain_i": ("vidrain#branch", 1.0), "switch_i": ("visw#branch", 1.0),
     "supply_i": ("vdd#branch", -1.0), "gate_i": ("vdrive#branch", -1.0),
+    "gin_v": ("gin", 1.0), "gate_dev_i": ("vigate#branch", 1.0),
 }
 
 
@@ -197,7 +202,8 @@ def window_fourier(t: np.ndarray, vecs, start_s: float, period_s: float, periods
 
 #: Waveforms.i key -> (saved branch vector, sign)
 _CURRENTS = {"drain": ("vidrain#branch", 1.0), "switch": ("visw#branch", 1.0),
-             "supply": ("vdd#branch", -1.0), "gate": ("vdrive#branch", -1.0)}
+             "supply": ("vdd#branch", -1.0), "gate": ("vdrive#branch", -1.0), "source": ("vdrive#branch", -1.0),
+             "gate_dev": ("vigate#branch", 1.0)}
 
 
 def window_points(t: np.ndarray, vecs, nodes: list[str], start_s: float, end_s: float) -> dict:
@@ -224,6 +230,8 @@ def window_points(t: np.ndarray, vecs, nodes: list[str], start_s: float, end_s: 
     for key, (name, sign) in _CURRENTS.items():
         if name in vecs:
             out[f"i:{key}"] = sign * cut(vecs[name])
+    if "i:gate_dev" in out:  # behind an input network "gate" is the gate's own current
+        out["i:gate"] = out.pop("i:gate_dev")
     return out
 
 

@@ -26,7 +26,7 @@ from netgen.netlist import parse_spice_number
 from netgen.periodic import fourier, periods_in, pwl_mean_product, pwl_point_energy
 from netgen.synthesis import COUT_Q_WARN, bound_for
 
-from .drive import angelov_warnings, drive_metrics
+from .drive import angelov_warnings, conduction_angle_deg, drive_metrics, input_side, input_warnings
 from .planes import PLANES, intrinsic_columns, plane_warnings
 from .stress import buildability_warnings, part_stress, stress_summary
 
@@ -398,9 +398,11 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
     if "gate" in win.v and "gate" in win.i:
         pin = win.mean_product(win.v["gate"], win.i["gate"])
 
+    inside = input_side(win, exact, wf, design, netlist_text, pin, pout, complex(VL[1]), periods)
+    pin_amp = inside["pin_port_w"] if inside["pin_port_w"] is not None else pin  # into the amplifier's input
     eff = pout / pdc if pdc > 0 else None
-    pae = (pout - pin) / pdc if (pin is not None and pdc > 0) else None
-    if pin is not None and pin < 0:
+    pae = (pout - pin_amp) / pdc if (pin_amp is not None and pdc > 0) else None
+    if pin_amp is not None and pin_amp < 0:
         pae = None  # the drive source absorbs power: no added-power figure (design_warnings says why)
     table = _harmonic_table(V, I, pload_n, n_h)
     v_int, i_gen = _intrinsic_coefficients(wf, exact, periods, n_h, V, I)
@@ -447,7 +449,9 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
         "pin_w": _f(pin),
         "drain_efficiency": _f(eff),
         "pae": _f(pae),
-        **drive_metrics(design, pout, pin),
+        **drive_metrics(design, pout, pin_amp),
+        **inside,
+        "conduction_angle_deg": _f(conduction_angle_deg(wf.i.get("switch", idr))) if design.device.model != "switch" else None,
         "peak_vd_v": _f(vd_max),
         "peak_vd_over_vdd": _f(vd_max / vdd),
         "min_vd_v": _f(vd_min),
@@ -470,7 +474,8 @@ def analyse(wf, sized, netlist_text: str, *, harmonics: int | None = None, engin
                          for k, r in part_stress(wf, netlist_text, losses).items()}
     metrics.update({k: (_f(v) if isinstance(v, float) else v) for k, v in stress_summary(metrics["stress"]).items()})
     metrics["warnings"] = (([impossible] if impossible else []) + design_warnings(sized, metrics)
-                           + plane_warnings(sized, metrics) + buildability_warnings(sized) + angelov_warnings(design))
+                           + plane_warnings(sized, metrics) + buildability_warnings(sized) + angelov_warnings(design)
+                           + input_warnings(metrics))
     q = (sized.derived or {}).get("cout_q")
     if q and q[0] > COUT_Q_WARN:
         metrics["warnings"].append(f"the device capacitance has a Q of {q[0]:.3g} at f0 (omega0 (Cout + Cp) Ropt), absorbed by "

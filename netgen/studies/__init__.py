@@ -8,7 +8,7 @@ study, Monte Carlo draws, the summary), ``execute``
 (running points), ``store`` (the SQLite store, CSV), ``plots`` (sweep figures), ``fast`` (metrics from
 the periodic estimate alone, confirmed in ngspice), ``tune`` (bounded optimisation toward targets),
 ``loadpull`` (harmonic load-pull at the intrinsic plane), ``closure_plots`` (their figures),
-``compression`` (P1dB and P3dB of a drive sweep).
+``compression`` (P1dB and P3dB of a drive sweep), ``small_signal`` (the linearised two-port's S-parameters, scikit-rf).
 """
 
 from netgen.lazy import lazy_exports
@@ -22,6 +22,7 @@ _EXPORTS = {
     "confirm_sample": "fast",
     "compression_points": "compression",
     "drive_compression": "compression",
+    "small_signal_two_port": "small_signal",
     "evaluate_estimate": "fast",
     "evaluate_fast": "fast",
     "evaluate_ngspice": "fast",

@@ -254,7 +254,8 @@ def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path) -> Path:
 
 
 def plot_drive(rows: Sequence[dict], path: Path) -> Path:
-    """A drive sweep (axis drive.pin, dBm): Pout (dBm), transducer gain (dB), drain efficiency and
+    """A drive sweep (axis drive.pin, dBm): Pout (dBm), transducer gain (dB, AM-AM) with the AM-PM
+    (the output phase change from the lowest drive, degrees, on its own axis), drain efficiency and
     PAE (%) against the available input power, with P1dB and P3dB marked where reached
     (netgen.studies.compression)."""
     from .compression import DRIVE_AXIS, drive_compression
@@ -267,8 +268,20 @@ def plot_drive(rows: Sequence[dict], path: Path) -> Path:
     fig, axes = plt.subplots(3, 1, figsize=(6.4, 6.6), sharex=True)
     axes[0].plot(x, pout_dbm, "o-", color="#1f4e79", ms=4, lw=1.2)
     axes[0].set_ylabel("output power (dBm)", fontsize=8)
-    axes[1].plot(x, pout_dbm - x, "o-", color="#7a3b00", ms=4, lw=1.2)
+    axes[1].plot(x, pout_dbm - x, "o-", color="#7a3b00", ms=4, lw=1.2, label="gain (AM-AM)")
     axes[1].set_ylabel("transducer gain (dB)", fontsize=8)
+    _, phase = line_data(rows, DRIVE_AXIS, "am_pm_deg")
+    ok = np.isfinite(phase)
+    if ok.any():
+        # AM-PM: the output's phase against the incident wave, relative to the lowest drive (unwrapped)
+        unwrapped = np.full_like(phase, np.nan)
+        unwrapped[ok] = np.degrees(np.unwrap(np.radians(phase[ok])))
+        twin = axes[1].twinx()
+        twin.plot(x, unwrapped - unwrapped[ok][0], "d:", color="#6a1b9a", ms=4, lw=1.2, label="phase (AM-PM)")
+        twin.set_ylabel("AM-PM, phase change (deg)", fontsize=8, color="#6a1b9a")
+        twin.tick_params(axis="y", labelsize=7, colors="#6a1b9a")
+        lines = axes[1].get_lines() + twin.get_lines()
+        axes[1].legend(lines, [ln.get_label() for ln in lines], fontsize=7, loc="lower left")
     axes[2].plot(x, eff * 100.0, "o-", color="#1f4e79", ms=4, lw=1.2, label="drain efficiency")
     axes[2].plot(x, pae * 100.0, "s--", color="#2e7d32", ms=4, lw=1.2, label="PAE")
     axes[2].set_ylabel("efficiency (%)", fontsize=8)

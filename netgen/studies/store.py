@@ -50,7 +50,8 @@ STRESS_COLUMNS = ("stress_cap_v_peak_v", "stress_cap_v_peak_part", "stress_ind_i
                   "stress_max_loss_w", "stress_max_loss_part")
 #: metrics copied into their own columns
 KEY_COLUMNS = ("drain_efficiency", "pae", "pout_w", "pdc_w", "pin_w", "peak_vd_v", "peak_vd_over_vdd", "min_vd_v",
-               "peak_id_a", "device_dissipation_w", "pin_avail_w", "gain_transducer_db", "gain_power_db")
+               "peak_id_a", "device_dissipation_w", "pin_avail_w", "gain_transducer_db", "gain_power_db",
+               "pin_port_w", "am_pm_deg", "conduction_angle_deg")
 STATUSES = ("ok", "not_settled", "failed", "lost")
 #: statuses of a point with a result (the design's verdict); ``lost`` is not one of them
 RESULT_STATUSES = ("ok", "not_settled", "failed")

@@ -44,6 +44,13 @@ _EXPORTS = {
     "z_drain": "network",
     "z_drain_with_section": "network",
     "abcd_section": "network",
+    "angelov_bias_point": "input_match",
+    "angelov_input_z": "input_match",
+    "input_loss_ohm": "input_match",
+    "input_network_z": "input_match",
+    "gate_voltage_ratio": "input_match",
+    "junction_c": "input_match",
+    "pozar_l_section": "input_match",
 }
 
 __all__ = sorted(_EXPORTS)

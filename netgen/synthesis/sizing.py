@@ -63,6 +63,7 @@ from .builder import (
     ropt_from_power,
 )
 from .network import z_drain
+from .input_match import angelov_input_z, gate_voltage_ratio, input_network
 from .theory import bound_for
 from .topologies import resolve_topology
 
@@ -110,6 +111,8 @@ def size(design: Design) -> SizedDesign:
         "pout_est_w": (pout, "W", f"P = a Vdd_eff^2/R with a = {a:.6g} (class {cls})"),
     }
     dev = design.device
+    in_comps, in_derived = input_network(design, ropt)
+    derived.update(in_derived)
     if dev.model in ("gm", "angelov"):
         fdc, f1 = conduction_fourier(dev.conduction_angle_deg)
         v1 = math.sqrt(2.0 * pout * ropt)
@@ -124,9 +127,11 @@ def size(design: Design) -> SizedDesign:
         idc = imax * fdc
         how_idc = "Idc = Imax (sin a - a cos a)/(pi (1 - cos a)) (Cripps, reduced conduction angle)"
         if dev.model == "angelov":
-            idc, vg = angelov_idc_estimate(design, derived["vdd_eff_v"][0])
-            how_idc = (f"Idc = mean over a period of Ipk (1 + tanh psi(Vgg + Vg cos wt)), Vg = {vg:.4g} V: |Vs| divided by "
-                       "Rs and the gate capacitance Cgs + Cgd (1 + Vdd_eff/Vg) (Miller) at bias (our estimate; docs/devices.md)")
+            idc, vg = angelov_idc_estimate(design, derived["vdd_eff_v"][0], in_comps, ropt)
+            how_idc = (f"Idc = mean over a period of Ipk (1 + tanh psi(Vgg + Vg cos wt)), Vg = {vg:.4g} V: " + (
+                       "|Vs| times the voltage ratio through Rs and the input network into the gate's small-signal input at bias"
+                       if in_comps else "|Vs| divided by Rs and the gate capacitance Cgs + Cgd (1 + Vdd_eff/Vg) (Miller) at bias")
+                       + " (our estimate; docs/devices.md)")
         derived["idc_est_a"] = (idc, "A", how_idc)
         pout_est = min(pout, 0.5 * (imax * f1) ** 2 * ropt)
     else:
@@ -154,7 +159,7 @@ def size(design: Design) -> SizedDesign:
         derived["bias_damping"] = (design.load_ohm / (2.0 * zb), "",
                                    f"zeta ~ RL/(2 sqrt(L_feed/C_{cb_name[:-2]})): a series loop closed through roughly RL (estimate)")
     return SizedDesign(design=design, ropt_ohm=ropt, components=comps, derived=derived,
-                       idc_est_a=idc, pout_est_w=pout_est)
+                       idc_est_a=idc, pout_est_w=pout_est, input_network=in_comps)
 
 
 #: above this omega0 Cout Ropt the absorbed Cout makes a narrowband, loss-sensitive network (our rule)
@@ -276,7 +281,8 @@ def switch_dc_estimate(sized: SizedDesign, pout_w: float, veff_v: float) -> dict
     return {"idc_a": idc, "pfund_w": pfund, "pcap_w": pcap, "eta_bound": bound, "how": how}
 
 
-def angelov_idc_estimate(design: Design, veff_v: float, n: int = 720) -> tuple[float, float]:
+def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = None, ropt_ohm: float | None = None,
+                         n: int = 720) -> tuple[float, float]:
     """(Idc in A, gate amplitude Vg in V) of the angelov device for the warm start.
 
     The gate amplitude is the source's |Vs| divided by its resistance and the input capacitance at
@@ -298,6 +304,11 @@ def angelov_idc_estimate(design: Design, veff_v: float, n: int = 720) -> tuple[f
     vg = vs
     for _ in range(30):
         vg = vs / abs(1.0 + 1j * w * drv.source_r_ohm * (cgs + cgd * (1.0 + veff_v / max(vg, 1e-12))))
+    if in_comps:
+        # behind an input network: |Vs| times the linear voltage ratio to the gate into the
+        # device's small-signal input at the bias (input_match.gate_voltage_ratio)
+        zdev = angelov_input_z(design, z_drain_ohm=ropt_ohm)
+        vg = vs * abs(gate_voltage_ratio(design, in_comps, zdev))
     th = np.linspace(0.0, 2.0 * np.pi, n, endpoint=False)
     u = dev.vgate_bias_v + vg * np.cos(th) - dev.vpk_v
     i = dev.ipk_a * (1.0 + np.tanh(dev.p1_per_v * u + dev.p2_per_v2 * u * u + dev.p3_per_v3 * u * u * u))
@@ -391,7 +402,7 @@ def sized_toml_text(sized: SizedDesign) -> str:
     raw = sized.design.raw or {}
     doc = tomlkit.document()
     doc.add(tomlkit.comment(f"Sized design '{sized.design.name}' written by pashape; edit and load again."))
-    doc.add(tomlkit.comment("[network.values] holds every component; each overrides sizing when loaded."))
+    doc.add(tomlkit.comment("[network.values] (and [drive.values], the input network) hold every component; each overrides sizing when loaded."))
     for section, table in raw.items():
         if not isinstance(table, dict):
             continue
@@ -399,9 +410,13 @@ def sized_toml_text(sized: SizedDesign) -> str:
         for key, value in table.items():
             if section == "network" and key in ("values", "match_shunt"):
                 continue
+            if section == "drive" and key == "values" and sized.input_network:
+                continue
             t.add(key, value)
         if section == "network":
             _add_fixed_circuit(t, sized)
+        if section == "drive" and sized.input_network:
+            t.add("values", _values_table(sized, sized.input_network))  # the input network, [drive.values]
         doc.add(section, t)
     if "network" not in raw:
         t = tomlkit.table()
@@ -417,12 +432,13 @@ def _add_fixed_circuit(t, sized: SizedDesign) -> None:
     t.add("values", _values_table(sized))
 
 
-def _values_table(sized: SizedDesign):
-    """``[network.values]``: every component, with how it was obtained as the comment."""
+def _values_table(sized: SizedDesign, comps=None):
+    """``[network.values]`` (or ``comps``, the input network's ``[drive.values]``): every component,
+    with how it was obtained as the comment."""
     import tomlkit
 
     vals = tomlkit.table()
-    for comp in sized.components.values():
+    for comp in (sized.components if comps is None else comps).values():
         item = tomlkit.item(f"{comp.value!r} {comp.unit}")
         item.comment(f"{format_quantity(comp.value, comp.unit)}: {comp.how}")
         vals.add(comp.name, item)
