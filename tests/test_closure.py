@@ -151,6 +151,13 @@ def test_sweep_fast_confirms_a_sample(netgen_cli, tmp_path):
     conf = json.loads((tmp_path / "s" / "summary.json").read_text())["confirmation"]
     assert conf["confirmed"] == 2 and conf["flagged"] == 0
     assert conf["worst_pout_rel"] < fast.CONFIRM_TOL
+    # the CSV says which engine computed each row and which rows were confirmed (docs/sweeps.md)
+    import csv
+
+    with open(tmp_path / "s" / "sweep.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 6 and {r["engine"] for r in rows} == {"estimate"}
+    assert sorted(r["confirmation"] for r in rows) == ["", "", "", "", "confirmed", "confirmed"]
 
 
 # ---------------------------------------------------------------- the drive on the fast path
