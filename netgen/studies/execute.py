@@ -55,7 +55,8 @@ _NOMINAL_MAX = 16
 def _nominal(doc: dict, source: Path | None, where: str, sizer: Callable | None, sized_too: bool):
     """(Design, SizedDesign or None) of a point's unscaled document, validated and sized once per
     document in this process (the key is the document's canonical JSON and the sizer)."""
-    key = json.dumps([doc, str(source), getattr(sizer, "__qualname__", None)], sort_keys=True, default=str)
+    who = None if sizer is None else f"{getattr(sizer, '__module__', '')}.{getattr(sizer, '__qualname__', id(sizer))}"
+    key = json.dumps([doc, str(source), who], sort_keys=True, default=str)
     hit = _NOMINAL.get(key)
     if hit is None or (sized_too and hit[1] is None):
         design = hit[0] if hit is not None else design_from_dict(doc, source=source, where=where)
