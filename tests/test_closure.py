@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pytest
 
 from netgen.design import design_from_dict, load_design
@@ -150,3 +151,67 @@ def test_sweep_fast_confirms_a_sample(netgen_cli, tmp_path):
     conf = json.loads((tmp_path / "s" / "summary.json").read_text())["confirmation"]
     assert conf["confirmed"] == 2 and conf["flagged"] == 0
     assert conf["worst_pout_rel"] < fast.CONFIRM_TOL
+    # the CSV says which engine computed each row and which rows were confirmed (docs/sweeps.md)
+    import csv
+
+    with open(tmp_path / "s" / "sweep.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 6 and {r["engine"] for r in rows} == {"estimate"}
+    assert sorted(r["confirmation"] for r in rows) == ["", "", "", "", "confirmed", "confirmed"]
+
+
+# ---------------------------------------------------------------- the drive on the fast path
+
+def _gm_design(**device):
+    doc = load_design(SIMS / "class_b_tuned.toml").raw
+    doc = {**doc, "device": {**doc["device"], **device}}
+    return design_from_dict(doc)
+
+
+def test_gm_drive_power_on_the_fast_path_is_the_closed_form():
+    # the gm gate: VDRIVE gate 0 SIN(Vb Va f0) into RGIN; the mean power of a DC plus a sinusoid in a
+    # resistor is Vb^2/R + Va^2/(2R) (Fourier: Parseval; common practice)
+    from netgen.netlist import read_cards, render
+
+    design = _gm_design(conduction_angle="120 deg", rgate="25 ohm", drive=1.5)
+    m = fast.evaluate_estimate(design)
+    cards = {c.name: c.tokens for c in read_cards(render(size(design), mode="tran"))}
+    vb, va = float(cards["VDRIVE"][3].split("(")[1]), float(cards["VDRIVE"][4])  # SIN(Vb Va f0)
+    assert vb != 0.0
+    assert m["pin_w"] == pytest.approx(vb**2 / 25.0 + va**2 / 50.0, rel=1e-9)
+    # PAE = (Pout - Pin)/Pdc (docs/metrics.md)
+    assert m["pae"] == pytest.approx((m["pout_w"] - m["pin_w"]) / m["pdc_w"], rel=1e-12)
+
+
+class _State:
+    def __init__(self, points):
+        self.series, self.points, self.t0_s = {}, points, 0.0
+
+
+def test_gate_capacitance_draws_no_mean_power_and_other_gate_circuits_run_in_ngspice():
+    from netgen.netlist import Unsupported
+
+    base = "* title line\nVDRIVE gate 0 SIN(0.2 1 1e9)\nRGIN gate 0 50\n"
+    vg, ig = fast._gate_drive(base, _State(400), 1e-9)
+    vg2, ig2 = fast._gate_drive(base + "CGIN gate 0 1p\n", _State(400), 1e-9)
+    # a capacitor's current is in quadrature with its voltage (no mean power; common practice), and at
+    # f0 its amplitude is omega C V within the trapezoidal rule's warp (tan(pi/M)/(pi/M) - 1 ~ 2e-5 here)
+    assert np.mean(vg2 * ig2) == pytest.approx(np.mean(vg * ig), rel=1e-9)
+    ic = np.fft.rfft(ig2 - ig)[1] / 200
+    assert abs(ic) == pytest.approx(2 * np.pi * 1e9 * 1e-12 * 1.0, rel=1e-4)
+    assert fast._gate_drive("* title line\nVDD vdd 0 DC 24\n", _State(400), 1e-9) is None
+    with pytest.raises(Unsupported, match="gate circuit"):
+        fast._gate_drive(base + "DCGS gate x DMOD\n", _State(400), 1e-9)
+
+
+@pytest.mark.ngspice
+def test_gm_fast_path_pin_and_pae_agree_with_ngspice():
+    # the same metrics contract from both engines (docs/closure.md): Pin and PAE of the gm device
+    # within the confirmation bound of 0.2 %
+    design = _gm_design(conduction_angle="160 deg")
+    est, full = fast.evaluate_estimate(design), fast.evaluate_ngspice(design)
+    assert est["engine"] == "estimate" and full["engine"] == "ngspice"
+    assert full["pin_w"] and est["pin_w"] == pytest.approx(full["pin_w"], rel=fast.CONFIRM_TOL)
+    assert est["pae"] == pytest.approx(full["pae"], rel=fast.CONFIRM_TOL)
+    for key in ("pin_avail_w", "gain_power_db", "gain_transducer_db"):  # the gm device has no source resistance
+        assert est[key] is None and full[key] is None

@@ -140,8 +140,121 @@ def test_loadpull_command(netgen_cli, tmp_path):
     doc = {"design": {"name": "lp_cli", "topology": "class_f_line", "f0": "915 MHz", "vdd": "24 V", "pout": "8 W"}}
     path = write_toml(tmp_path / "d.toml", doc)
     code, out, err = netgen_cli("loadpull", path, "--z1", "grid:3", "--z3", "open", "--points", "64", "--quiet",
-                                "--no-plots", "-o", tmp_path / "lp")
+                                "--no-plots", "--no-confirm", "-o", tmp_path / "lp")
     assert code == 0, err
-    assert "efficiency optimum" in out
+    assert "efficiency optimum" in out and "no load-pull point confirmed" in out
+    code, out, err = netgen_cli("loadpull", path, "--confirm", "-1", "-o", tmp_path / "lp3")
+    assert code == 2 and "--confirm" in err and "Traceback" not in err
     code, out, err = netgen_cli("loadpull", path, "--z2", "ring:2:4", "-o", tmp_path / "lp2")
     assert code == 2 and err.startswith("Error: --z2") and "Traceback" not in err
+
+
+# ---------------------------------------------------------------- confirmation in ngspice
+
+def _one_port_z(netlist: str, f_hz: float) -> complex:
+    """Impedance from the drain to ground of a confirmation netlist at ``f_hz``: nodal analysis of
+    its R, L, C parts (Kirchhoff's current law, one equation a node; common practice) with the
+    supply and the 0 V senses as shorts, the device removed and 1 A injected at the drain."""
+    from netgen.netlist import read_cards, spice_value
+
+    cards = [c for c in read_cards(netlist) if not c.text.startswith(".")]
+    alias = {"vdd": "0"}  # the supply is an AC short
+    for c in cards:  # 0 V sources (senses, branch ends) join their nodes
+        t = [x.lower() for x in c.tokens]
+        if c.name[0] == "V" and c.name not in ("VDD",):
+            alias[t[1]] = t[2]
+
+    def node(x):
+        while x in alias:
+            x = alias[x]
+        return x
+
+    parts = [(c.name[0], node(c.tokens[1].lower()), node(c.tokens[2].lower()), spice_value(c.tokens[3], c.name))
+             for c in cards if c.name[0] in "RLC"]
+    names = sorted({n for _k, a, b, _v in parts for n in (a, b)} - {"0"})
+    ix = {n: i for i, n in enumerate(names)}
+    Y = np.zeros((len(names), len(names)), complex)
+    w = 2 * math.pi * f_hz
+    for kind, a, b, v in parts:
+        y = 1 / v if kind == "R" else (1 / (1j * w * v) if kind == "L" else 1j * w * v)
+        for p_, q_ in ((a, a), (b, b)):
+            if p_ != "0":
+                Y[ix[p_], ix[q_]] += y
+        if a != "0" and b != "0":
+            Y[ix[a], ix[b]] -= y
+            Y[ix[b], ix[a]] -= y
+    rhs = np.zeros(len(names), complex)
+    rhs[ix[node("drain")]] = 1.0
+    return complex(np.linalg.solve(Y, rhs)[ix[node("drain")]])
+
+
+def test_confirmation_netlist_presents_each_termination_at_its_harmonic():
+    # class J terminations (Cripps et al., IEEE MWCL 2009), an open third and a capacitor at the
+    # fourth: the realised network must present exactly Z_n at n f0 and nearly a short above
+    from netgen.studies.loadpull_confirm import CONFIRM_HARMONICS, loadpull_netlist
+
+    f0 = 1e9
+    alpha = 0.6
+    dev = IdealDevice("current", 24.0, 0.96)
+    plan = make_loadpull_plan(dev, z0_ohm=50.0, f0_hz=f0, terms={
+        1: f"{50}+{50 * alpha}j", 2: f"0-{3 * math.pi / 8 * alpha * 50}j", 3: "open", 4: "C=2pF"})
+    nl = loadpull_netlist(plan, 0)
+    want = {1: complex(50, 50 * alpha), 2: complex(0, -3 * math.pi / 8 * alpha * 50), 4: 1 / (1j * 2 * math.pi * 4 * f0 * 2e-12)}
+    for n, z in want.items():
+        assert _one_port_z(nl, n * f0) == pytest.approx(z, rel=1e-8, abs=1e-8)
+    assert abs(_one_port_z(nl, 3 * f0)) > 1e6  # open
+    for n in (5, 6, CONFIRM_HARMONICS):  # the rest: a short
+        assert abs(_one_port_z(nl, n * f0)) < 1e-6
+    # above the realised harmonics the short is the capacitor C_HF: 0.1 Z0 at (H + 1) f0 and falling
+    assert abs(_one_port_z(nl, (CONFIRM_HARMONICS + 1) * f0)) < 0.12 * 50
+    with pytest.raises(ValueError, match="rest"):
+        loadpull_netlist(make_loadpull_plan(dev, z0_ohm=50.0, f0_hz=f0, terms={1: "50+0j"}, rest="open"), 0)
+    with pytest.raises(ValueError, match="no resistance at f0"):
+        loadpull_netlist(make_loadpull_plan(dev, z0_ohm=50.0, f0_hz=f0, terms={1: "0+30j"}), 0)
+
+
+@pytest.mark.ngspice
+def test_class_b_optimum_confirmed_in_ngspice(tmp_path):
+    # the class-B point (half sine into Ropt, harmonics shorted: pi/4, Cripps) solved per bin and run
+    # in ngspice with the terminations built from parts: within the confirmation bound of 0.2 %
+    import csv
+
+    from netgen.studies.fast import CONFIRM_TOL
+    from netgen.studies.loadpull_run import confirm_study
+
+    dev = IdealDevice("current", 24.0, 2 * 24.0 / 50.0)
+    # Z1 around 25 ohm, all below Ropt = 50 ohm: the drain stays above the knee
+    plan = make_loadpull_plan(dev, z0_ohm=25.0, f0_hz=1e9, terms={1: "ring:0.3:3"})
+    run_loadpull(plan, tmp_path)
+    plan_b = make_loadpull_plan(dev, z0_ohm=50.0, f0_hz=1e9, terms={1: "50+0j"})
+    assert plan_b.run(0)["drain_efficiency"] == pytest.approx(math.pi / 4, abs=0.003)  # the knee costs 0.2 points
+    conf = confirm_study(plan, tmp_path, 1, seed=3)
+    assert conf["confirmed"] == 2 and conf["flagged"] == 0 and conf["errors"] == 0
+    assert conf["worst_pout_rel"] < CONFIRM_TOL and conf["worst_efficiency_rel"] < CONFIRM_TOL
+    summary = loadpull_outputs(plan, tmp_path, plots=False)
+    assert summary["best"]["confirmation"]["flagged"] is False
+    with open(tmp_path / "loadpull.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert sorted(r["confirmation"] for r in rows) == ["", "confirmed", "confirmed"]
+    assert {r["engine"] for r in rows} == {"loadpull"}
+    # confirmed points are not run again
+    assert confirm_study(plan, tmp_path, 0)["confirmed"] == 2
+
+
+@pytest.mark.ngspice
+@pytest.mark.slow
+def test_class_f_and_class_j_points_confirmed_in_ngspice():
+    # Raab's maximally flat class F current (even:2) with the third harmonic open (Raab, IEEE
+    # Trans. MTT 2001), and a continuous class-J point (Cripps et al., IEEE MWCL 2009): the
+    # solve and ngspice within 0.2 % in P1 and efficiency
+    from netgen.studies.fast import disagreement
+    from netgen.studies.loadpull_confirm import ngspice_point
+
+    ropt = 50.0
+    cases = [(IdealDevice("current", 24.0, 0.96, current="even:2"), {1: "60+0j", 3: "open"}),
+             (IdealDevice("current", 24.0, 0.96), {1: f"{ropt}+{ropt}j", 2: f"0-{3 * math.pi / 8 * ropt}j"})]
+    for dev, terms in cases:
+        plan = make_loadpull_plan(dev, z0_ohm=ropt, f0_hz=1e9, terms=terms)
+        full = ngspice_point(plan, 0)
+        assert full["settled"]
+        assert not disagreement(plan.run(0), full)["flagged"], terms

@@ -168,3 +168,44 @@ def test_a_full_disk_is_one_error_and_the_store_stays_whole(tmp_path):
         assert st.con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
         assert st.done_indices(sid) == set(range(stored))
         assert st.record(sid, stored, {}, "ok", big, None, 0.0)
+
+
+# ---------------------------------------------------------------- the engine of each point
+
+def test_engine_and_confirmation_in_the_store_and_the_csv(tmp_path):
+    # docs/sweeps.md: which engine computed a point's metrics, and a fast point's confirmation in ngspice
+    db = tmp_path / STORE_NAME
+    conf_ok = {"pout_rel": 4e-4, "efficiency_rel": -1e-4, "worst": 4e-4, "flagged": False}
+    conf_bad = {"pout_rel": 3e-3, "efficiency_rel": 1e-3, "worst": 3e-3, "flagged": True}
+    with SweepStore(db) as st:
+        sid = st.open_sweep("abc", "", SPEC, 5)
+        st.record(sid, 0, {}, "ok", {**METRICS, "engine": "estimate"}, None, 0.01)
+        st.record(sid, 1, {}, "ok", {**METRICS, "engine": "estimate", "confirmation": conf_ok}, None, 0.01)
+        st.record(sid, 2, {}, "ok", {**METRICS, "engine": "ngspice", "confirmation": conf_bad}, None, 0.2)
+        st.record(sid, 3, {}, "ok", {**METRICS, "engine": "ngspice", "engine_note": "subcircuit"}, None, 0.2)
+        st.record(sid, 4, {}, "failed", None, "SizingError: no", 0.0)
+        got = st.con.execute("SELECT idx, engine, confirmation FROM points ORDER BY idx").fetchall()
+    assert got == [(0, "estimate", None), (1, "estimate", "confirmed"), (2, "ngspice", "flagged"),
+                   (3, "ngspice", None), (4, None, None)]
+    with open(export_csv(db, tmp_path / "sweep.csv"), newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [(r["engine"], r["confirmation"]) for r in rows] == [
+        ("estimate", ""), ("estimate", "confirmed"), ("ngspice", "flagged"), ("ngspice", ""), ("", "")]
+    assert float(rows[1]["confirm_pout_rel"]) == 4e-4 and float(rows[2]["confirm_efficiency_rel"]) == 1e-3
+    assert rows[0]["confirm_pout_rel"] == ""
+
+
+def test_a_store_from_before_the_engine_columns_gets_them_from_the_metrics(tmp_path):
+    db = tmp_path / STORE_NAME
+    with SweepStore(db) as st:
+        sid = st.open_sweep("abc", "", SPEC, 2)
+        st.record(sid, 0, {}, "ok", {**METRICS, "engine": "estimate", "confirmation": {"flagged": False}}, None, 0.01)
+        st.record(sid, 1, {}, "ok", {**METRICS, "engine": "ngspice"}, None, 0.2)
+    con = sqlite3.connect(db)  # the columns gone, as a store of an earlier pashape
+    con.execute("ALTER TABLE points DROP COLUMN engine")
+    con.execute("ALTER TABLE points DROP COLUMN confirmation")
+    con.commit()
+    con.close()
+    with SweepStore(db) as st:
+        got = st.con.execute("SELECT idx, engine, confirmation FROM points ORDER BY idx").fetchall()
+    assert got == [(0, "estimate", "confirmed"), (1, "ngspice", None)]

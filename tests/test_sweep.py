@@ -607,3 +607,66 @@ def test_operating_point_sweeps_keep_the_nominal_network():
                  make_plan(BASE, vary=["design.ropt=80ohm,120ohm"])):
         design, _ = _point_design(plan.base_doc, None, plan.point(0))
         assert size(design).components["tank_l"].value != pytest.approx(nominal.components["tank_l"].value, rel=1e-3)
+
+
+def _validated_anew(plan, idx):
+    """A tolerance point built the long way: the nominal sized, every scaled value written into the
+    document, the document validated again (what the sweep did before the nominal was kept)."""
+    from netgen.design import COMPONENT_UNITS, set_dotted
+    from netgen.studies.grammar import format_value
+    from netgen.synthesis.sizing import size
+
+    p = plan.point(idx)
+    doc = plan.base_doc
+    for path, value in p["set"].items():
+        doc = set_dotted(doc, path, value)
+    sized = size(design_from_dict(doc))
+    for name, factor in p["scale"].items():
+        comp = sized.components[name]
+        doc = set_dotted(doc, f"network.values.{name}", format_value(comp.value * factor, COMPONENT_UNITS[comp.kind]))
+    return design_from_dict(doc)
+
+
+def test_tolerance_points_are_sized_once_and_equal_the_validated_design(monkeypatch):
+    # the nominal network of a grid point is validated and sized once per process; each sample's
+    # design must still be exactly the design the validation of its own document gives
+    from netgen.studies import execute
+    from netgen.synthesis.sizing import size
+
+    calls = []
+
+    monkeypatch.setattr(execute, "_NOMINAL", type(execute._NOMINAL)())
+    plan = make_plan(BASE, vary=["design.vdd=9V,11V"], tolerance=["C*=5%", "L*=5%"], samples=4, seed=2)
+    for idx in range(plan.n_points):
+        design, applied = execute._point_design(plan.base_doc, None, plan.point(idx),
+                                                lambda d: calls.append(1) or size(d))
+        want = _validated_anew(plan, idx)
+        assert design == want  # every field but the raw document and the source
+        assert design.raw == want.raw
+        assert set(applied) == set(plan.point(idx)["scale"])
+    assert len(calls) == 2  # one sizing per grid point (two supplies), not one per sample
+
+
+def test_tolerance_point_scaling_a_design_key_is_validated_anew():
+    from netgen.studies.execute import _point_design
+
+    plan = make_plan(BASE, tolerance=["design.vdd=50%"], samples=200, seed=1, dist="uniform")
+    seen = [_point_design(plan.base_doc, None, plan.point(i))[0].vdd_v for i in range(5)]
+    assert all(5.0 <= v <= 15.0 for v in seen) and len(set(seen)) == 5
+    # a key scaled out of its range is refused with the key's own message (validation ran)
+    with pytest.raises(DesignError, match="design.vdd"):
+        _point_design(plan.base_doc, None, {**plan.point(0), "scale": {"design.vdd": -1.0}})
+
+
+def test_plain_json_is_the_json_round_trip():
+    # the reference is the standard library's own round trip (json.loads(json.dumps(x)))
+    from netgen.studies.execute import plain_json
+
+    obj = {"a": np.float64(1.5), "b": [np.int64(3), (1, 2.5)], "c": np.array([[1.0, np.nan], [np.inf, -0.0]]),
+           "d": {1: "one", 2.5: True, None: None, False: np.bool_(False)}, "e": complex(1, 2), "f": float("nan"),
+           "g": np.float32(0.1)}
+    want = json.loads(json.dumps(obj, default=lambda o: o.tolist() if isinstance(o, np.ndarray)
+                                 else o.item() if isinstance(o, np.generic) else str(o)))
+    got = plain_json(obj)
+    assert json.dumps(got, sort_keys=True) == json.dumps(want, sort_keys=True)
+    assert type(got["a"]) is float and type(got["b"][0]) is int and type(got["d"]["false"]) is bool

@@ -98,7 +98,7 @@ _LP_HELP = """Harmonic load-pull at the intrinsic plane: an ideal device against
 
 \b
 The output network is removed: the drain sees Z1 at f0, Z2 at 2 f0, ... set
-directly (no ngspice; the periodic state is solved per harmonic). Vdd and f0
+directly (the periodic state is solved per harmonic, not in ngspice). Vdd and f0
 come from the design; Z0 of the chart defaults to its sized Ropt.
   --z1 grid:15          15 x 15 reflection coefficients inside |Gamma| <= 0.95
   --z1 25+10j           one impedance (ohm)
@@ -109,7 +109,9 @@ Device: --device current (a half sine of peak --imax, class B, or Raab's current
 --current even:M; a knee keeps the drain at or above about 0 V) or --device switch
 (--ron, 50 % duty). Results go to OUT/loadpull.sqlite as they finish (running the
 same command again resumes), OUT/loadpull.csv, Smith charts of efficiency, P1 and
-peak drain voltage, OUT/summary.json.
+peak drain voltage, OUT/summary.json. The efficiency optimum (and --confirm N points
+drawn at random) is then re-run in ngspice with the terminations built from ideal
+resonators; a point more than 0.2 % apart in Pout or efficiency is flagged.
 
 \b
 Example:
@@ -134,9 +136,13 @@ Example:
 @click.option("-o", "--out", type=click.Path(path_type=Path, file_okay=False), default=None,
               help="Output folder (default loadpull_<design name>/).")
 @click.option("--no-plots", is_flag=True, help="Skip the Smith charts.")
+@click.option("--confirm", "confirm_n", type=int, default=0, show_default=True,
+              help="Points drawn at random (--seed) re-run in ngspice besides the efficiency optimum.")
+@click.option("--no-confirm", is_flag=True, help="Do not re-run the efficiency optimum in ngspice.")
+@click.option("--seed", type=int, default=1, show_default=True, help="Seed of the points drawn for --confirm.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, current, imax_a, vknee_v, ron_ohm,
-                     points, out, no_plots, quiet):
+                     points, out, no_plots, confirm_n, no_confirm, seed, quiet):
     import tomlkit
 
     from netgen.design import load_design
@@ -149,6 +155,8 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
     from netgen.synthesis import size
 
     design = load_design(design_file)
+    if confirm_n < 0:
+        raise click.BadParameter("must be 0 or more.", param_hint="--confirm")
     if points < 16 or points % 2:
         raise click.BadParameter("give an even number, at least 16.", param_hint="--points")
     ropt = float(size(design).ropt_ohm)
@@ -186,6 +194,10 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
     finally:
         if bar is not None:
             bar.close()
+    if not no_confirm or confirm_n:
+        from netgen.studies import confirm_study
+
+        confirm_study(plan, out, confirm_n, seed=seed, optimum=not no_confirm)
     summary = loadpull_outputs(plan, out, plots=not no_plots)
     click.echo(f"{plan.n_points} points ({counts['skipped']} already stored, {counts['ran']} run now, "
                f"{summary['failed']} failed); Z0 = {plan.z0_ohm:.4g} ohm")
@@ -194,8 +206,29 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
         zs = ", ".join(f"Z{t.harmonic} = {_z_text(best, t.harmonic)}" for t in plan.terms)
         click.echo(f"  efficiency optimum {100 * best['drain_efficiency']:.2f} % at {zs}: "
                    f"P1 {best['pout_w']:.4g} W, peak drain {best['peak_vd_v']:.4g} V")
+    _echo_lp_confirmation(summary.get("confirmation"))
     click.echo(f"wrote {counts['store']}, {summary['files']['csv']}"
                + (f", {len(summary['files']) - 2} charts" if not no_plots else ""))
+
+
+def _echo_lp_confirmation(conf: dict | None) -> None:
+    """One line on the ngspice confirmation of the load-pull points (the sweep's contract)."""
+    if not conf:
+        click.echo("ngspice: no load-pull point confirmed (--no-confirm, or no point with output power).")
+        return
+    flagged = [p["idx"] for p in conf["points"] if p.get("flagged")]
+    errors = [p for p in conf["points"] if "error" in p]
+    line = (f"ngspice: {conf['confirmed']} point(s) confirmed, largest difference Pout "
+            f"{_pct(conf['worst_pout_rel'])}, efficiency {_pct(conf['worst_efficiency_rel'])} (bound 0.2 %)")
+    if flagged:
+        line += f"; FLAGGED (beyond the bound, stored figures now ngspice's): point(s) {', '.join(map(str, flagged))}"
+    click.echo(line + ".")
+    for p in errors:
+        click.echo(f"  point {p['idx']} could not be confirmed: {p['error']}")
+
+
+def _pct(x) -> str:
+    return "n/a" if x is None else f"{100 * x:.3f} %"
 
 
 def _z_text(axes: dict, n: int) -> str:

@@ -20,6 +20,7 @@ _EXPORTS = {
     "STORE_NAME": "store",
     "SweepStore": "store",
     "confirm_sample": "fast",
+    "confirm_study": "loadpull_run",
     "compression_points": "compression",
     "drive_compression": "compression",
     "small_signal_two_port": "small_signal",

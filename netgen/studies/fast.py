@@ -135,6 +135,9 @@ def estimate_waveforms(sized, netlist: str, points: int | None = None):
     fourier = {"drain_v": coeffs(state.series["drain"]), "load_v": coeffs(state.series["load"]),
                "drain_i": coeffs(state.series["vidrain#branch"]),
                "supply_i": coeffs(state.series["vdd#branch"], -1.0)}
+    gate = _gate_drive(netlist, state, T)
+    if gate is not None:
+        v["gate"], i["gate"] = rolled(gate[0]), rolled(gate[1])
     vd, idr = state.series["drain"], state.series["vidrain#branch"]
     peaks = {"vd_max_v": float(vd.max()), "vd_min_v": float(vd.min()),
              "id_max_a": float(idr.max()), "id_min_a": float(idr.min())}
@@ -142,6 +145,67 @@ def estimate_waveforms(sized, netlist: str, points: int | None = None):
                    note=f"periodic estimate on {M} points a period (no time stepping; not an ngspice run)",
                    peaks=peaks, fourier=fourier, start={"method": "estimate"})
     return wf, state
+
+
+def _gate_drive(netlist: str, state, period_s: float):
+    """(gate voltage, current the drive source delivers) on the estimate's grid, or None without a gate.
+
+    The estimate solves the network the device's drain sees; a device driven at its gate (the gm
+    device: ``VDRIVE gate 0``, ``RGIN gate 0``) has its input circuit apart from it, so the gate
+    waveforms are computed here: the gate voltage is the drive source's waveform, the current it
+    delivers the sum of the currents into the resistors and capacitors from the gate to ground
+    (``C dv/dt`` with the trapezoidal rule's ``s_k = (2/h) j tan(theta_k/2)``, as the estimate).
+    Where the estimate's state already holds the gate (a gate coupled into the network) its own
+    series are used. Sign as ``Waveforms.i["gate"]``: positive when the source delivers power.
+
+    Raises
+    ------
+    netgen.netlist.Unsupported
+        When the gate circuit is anything else (its Pin would not be the simulator's).
+    """
+    from netgen.netlist import GROUND, Unsupported, read_cards, source_waveform, spice_value
+
+    if "gate" in state.series:
+        if "vdrive#branch" not in state.series:
+            raise Unsupported("the gate is part of the network but its drive source current is not in the estimate")
+        return state.series["gate"], -state.series["vdrive#branch"]
+    drive, loads = None, []
+    for c in read_cards(netlist):
+        if c.text.startswith("."):
+            continue
+        toks = [x.lower() for x in c.tokens]
+        kind = c.name[0]
+        terms = toks[1:5] if kind == "T" else toks[1:-1] if kind == "X" else toks[1:3]
+        if "gate" not in terms:
+            continue
+        other = [x for x in toks[1:3] if x != "gate"]
+        if kind in "VRC" and len(terms) == 2 and other and other[0] in GROUND:
+            if kind == "V":
+                if drive is not None:
+                    raise Unsupported("the gate has two drive sources; the estimate's gate model takes one")
+                drive = (source_waveform(c.tokens, period_s), 1.0 if toks[1] == "gate" else -1.0)
+            else:
+                loads.append((kind, spice_value(c.tokens[3].split("=")[-1], c.name)))
+            continue
+        raise Unsupported(f"{c.tokens[0]}: the gate circuit is more than a drive source with resistors and "
+                          "capacitors to ground, which the estimate's gate model covers")
+    if drive is None:
+        if loads:
+            raise Unsupported("the gate node has no drive source from ground")
+        return None
+    M = state.points
+    h = period_s / M
+    grid = state.t0_s + np.arange(M) * h
+    vg = drive[1] * np.asarray(drive[0].value(grid), dtype=float)
+    theta = 2.0 * np.pi * np.arange(M // 2 + 1) / M
+    s_k = 1j * (2.0 / h) * np.tan(np.minimum(theta / 2.0, math.pi / 2.0 * (1.0 - 1e-9)))
+    ig = np.zeros(M)
+    for kind, value in loads:
+        if kind == "R":
+            ig += vg / value
+        else:
+            ig += np.fft.irfft(s_k * value * np.fft.rfft(vg), M)
+    return vg, ig
 
 
 def evaluate_estimate(design, *, points: int | None = None) -> dict:

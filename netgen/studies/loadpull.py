@@ -49,8 +49,10 @@ __all__ = [
     "drive_current",
     "make_loadpull_plan",
     "parse_termination",
+    "raab_coefficients",
     "raab_current",
     "solve_point",
+    "solve_waveforms",
 ]
 
 #: grid points a period of the load-pull solve
@@ -63,9 +65,9 @@ KNEE_FRACTION = 1e-3
 
 # ---------------------------------------------------------------- the device
 
-def raab_current(m: int, points: int = LP_POINTS) -> np.ndarray:
-    """The non-negative current with DC, the fundamental and even harmonics 2..m of largest
-    I1/Idc, Idc = 1, sampled on ``points`` (peak at t = 0).
+def raab_coefficients(m: int) -> tuple[list[int], np.ndarray, float]:
+    """(orders, a_n, peak) of Raab's current ``1 + sum a_n cos(n theta)`` with DC, the fundamental
+    and even harmonics 2..m of largest I1/Idc (Idc = 1), and its peak (at theta = 0).
 
     The linear programme of Raab, "Maximum efficiency and output of class-F power amplifiers",
     IEEE Trans. MTT 2001 (maximise I1 subject to i(theta) >= 0 on a fine grid), solved with
@@ -83,8 +85,14 @@ def raab_current(m: int, points: int = LP_POINTS) -> np.ndarray:
                   method="highs")
     if not res.success:  # pragma: no cover - the programme is always feasible (a = 0)
         raise DesignError(f"--current even:{m}: the linear programme failed ({res.message}).")
+    return orders, np.asarray(res.x, dtype=float), float(1.0 + np.sum(res.x))
+
+
+def raab_current(m: int, points: int = LP_POINTS) -> np.ndarray:
+    """Raab's current of :func:`raab_coefficients` sampled on ``points`` (peak at t = 0), clipped at 0."""
+    orders, a, _peak = raab_coefficients(m)
     th = 2 * np.pi * np.arange(points) / points
-    i = 1.0 + np.cos(np.outer(th, orders)) @ res.x
+    i = 1.0 + np.cos(np.outer(th, orders)) @ a
     return np.maximum(i, 0.0)
 
 
@@ -216,6 +224,14 @@ def solve_point(device: IdealDevice, z_n: dict[int, complex], *, rest=0j, f0_hz:
     ArithmeticError
         When Newton's method does not converge.
     """
+    v, i, iters = solve_waveforms(device, z_n, rest=rest, f0_hz=f0_hz, z0_ohm=z0_ohm)
+    return _point_metrics(device, v, i, iters)
+
+
+def solve_waveforms(device: IdealDevice, z_n: dict[int, complex], *, rest=0j, f0_hz: float = 1.0,
+                    z0_ohm: float = 1.0) -> tuple[np.ndarray, np.ndarray, int]:
+    """(drain voltage in V, current into the device in A, Newton iterations) of :func:`solve_point`,
+    on the device's grid of ``points`` a period from t = 0."""
     M = int(device.points)
     K = M // 2 + 1
     z = np.array([_z_at(z_n.get(k, rest), k, f0_hz) if k else 0j for k in range(K)], dtype=complex)
@@ -236,10 +252,8 @@ def solve_point(device: IdealDevice, z_n: dict[int, complex], *, rest=0j, f0_hz:
         on = np.cos(th) >= math.cos(math.pi * device.duty)
         g = np.where(on, 1.0 / max(device.ron_ohm, 1e-6), 1.0 / device.roff_ohm)
         v = np.linalg.solve(A + B * g[None, :], cc)
-        i, iters = g * v, 1
-    else:
-        v, i, iters = _newton(device, A, B, cc)
-    return _point_metrics(device, v, i, iters)
+        return v, g * v, 1
+    return _newton(device, A, B, cc)
 
 
 def _newton(device: IdealDevice, A: np.ndarray, B: np.ndarray, cc: np.ndarray):

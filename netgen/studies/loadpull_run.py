@@ -17,7 +17,7 @@ import numpy as np
 from .loadpull import LoadPullPlan
 from .store import SweepStore, export_csv
 
-__all__ = ["LOADPULL_STORE", "loadpull_outputs", "run_loadpull"]
+__all__ = ["LOADPULL_STORE", "confirm_study", "loadpull_outputs", "run_loadpull"]
 
 LOADPULL_STORE = "loadpull.sqlite"
 #: slices of the other axes drawn as Smith charts of Z1 at most
@@ -50,6 +50,41 @@ def run_loadpull(plan: LoadPullPlan, out: Path, *, design_toml: str = "", progre
     return counts
 
 
+def confirm_study(plan: LoadPullPlan, out: Path, n_random: int = 0, *, seed: int = 1, optimum: bool = True,
+                  progress=None) -> dict:
+    """Confirm the efficiency optimum (``optimum``) and ``n_random`` other stored points drawn with
+    ``numpy.random.default_rng(seed)`` in ngspice (:func:`netgen.studies.loadpull_confirm.confirm_loadpull`;
+    points confirmed before are not run again). Returns the summary of every confirmed point in
+    the store (:func:`_stored_confirmation`)."""
+    from .loadpull_confirm import confirm_loadpull
+
+    out = Path(out)
+    with SweepStore(out / LOADPULL_STORE) as store:
+        sid = store.sweep_info(None)["id"]
+        rows = list(store.rows(sid))
+        eligible = [r["idx"] for r in rows if r["status"] == "ok" and r["metrics"] and "confirmation" not in r["metrics"]]
+        chosen: set[int] = set()
+        eff = np.array([_value(r, "drain_efficiency") for r in rows])
+        if optimum and np.isfinite(eff).any():
+            chosen.add(rows[int(np.nanargmax(eff))]["idx"])
+        pool = [i for i in eligible if i not in chosen]
+        k = min(max(int(n_random), 0), len(pool))
+        if k:
+            chosen |= {int(i) for i in np.random.default_rng(int(seed)).choice(pool, size=k, replace=False)}
+        confirm_loadpull(plan, store, sid, sorted(chosen & set(eligible)), progress=progress)
+    return _stored_confirmation(out)
+
+
+def _stored_confirmation(out: Path) -> dict | None:
+    """:func:`netgen.studies.fast.summarize_confirmation` of every point of the store with a
+    confirmation (None when there is none)."""
+    from .fast import summarize_confirmation
+
+    found = [{**r["metrics"]["confirmation"], "idx": r["idx"]} for r in _rows(out)
+             if r["metrics"] and isinstance(r["metrics"].get("confirmation"), dict)]
+    return summarize_confirmation(found) if found else None
+
+
 def _rows(out: Path) -> list[dict]:
     with SweepStore(Path(out) / LOADPULL_STORE) as store:
         sid = store.sweep_info(None)["id"]
@@ -77,7 +112,10 @@ def loadpull_outputs(plan: LoadPullPlan, out: Path, *, plots: bool = True) -> di
                "rest": plan.rest_text,
                "best": None if best_row is None else {"idx": best_row["idx"], **best_row["inputs"]["axes"],
                                                       **{k: best_row["metrics"][k] for k in
-                                                         ("drain_efficiency", "pout_w", "pdc_w", "peak_vd_v")}}}
+                                                         ("drain_efficiency", "pout_w", "pdc_w", "peak_vd_v")},
+                                                      "engine": best_row["metrics"].get("engine"),
+                                                      "confirmation": best_row["metrics"].get("confirmation")},
+               "confirmation": _stored_confirmation(out)}
     files = {"csv": str(csv_path)}
     if plots and rows:
         files.update(_figures(plan, rows, out, best_row))

@@ -11,7 +11,10 @@ Tables
     (``ok`` / ``not_settled`` / ``failed`` / ``lost``), ``metrics`` (JSON, the
     metrics.json contract), key metrics as columns for plain SQL
     (``drain_efficiency``, ``pout_w``, ``pdc_w``, ``peak_vd_v``,
-    ``peak_vd_over_vdd``, ``settled``), ``error``, ``seconds``, ``attempts``.
+    ``peak_vd_over_vdd``, ``settled``), ``engine`` (what computed the stored metrics: ``estimate``
+    or ``ngspice``), ``confirmation`` (a fast point re-run in ngspice: ``confirmed`` within the
+    bound, ``flagged`` beyond it and its metrics replaced by ngspice's; else NULL), ``error``,
+    ``seconds``, ``attempts``.
 
 ``failed`` is the design's verdict (the simulator, the sizing or the validation refused the
 point) and is final. ``lost`` means the point was cut short by the machinery (a killed or
@@ -48,10 +51,14 @@ STORE_NAME = "sweep.sqlite"
 #: the worst part of each kind (netgen.results.stress.stress_summary), in the CSV export
 STRESS_COLUMNS = ("stress_cap_v_peak_v", "stress_cap_v_peak_part", "stress_ind_i_peak_a", "stress_ind_i_peak_part",
                   "stress_max_loss_w", "stress_max_loss_part")
+#: a confirmed point's relative differences, estimate against ngspice (netgen.studies.fast.disagreement), in the CSV
+CONFIRM_COLUMNS = ("confirm_pout_rel", "confirm_efficiency_rel")
 #: metrics copied into their own columns
 KEY_COLUMNS = ("drain_efficiency", "pae", "pout_w", "pdc_w", "pin_w", "peak_vd_v", "peak_vd_over_vdd", "min_vd_v",
                "peak_id_a", "device_dissipation_w", "pin_avail_w", "gain_transducer_db", "gain_power_db",
                "pin_port_w", "am_pm_deg", "conduction_angle_deg")
+#: text columns derived from the metrics (engine_of): which engine computed them, their confirmation
+ENGINE_COLUMNS = ("engine", "confirmation")
 STATUSES = ("ok", "not_settled", "failed", "lost")
 #: statuses of a point with a result (the design's verdict); ``lost`` is not one of them
 RESULT_STATUSES = ("ok", "not_settled", "failed")
@@ -63,6 +70,7 @@ _POINTS = f"""(
     status TEXT NOT NULL CHECK (status IN ({", ".join(repr(x) for x in STATUSES)})),
     metrics TEXT,
     {", ".join(f"{c} REAL" for c in KEY_COLUMNS)},
+    {", ".join(f"{c} TEXT" for c in ENGINE_COLUMNS)},
     settled INTEGER,
     error TEXT,
     seconds REAL,
@@ -130,6 +138,8 @@ class SweepStore:
             for col in KEY_COLUMNS:
                 if col not in have:
                     self.con.execute(f"ALTER TABLE points ADD COLUMN {col} REAL")
+            if any(col not in have for col in ENGINE_COLUMNS):
+                self._add_engine_columns(have)
             self.con.commit()
             _upgrade(self.con)
         except (OutputError, sqlite3.DatabaseError, OSError, _BadRow) as exc:
@@ -144,6 +154,22 @@ class SweepStore:
                 raise OutputError(f"{self.path}: cannot open the sweep store ({exc}); remove it or choose another "
                                   "output folder.") from None
             raise OutputError(f"{self.path}: cannot create the sweep store ({exc.strerror}); choose another output folder.") from None
+
+    def _add_engine_columns(self, have: set) -> None:
+        """Add ``engine`` and ``confirmation`` to a store written before them, filled from each
+        point's metrics JSON (:func:`engine_of`)."""
+        for col in ENGINE_COLUMNS:
+            if col not in have:
+                self.con.execute(f"ALTER TABLE points ADD COLUMN {col} TEXT")
+        rows = self.con.execute("SELECT rowid, metrics FROM points WHERE metrics IS NOT NULL").fetchall()
+        for rowid, text in rows:
+            try:
+                metrics = json.loads(text)
+            except (TypeError, ValueError):
+                continue  # a damaged row is reported when it is read
+            if isinstance(metrics, dict):
+                self.con.execute("UPDATE points SET engine = ?, confirmation = ? WHERE rowid = ?",
+                                 (*engine_of(metrics), rowid))
 
     def _undo(self, made_file: bool, made_folder: bool) -> None:
         """Close, and remove what this failed open created (the store file, its journals, the folder)."""
@@ -278,14 +304,15 @@ class SweepStore:
         m = metrics or {}
         keys = [_num(m.get(c)) for c in KEY_COLUMNS]
         settled = None if metrics is None else int(bool(m.get("settled")))
-        cols = ["inputs", "status", "metrics", *KEY_COLUMNS, "settled", "error", "seconds"]
+        cols = ["inputs", "status", "metrics", *KEY_COLUMNS, *ENGINE_COLUMNS, "settled", "error", "seconds"]
         with self._writing(f"store point {idx}"):
             cur = self.con.execute(
                 f"INSERT INTO points (sweep_id, idx, {', '.join(cols)}) VALUES ({', '.join('?' * (2 + len(cols)))}) "
                 f"ON CONFLICT (sweep_id, idx) DO UPDATE SET {', '.join(f'{c} = excluded.{c}' for c in cols)}, "
                 "attempts = points.attempts + 1 WHERE points.status = 'lost'",
                 (sweep_id, int(idx), json.dumps(inputs, sort_keys=True), status,
-                 None if metrics is None else json.dumps(metrics, sort_keys=True), *keys, settled, error,
+                 None if metrics is None else json.dumps(metrics, sort_keys=True), *keys,
+                 *(engine_of(metrics) if metrics is not None else (None, None)), settled, error,
                  float(seconds)),
             )
             self.con.commit()
@@ -360,6 +387,20 @@ class SweepStore:
         return out
 
 
+def engine_of(metrics: dict) -> tuple[str | None, str | None]:
+    """(engine, confirmation) of a point's metrics: ``metrics["engine"]`` (``estimate`` or
+    ``ngspice``; None when the metrics do not say: an evaluator given with ``--evaluator``, or a
+    point stored before pashape recorded it) and, for a point re-run in ngspice
+    (``metrics["confirmation"]``, see netgen.studies.fast.confirm_points), ``flagged`` when it
+    disagreed beyond the bound (its metrics are then ngspice's) or ``confirmed``; else None."""
+    engine = metrics.get("engine")
+    conf = metrics.get("confirmation")
+    state = None
+    if isinstance(conf, dict):
+        state = "flagged" if conf.get("flagged") else "confirmed"
+    return (str(engine) if engine else None), state
+
+
 def _is_full(exc: BaseException) -> bool:
     """True for SQLite's SQLITE_FULL ("database or disk is full")."""
     return getattr(exc, "sqlite_errorcode", None) == sqlite3.SQLITE_FULL or "disk is full" in str(exc)
@@ -411,11 +452,14 @@ def _num(v) -> float | None:
 def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) -> Path:
     """Write one row per stored point to ``path`` (atomically) and return the path.
 
-    Columns: ``idx``, ``status``, one column per varied input (axis values,
+    Columns: ``idx``, ``status``, ``engine`` (``estimate`` or ``ngspice``: what computed the
+    point's metrics), ``confirmation`` (``confirmed`` / ``flagged`` for a fast point re-run in
+    ngspice, else empty), one column per varied input (axis values,
     keys set as written when they are not an axis, e.g. ``design.load`` of a
     load circle, sample number, component overrides ``values.<name>``), the key metrics,
     ``h1_dbc`` .. ``hN_dbc``, ``z1_re_ohm``, ``z1_im_ohm`` .. (Z_n presented to the device),
-    ``settled``, ``seconds``, ``error``. Inputs are plain SI numbers with the unit in the header
+    the worst parts' stress, ``confirm_pout_rel`` and ``confirm_efficiency_rel`` (a confirmed
+    point's estimate/ngspice - 1), ``settled``, ``seconds``, ``error``. Inputs are plain SI numbers with the unit in the header
     (``values.tank_c [F]``, ``design.load [ohm]``).
     """
     from netgen.fileio import atomic_write_text
@@ -444,11 +488,11 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
             n_harm = max(n_harm, len(r["metrics"].get("harmonics") or []))
     units = {k: _unit_of(k, [r["inputs"].get("set", {}).get(k) for r in rows]) for k in (*axis_cols, *set_cols)}
     vunits = {k: _unit_of("", [r["inputs"].get("values", {}).get(k) for r in rows]) for k in value_cols}
-    header = (["idx", "status", *(_head(k, units[k]) for k in (*axis_cols, *set_cols)), "sample",
+    header = (["idx", "status", "engine", "confirmation", *(_head(k, units[k]) for k in (*axis_cols, *set_cols)), "sample",
                *(_head(f"values.{k}", vunits[k]) for k in value_cols),
                *KEY_COLUMNS, *(f"h{n}_dbc" for n in range(1, n_harm + 1)),
                *(f"z{n}_{part}_ohm" for n in range(1, n_harm + 1) for part in ("re", "im")),
-               *STRESS_COLUMNS,
+               *STRESS_COLUMNS, *CONFIRM_COLUMNS,
                "settled", "seconds", "error"])
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
@@ -456,8 +500,10 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
     for r in rows:
         m = r["metrics"] or {}
         harm = m.get("harmonics") or []
+        engine, confirmation = engine_of(m)
+        conf = m.get("confirmation") if isinstance(m.get("confirmation"), dict) else {}
         w.writerow([
-            r["idx"], r["status"],
+            r["idx"], r["status"], engine or "", confirmation or "",
             *(_si_cell(r["inputs"].get("axes", {}).get(k, ""), units[k]) for k in axis_cols),
             *(_si_cell(r["inputs"].get("set", {}).get(k, ""), units[k]) for k in set_cols),
             "" if r["inputs"].get("sample") is None else r["inputs"]["sample"],
@@ -467,6 +513,7 @@ def export_csv(db: str | Path, path: str | Path, sweep_id: int | None = None) ->
             *(_cell(harm[n].get(f"z_{part}_ohm")) if n < len(harm) else ""
               for n in range(n_harm) for part in ("re", "im")),
             *(m.get(c) or "" if c.endswith("_part") else _cell(m.get(c)) for c in STRESS_COLUMNS),
+            *(_cell(conf.get(c[len("confirm_"):])) for c in CONFIRM_COLUMNS),
             "" if not r["metrics"] else int(bool(m.get("settled"))),
             "" if r["seconds"] is None else f"{r['seconds']:.3f}", r["error"] or "",
         ])
