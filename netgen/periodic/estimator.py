@@ -220,8 +220,10 @@ class _Net:
                 Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
 
 
-def _network(cards: list[Card], device: str, period_s: float, blocks: dict | None = None) -> tuple[_Net, set[str]]:
-    """The linear elements connected (through other linear elements) to ``dsw``."""
+def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None) -> tuple[_Net, set[str]]:
+    """The linear elements connected (through other linear elements) to ``dsw``; ``device``: the
+    device's element name(s), left out."""
+    device = {device} if isinstance(device, str) else set(device)
     elements = [c for c in cards if not c.text.startswith(".")]
     adj: dict[str, set[str]] = {}
 
@@ -236,7 +238,7 @@ def _network(cards: list[Card], device: str, period_s: float, blocks: dict | Non
         return t[1:3]
 
     for c in elements:
-        if c.name == device:
+        if c.name in device:
             continue
         ns = [x for x in terminals(c) if x not in GROUND]
         for x in ns:
@@ -249,7 +251,7 @@ def _network(cards: list[Card], device: str, period_s: float, blocks: dict | Non
             continue
         seen.add(x)
         stack.extend(adj.get(x, ()))
-    mine = [c for c in elements if c.name != device and any(x in seen for x in terminals(c))]
+    mine = [c for c in elements if c.name not in device and any(x in seen for x in terminals(c))]
     branches: dict[str, int] = {}
     widths: dict[str, int] = {}
     sources: dict[str, SourceWaveform] = {}
@@ -429,7 +431,7 @@ def estimate(netlist: str, f0_hz: float, points: int, *, cap: bool = True, block
         M = grid_points(points, nonlinear=True)
         dev = read_device(cards, models, period, M)
     h = period / M
-    net, _ = _network(cards, dev.name.upper(), period, blocks)
+    net, _ = _network(cards, {dev.name.upper(), *(x.upper() for x in dev.extra)}, period, blocks)
     if "dsw" not in net.index:
         raise Unsupported("the device node 'dsw' is not connected to the network")
     K = M // 2 + 1
