@@ -7,12 +7,7 @@ docs/regression.md); prints nothing itself.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 from . import step
-
-if TYPE_CHECKING:
-    from .regress import CheckResult
 
 __all__ = ["format_number", "format_result", "format_summary", "step_lines"]
 
@@ -40,8 +35,9 @@ def format_number(x: float | None) -> str:
     return "-" if x is None else f"{x:.6g}"
 
 
-def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
-    """A pass/fail table for one design: metric, golden, new, deviation, tolerance, result."""
+def format_result(r, *, only_failures: bool = False) -> str:
+    """A pass/fail table for one design (``r``: a netgen.handoff.regress.CheckResult): metric, golden,
+    new, deviation, tolerance, result; then why each excluded or widened metric is so."""
     status = "PASS" if r.ok else "FAIL"
     if r.ok and not r.rows and not r.golden_path.is_file():
         status = "NEW "
@@ -70,7 +66,7 @@ def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
     return "\n".join(lines)
 
 
-def format_summary(results: list[CheckResult]) -> str:
+def format_summary(results: list) -> str:
     """One closing line: how many designs passed."""
     failed = [r.design_path.name for r in results if not r.ok]
     text = f"{len(results) - len(failed)} of {len(results)} designs pass"
