@@ -563,7 +563,8 @@ def accept(results: Iterable[CheckResult]) -> list[str]:
             continue
         if r.new_golden is None:
             continue
-        changed = [row for row in r.rows if row.new is None or row.golden != row.new]
+        changed = [row for row in r.rows if row.new is None or row.golden is None
+                   or abs(row.new - row.golden) > 1e-9 * max(abs(row.golden), 1e-12)]  # not the last digits
         if not r.golden_path.is_file():
             lines.append(f"{name}: new golden {r.golden_path.name} ({len(r.new_golden['metrics'])} metrics)")
         elif not changed and all(row.ok for row in r.rows):
