@@ -222,7 +222,11 @@ class _Net:
 
 def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None) -> tuple[_Net, set[str]]:
     """The linear elements connected (through other linear elements) to ``dsw``; ``device``: the
-    device's element name(s), left out."""
+    device's element name(s), left out.
+
+    Length: reachability from ``dsw`` and then one check and branch numbering per element kind,
+    in the order ``_Net.assemble`` stamps them.
+    """
     device = {device} if isinstance(device, str) else set(device)
     elements = [c for c in cards if not c.text.startswith(".")]
     adj: dict[str, set[str]] = {}
