@@ -265,10 +265,12 @@ def solve_device(dev: Device, voc_k: np.ndarray, zdraw_k: np.ndarray, M: int) ->
     return out
 
 
-def _solve_linear(g: np.ndarray, c: np.ndarray | None, voc_k, zdraw_k, M: int) -> tuple[np.ndarray, np.ndarray]:
+def _solve_linear(g: np.ndarray, c: np.ndarray | None, voc_k, zdraw_k, M: int,
+                  g0: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Current and voltage (A, V) of the device ``i = g v + c`` on the grid (``c``: a known
-    current, A, or None)."""
-    g0 = float(max(g.min(), 0.0))
+    current, A, or None, only where g exceeds ``g0``: the conductance folded into the port,
+    default the smallest of g)."""
+    g0 = float(max(g.min(), 0.0)) if g0 is None else g0
     # fold the constant part g0 into the port: z' = z / (1 + g0 z) (z = -zdraw), voc' likewise
     z_k = -zdraw_k
     zf_k = z_k / (1.0 + g0 * z_k)
@@ -300,7 +302,9 @@ def _solve_with_diode(g: np.ndarray, diode: tuple[float, float], voc_k, zdraw_k,
     on = np.zeros(M, bool)
     seen: set[bytes] = set()
     for _ in range(DIODE_MAX):
-        i, v = _solve_linear(g + gd * on, np.where(on, gd * vf, 0.0), voc_k, zdraw_k, M)
+        # the switch's own smallest conductance is folded into the port, so every diode sample
+        # (g + G > g0) carries its G Vf in the solve, even were the diode on everywhere
+        i, v = _solve_linear(g + gd * on, np.where(on, gd * vf, 0.0), voc_k, zdraw_k, M, g0=float(max(g.min(), 0.0)))
         tol = 1e-9 * max(float(np.abs(v).max()), 1.0)
         new = np.where(np.abs(v + vf) <= tol, on, v < -vf)  # at the knee either side is exact
         if np.array_equal(new, on):
