@@ -164,3 +164,24 @@ def test_class_e_on_a_vswr3_load_clamps_near_minus_vf_and_none_restores_the_swin
         assert m["settled"] and m["cycles"] <= 10  # started on the estimate: 6 cycles each (measured)
         assert m["start"]["method"] == "periodic"
         assert m["start"]["estimate_deviation"] < 1e-3  # the estimate within 0.1 % of ngspice
+
+
+def test_estimate_with_the_diode_conducting_all_period_matches_kirchhoff():
+    # a -5 V source behind 10 ohm holds the drain below -Vf all period (the switch barely on):
+    # (vs - v)/R = G (v + Vf) + g_sw v gives v = (vs/R - G Vf)/(1/R + G) (Kirchhoff, common
+    # practice; g_sw = 1e-6 S while on shifts it by under 1e-6 relative)
+    text = """diode on all period
+VS src 0 DC -5
+RS src dsw 10
+C1 dsw 0 1n
+S_SW dsw 0 ctrl 0 SWMOD
+.model SWMOD SW(RON=1e6 ROFF=1e12 VT=0.5 VH=0.25)
+VCTRL ctrl 0 PULSE(0 1 0 1n 1n 400n 1u)
+RCTRL ctrl 0 1e6
+BREV dsw 0 I=-2*uramp(-0.7-v(dsw))
+.tran 1n 3u 0 1n uic
+.end
+"""
+    state = estimator.estimate(text, 1e6, 200)
+    v = (-5.0 / 10.0 - 2.0 * 0.7) / (1.0 / 10.0 + 2.0)
+    assert state.series["dsw"] == pytest.approx(np.full(200, v), rel=1e-6)
