@@ -26,9 +26,12 @@ SIMS = __import__("pathlib").Path(__file__).resolve().parents[1] / "sims"
 #: an idealised class E (invented): high loaded Q and a near-ideal switch, so that Sokal's
 #: infinite-Q equations hold (his finite-Q correction is about 1/Q, 2 % at Q = 50; recalled from
 #: memory of Sokal's later design equations)
+# Sokal's analysis takes a switch that is open while off, the drain free to swing below ground (no
+# reverse conduction): with the body diode (the switch's default) a drain that would go negative is
+# clamped near -Vf, so the turn-on voltage stays near zero over a range of shunt C (docs/closure.md)
 CLASS_E = {"design": {"name": "ideal_e", "topology": "class_e", "f0": "6.78 MHz", "vdd": "24 V", "load": "50 ohm",
                       "pout": "20 W"},
-           "device": {"model": "switch", "ron": "0.01 ohm"}, "network": {"loaded_q": 50},
+           "device": {"model": "switch", "ron": "0.01 ohm", "reverse_conduction": "none"}, "network": {"loaded_q": 50},
            "sim": {"points_per_cycle": 500}}
 
 

@@ -160,7 +160,8 @@ def test_accept_reports_changes_and_refuses_unsettled(tmp_path):
     regress.write_golden(tmp_path / "a.expect.json", regress.make_golden(tmp_path / "a.toml", class_f_metrics(), "d"))
     runner = _fake_runner_factory({"a": class_f_metrics(ropt_ohm=105.0)})
     results = regress.check_designs([tmp_path], jobs=1, accept=True, runner=runner)
-    (line,) = regress.accept(results)
+    line, note = regress.accept(results)  # a runner without a second run: the step dependence is not measured
+    assert note == "  step dependence not measured: no second run (a runner without one)"
     assert line.startswith("a.toml: updated:") and "pout_w 0.810569 -> 0.771971" in line
     assert regress.read_golden(tmp_path / "a.expect.json")["metrics"]["pout_w"]["value"] == pytest.approx(0.771971, rel=1e-6)
     runner = _fake_runner_factory({"a": class_f_metrics(settled=False)})

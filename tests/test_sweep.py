@@ -342,6 +342,45 @@ def test_line_and_circle_plot_data_equal_the_database(tmp_path):
     assert set(made) == {"load_circle", "line_load_phase_deg"}
 
 
+def stressed_eval(design) -> dict:
+    """tuned_b_eval with its device stress: drain voltage Vdd (1 + cos) between 0 and 2 Vdd, and
+    the dissipation Pdc - Pout = Pout (4/pi - 1) at efficiency pi/4 (Cripps, as above)."""
+    out = tuned_b_eval(design)
+    out.update(min_vd_v=0.0, device_dissipation_w=out["pdc_w"] - out["pout_w"])
+    return out
+
+
+def test_load_circle_plot_draws_the_stress_of_the_database(tmp_path, monkeypatch):
+    # issue 13: min and peak drain voltage, peak drain current and device dissipation of every
+    # load appear on the load-circle plot (a panel each), the worst named in the titles
+    from netgen.studies import plots
+
+    plan, _, rows = _run(tmp_path, stressed_eval, workers=1, vswr="3.0:8")
+    c = plots.circle_data(rows, 50.0)
+    con = sqlite3.connect(tmp_path / STORE_NAME)
+    for key in plots.CIRCLE_STRESS:  # the store's own columns
+        db = [v for (v,) in con.execute(f"SELECT {key} FROM points ORDER BY idx")]
+        assert list(c[key]) == db, key
+    assert_allclose(c["phase_deg"], np.arange(8) * 45.0)
+    seen = {}
+
+    def keep(fig, path):
+        seen["titles"] = [ax.get_title() for ax in fig.axes]
+        seen["lines"] = {line.get_label(): line.get_ydata() for ax in fig.axes for line in ax.get_lines()}
+        plt.close(fig)
+        return Path(path)
+
+    import matplotlib.pyplot as plt
+
+    monkeypatch.setattr(plots, "_save", keep)
+    plots.plot_load_circle(rows, 50.0, tmp_path / "lc.png", vdd_v=10.0)
+    peak = 2 * 10.0  # 2 Vdd (Cripps), BASE has Vdd = 10 V
+    assert any(t.startswith(f"drain voltage: peak {peak:.3g} V at 0 deg, min 0 V at 0 deg") for t in seen["titles"])
+    assert any(t.startswith("peak current ") and "dissipation " in t for t in seen["titles"])
+    assert_allclose(seen["lines"]["peak drain voltage"], peak)
+    assert_allclose(seen["lines"]["device dissipation"], c["device_dissipation_w"])
+
+
 def test_flat_metric_is_drawn_flat(tmp_path, monkeypatch):
     # Efficiency of a switch into a linear network does not move with Vdd (superposition, common
     # practice): the value axis must then show a flat line over a sensible span, not the last

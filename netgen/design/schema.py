@@ -67,6 +67,9 @@ class DeviceSpec:
     ron_ohm: float = 0.2
     roff_ohm: float = 1e6
     transition: float = 0.0
+    reverse_conduction: str = "diode"
+    diode_vf_v: float = 0.7
+    diode_ron_ohm: float | None = None
     duty: float = 0.5
     cout_f: float = 0.0
     package_l_h: float = 0.0

@@ -18,12 +18,16 @@ import math
 import multiprocessing
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Callable, Iterable
 
 from netgen import __version__
 from netgen.errors import DesignError, NetgenError
 from netgen.fileio import atomic_write_text
+
+from . import step
+from .check_text import format_number, format_result, format_summary, step_lines
 
 __all__ = [
     "GOLDEN_SUFFIX",
@@ -69,12 +73,15 @@ class Tolerance:
     ``floor``: when both values are at or below it they agree (harmonic levels
     lost in numerical noise). ``ceiling``: when both are at or above it they
     agree (an open circuit is an open circuit, whether 3 kohm or 8 kohm).
+    ``step_abs``: the half-width is at least this (the metric's unit), widened
+    from the measured step dependence (netgen.handoff.step).
     """
 
     abs: float = 0.0
     rel: float = 0.0
     floor: float | None = None
     ceiling: float | None = None
+    step_abs: float = 0.0
 
     def allows(self, golden: float, new: float) -> bool:
         if new is None or golden is None or not math.isfinite(new) or not math.isfinite(golden):
@@ -83,11 +90,16 @@ class Tolerance:
             return True
         if self.ceiling is not None and golden >= self.ceiling and new >= self.ceiling:
             return True
-        return abs(new - golden) <= self.abs + self.rel * abs(golden) + 1e-15
+        return abs(new - golden) <= max(self.abs + self.rel * abs(golden), self.step_abs) + 1e-15
 
-    def describe(self, diff_unit: str = "", level_unit: str = "") -> str:
+    def widened(self, golden: float) -> bool:
+        """True when the step-dependence width is the one that applies at ``golden``."""
+        return self.step_abs > self.abs + self.rel * abs(golden or 0.0)
+
+    def describe(self, diff_unit: str = "", level_unit: str = "", golden: float | None = None) -> str:
         """The tolerance as text: the absolute part in ``diff_unit`` (e.g. "dB"), floor and ceiling
-        in ``level_unit`` (e.g. "dBc"); without units as plain numbers."""
+        in ``level_unit`` (e.g. "dBc"); without units as plain numbers. With ``golden``, a
+        step-widened tolerance shows its width and the default it replaces."""
         du, lu = (f" {diff_unit}" if diff_unit else ""), (f" {level_unit}" if level_unit else "")
         parts = []
         if self.abs:
@@ -95,6 +107,8 @@ class Tolerance:
         if self.rel:
             parts.append(f"+/-{100 * self.rel:g}%")
         text = " ".join(parts) or "exact"
+        if golden is not None and self.widened(golden):
+            text = f"+/-{self.step_abs:.3g}{du} (step; default {text})"
         if self.floor is not None:
             text += f" (<= {self.floor:g}{lu} equal)"
         if self.ceiling is not None:
@@ -119,6 +133,16 @@ class Row:
     new: float | None
     tolerance: Tolerance
     ok: bool
+    #: why the metric is not compared (not converged in the time step), or None
+    excluded: str | None = None
+    #: the measured step dependence behind a widened tolerance, or None
+    widened: str | None = None
+
+    @property
+    def result(self) -> str:
+        if self.excluded:
+            return "excluded"
+        return ("ok" if self.ok else "FAIL") + (" (widened)" if self.widened else "")
 
     @property
     def deviation(self) -> str:
@@ -258,8 +282,17 @@ def default_tolerances(values: dict[str, float]) -> dict[str, Tolerance]:
     return out
 
 
-def make_golden(design_path: Path, metrics: dict, digest: str, old: dict | None = None) -> dict:
-    """A golden document from a run; tolerances edited by hand in ``old`` are kept."""
+def make_golden(design_path: Path, metrics: dict, digest: str, old: dict | None = None, *,
+                fine_metrics: dict | None = None, points: tuple[int, int] | None = None,
+                step_note: str | None = None) -> dict:
+    """A golden document from a run; tolerances edited by hand in ``old`` are kept.
+
+    ``fine_metrics``: the same design run at ``points[1]`` points per cycle (``points[0]`` is
+    this run's): each metric's step dependence is measured (netgen.handoff.step) and its
+    tolerance kept, widened (``step_abs``) or the metric excluded (``excluded``, the reason).
+    Without it the step entries of ``old`` are carried over and ``step_note`` (why there is no
+    measurement) is recorded.
+    """
     values = select_metrics(metrics)
     tols = default_tolerances(values)
     old_metrics = (old or {}).get("metrics", {})
@@ -271,15 +304,28 @@ def make_golden(design_path: Path, metrics: dict, digest: str, old: dict | None 
             if kept:
                 tol = kept
         entries[key] = {"value": value, **tol}
-    return {
+    doc = {
         "format": GOLDEN_FORMAT,
         "design_file": Path(design_path).name,
         VERSION_KEY: __version__,
         "sized_digest": digest,
         "settled": bool(metrics.get("settled", False)),
         "cycles": metrics.get("cycles"),
-        "metrics": entries,
     }
+    if fine_metrics is not None and points is not None:
+        measured = step.measure(values, select_metrics(fine_metrics),
+                                {k: _tolerance(e) for k, e in entries.items()}, points)
+        for key, extra in measured.items():
+            entries[key].update(extra)
+        doc["step_check"] = {"points_per_cycle": [int(points[0]), int(points[1])]}
+    else:
+        for key, entry in entries.items():
+            entry.update({k: v for k, v in (old_metrics.get(key) or {}).items() if k in step.STEP_KEYS})
+        if step_note or (old or {}).get("step_check"):
+            doc["step_check"] = {**((old or {}).get("step_check") or {}),
+                                 **({"not_measured": step_note} if step_note else {})}
+    doc["metrics"] = entries
+    return doc
 
 
 def read_golden(path: str | Path) -> dict:
@@ -303,9 +349,13 @@ def read_golden(path: str | Path) -> dict:
     for key, entry in doc["metrics"].items():
         if not isinstance(entry, dict) or "value" not in entry:
             raise DesignError(f"{path}: metrics.{key} needs a 'value' (and optional abs, rel, floor, ceiling).")
-        for k in ("value", "abs", "rel", "floor", "ceiling"):
+        for k in ("value", "abs", "rel", "floor", "ceiling", "step_abs"):
             if k in entry and entry[k] is not None and not isinstance(entry[k], (int, float)):
                 raise DesignError(f"{path}: metrics.{key}.{k} must be a number.")
+        if "excluded" in entry and not isinstance(entry["excluded"], str):
+            raise DesignError(f"{path}: metrics.{key}.excluded must be the reason, as text.")
+        if "step" in entry and not isinstance(entry["step"], dict):
+            raise DesignError(f"{path}: metrics.{key}.step must be a table (points_per_cycle, fine_value, delta).")
     if doc["format"] != GOLDEN_FORMAT:  # read the older layout as the current one
         doc = {**doc, "format": GOLDEN_FORMAT}
         if "netgen_version" in doc:
@@ -324,6 +374,7 @@ def _tolerance(entry: dict) -> Tolerance:
         rel=float(entry.get("rel", 0.0) or 0.0),
         floor=entry.get("floor"),
         ceiling=entry.get("ceiling"),
+        step_abs=float(entry.get("step_abs", 0.0) or 0.0),
     )
 
 
@@ -334,32 +385,69 @@ def compare(golden: dict, metrics: dict) -> tuple[Row, ...]:
     for key, entry in golden["metrics"].items():
         value = new.get(key)
         tol = _tolerance(entry)
-        ok = value is not None and tol.allows(float(entry["value"]), value)
-        rows.append(Row(key, float(entry["value"]), value, tol, ok))
+        golden_value = float(entry["value"])
+        if entry.get("excluded"):
+            rows.append(Row(key, golden_value, value, tol, True, excluded=str(entry["excluded"])))
+            continue
+        ok = value is not None and tol.allows(golden_value, value)
+        why = None
+        if tol.widened(golden_value):
+            record = entry.get("step") if isinstance(entry.get("step"), dict) else None
+            why = (step.describe_step(key, golden_value, record) if record and "fine_value" in record
+                   else "step dependence (recorded without its measurement)")
+            why += f"; tolerance widened to +/-{tol.step_abs:.3g} ({step.STEP_K:g} x the change)"
+        rows.append(Row(key, golden_value, value, tol, ok, widened=why))
     return tuple(rows)
 
 
 # ---------------------------------------------------------------- running
 
 
-def run_one(design_path: str) -> dict:
+#: largest points per cycle of the step-dependence run (the key's upper limit, design/key_table.py)
+POINTS_MAX = 20000
+
+
+def run_one(design_path: str, points_factor: int = 1) -> dict:
     """Run one design (in a worker process) and return plain data.
 
-    Returns ``{"metrics": dict, "digest": str, "error": None}`` or
+    ``points_factor``: run with this many times the design's ``sim.points_per_cycle`` (the
+    step-dependence run of an accept, netgen.handoff.step).
+
+    Returns ``{"metrics": dict, "digest": str, "points_per_cycle": int, "error": None}`` or
     ``{"error": "message"}`` for an error the user can cause or a simulator failure.
     """
+    from dataclasses import replace
+
     from netgen.design import load_design
     from netgen.pipeline import run_design
 
     try:
         design = load_design(design_path)
+        if points_factor != 1:
+            ppc = min(int(design.sim.points_per_cycle) * int(points_factor), POINTS_MAX)
+            design = replace(design, sim=replace(design.sim, points_per_cycle=ppc))
         result = run_design(design, None, plots=False)
-        return {"metrics": result.metrics, "digest": result.sized.digest(), "error": None}
+        return {"metrics": result.metrics, "digest": result.sized.digest(),
+                "points_per_cycle": int(design.sim.points_per_cycle), "error": None}
     except NetgenError as exc:
         return {"error": f"{type(exc).__name__}: {exc}"}
 
 
-def _result(design: Path, run: dict, accept: bool) -> CheckResult:
+def _fine_golden_inputs(run: dict, fine: dict | None) -> dict:
+    """make_golden's step arguments from the two runs of an accept (or why there is no measurement)."""
+    if fine is None:
+        return {"step_note": "no second run (a runner without one)"}
+    if fine.get("error"):
+        return {"step_note": f"the run at more points per cycle failed ({fine['error']})"}
+    if not fine["metrics"].get("settled", False):
+        return {"step_note": "the run at more points per cycle did not settle"}
+    p0, p1 = run.get("points_per_cycle"), fine.get("points_per_cycle")
+    if not p0 or not p1 or p1 <= p0:
+        return {"step_note": "the runs do not say their points per cycle"}
+    return {"fine_metrics": fine["metrics"], "points": (int(p0), int(p1))}
+
+
+def _result(design: Path, run: dict, accept: bool, fine: dict | None = None) -> CheckResult:
     gpath = golden_path(design)
     old = read_golden(gpath) if gpath.is_file() else None
     if run.get("error"):
@@ -378,7 +466,7 @@ def _result(design: Path, run: dict, accept: bool) -> CheckResult:
             notes.append(f"golden made by version {old.get(VERSION_KEY)}, this is {__version__}")
     else:
         notes.append("no golden yet")
-    new_golden = make_golden(design, metrics, run["digest"], old) if accept else None
+    new_golden = make_golden(design, metrics, run["digest"], old, **_fine_golden_inputs(run, fine)) if accept else None
     return CheckResult(design, gpath, rows, settled, None, tuple(notes), new_golden)
 
 
@@ -389,6 +477,7 @@ def check_designs(
     accept: bool = False,
     on_done: Callable[[CheckResult], None] | None = None,
     runner: Callable[[str], dict] = run_one,
+    step_runner: Callable[[str], dict] | None = None,
 ) -> list[CheckResult]:
     """Re-run designs and compare each with its golden file.
 
@@ -401,10 +490,15 @@ def check_designs(
     accept : bool
         Also build the new golden documents (``CheckResult.new_golden``);
         :func:`accept` writes them. Designs without a golden are then allowed.
+        Each design also runs at ``STEP_FACTOR`` times its points per cycle
+        (``step_runner``) to measure the step dependence of every metric.
     on_done : callable, optional
         Called with each result as it completes (progress display).
     runner : callable
         ``design path -> run dict`` (:func:`run_one`); must be picklable.
+    step_runner : callable, optional
+        The finer run of an accept (default: :func:`run_one` with ``points_factor =
+        STEP_FACTOR`` when ``runner`` is :func:`run_one`; none for another runner).
 
     Returns
     -------
@@ -416,26 +510,37 @@ def check_designs(
             read_golden(golden_path(d))
     if not designs:
         return []
+    if accept and step_runner is None and runner is run_one:
+        step_runner = partial(run_one, points_factor=step.STEP_FACTOR)
+    fine_runner = step_runner if accept else None
     workers = jobs or min(len(designs), multiprocessing.cpu_count() or 1)
     results: dict[int, CheckResult] = {}
     if workers <= 1 or len(designs) == 1:
         for i, d in enumerate(designs):
-            results[i] = _result(d, runner(str(d)), accept)
+            run = runner(str(d))
+            fine = fine_runner(str(d)) if fine_runner and not run.get("error") else None
+            results[i] = _result(d, run, accept, fine)
             if on_done:
                 on_done(results[i])
     else:
         ctx = multiprocessing.get_context("spawn")  # a fresh interpreter: no inherited simulator state
         with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-            futures = {pool.submit(runner, str(d)): i for i, d in enumerate(designs)}
+            futures = {pool.submit(runner, str(d)): (i, 0) for i, d in enumerate(designs)}
+            if fine_runner:
+                futures.update({pool.submit(fine_runner, str(d)): (i, 1) for i, d in enumerate(designs)})
+            runs: dict[int, list] = {i: [None, None] for i in range(len(designs))}
             from concurrent.futures import as_completed
 
             for fut in as_completed(futures):
-                i = futures[fut]
+                i, which = futures[fut]
                 try:
-                    run = fut.result()
+                    runs[i][which] = fut.result()
                 except Exception as exc:  # a crashed worker is a failed check, reported, not hidden
-                    run = {"error": f"worker failed: {type(exc).__name__}: {exc}"}
-                results[i] = _result(designs[i], run, accept)
+                    runs[i][which] = {"error": f"worker failed: {type(exc).__name__}: {exc}"}
+                run, fine = runs[i]
+                if run is None or (fine_runner and fine is None):
+                    continue
+                results[i] = _result(designs[i], run, accept, fine)
                 if on_done:
                     on_done(results[i])
     return [results[i] for i in range(len(designs))]
@@ -458,7 +563,8 @@ def accept(results: Iterable[CheckResult]) -> list[str]:
             continue
         if r.new_golden is None:
             continue
-        changed = [row for row in r.rows if row.new is None or row.golden != row.new]
+        changed = [row for row in r.rows if row.new is None or row.golden is None
+                   or abs(row.new - row.golden) > 1e-9 * max(abs(row.golden), 1e-12)]  # not the last digits
         if not r.golden_path.is_file():
             lines.append(f"{name}: new golden {r.golden_path.name} ({len(r.new_golden['metrics'])} metrics)")
         elif not changed and all(row.ok for row in r.rows):
@@ -467,42 +573,6 @@ def accept(results: Iterable[CheckResult]) -> list[str]:
             parts = [f"{row.metric} {row.golden:.6g} -> {row.new:.6g}" if row.new is not None else f"{row.metric} removed"
                      for row in changed]
             lines.append(f"{name}: updated: " + ("; ".join(parts) if parts else "metadata only"))
+        lines += step_lines(r.new_golden)
         write_golden(r.golden_path, r.new_golden)
     return lines
-
-
-def format_number(x: float | None) -> str:
-    return "-" if x is None else f"{x:.6g}"
-
-
-def format_result(r: CheckResult, *, only_failures: bool = False) -> str:
-    """A pass/fail table for one design: metric, golden, new, deviation, tolerance, result."""
-    status = "PASS" if r.ok else "FAIL"
-    if r.ok and not r.rows and not r.golden_path.is_file():
-        status = "NEW "
-    head = f"{status}  {r.design_path}"
-    lines = [head]
-    for note in r.notes:
-        lines.append(f"  note: {note}")
-    if r.error:
-        lines.append(f"  error: {r.error}")
-        return "\n".join(lines)
-    rows = [row for row in r.rows if not (only_failures and row.ok)]
-    if rows:
-        table = [("metric", "golden", "new", "deviation", "tolerance", "result")]
-        table += [(row.metric, format_number(row.golden), format_number(row.new), row.deviation,
-                   row.tolerance.describe(*(("dB", "dBc") if row.metric.endswith("_dbc") else ())),
-                   "ok" if row.ok else "FAIL") for row in rows]
-        widths = [max(len(t[i]) for t in table) for i in range(6)]
-        for t in table:
-            lines.append("  " + "  ".join(c.ljust(w) for c, w in zip(t, widths)).rstrip())
-    return "\n".join(lines)
-
-
-def format_summary(results: list[CheckResult]) -> str:
-    """One closing line: how many designs passed."""
-    failed = [r.design_path.name for r in results if not r.ok]
-    text = f"{len(results) - len(failed)} of {len(results)} designs pass"
-    if failed:
-        text += "; failed: " + ", ".join(failed)
-    return text

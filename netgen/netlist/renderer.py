@@ -213,7 +213,8 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         pw = dev.duty * period - edge
         if pw <= 0:
             raise RenderError(f"device.transition: {dev.transition:g} of a period is longer than the on-time (device.duty = {dev.duty:g}); lower the transition.")
-        device.update(edge_s=edge, pw_s=pw)
+        device.update(edge_s=edge, pw_s=pw, reverse_conduction=dev.reverse_conduction, diode_vf_v=dev.diode_vf_v,
+                      diode_g_s=1.0 / (dev.diode_ron_ohm if dev.diode_ron_ohm is not None else dev.ron_ohm))
     elif dev.model == "gm":
         alpha = math.radians(dev.conduction_angle_deg) / 2.0
         imax = sized.derived["imax_a"][0]

@@ -26,7 +26,8 @@ from netgen.netlist import (
     source_waveform,
 )
 
-__all__ = ["LINEAR_KINDS", "Device", "read_device", "control_waveform", "solve_device", "TOEPLITZ_FROM", "NEWTON_MAX", "NEWTON_TOL"]
+__all__ = ["LINEAR_KINDS", "Device", "read_device", "control_waveform", "solve_device", "reverse_diode", "TOEPLITZ_FROM",
+           "NEWTON_MAX", "NEWTON_TOL", "DIODE_MAX"]
 
 #: element kinds of the linear network around the device (everything else is refused)
 LINEAR_KINDS = "RLCVIEGT"
@@ -37,6 +38,8 @@ TOEPLITZ_FROM = 128
 NEWTON_MAX = 40
 #: relative change of the device current at which Newton's method has converged
 NEWTON_TOL = 1e-10
+#: active-set iterations allowed for the reverse-conduction diode before the estimate is given up
+DIODE_MAX = 60
 
 
 #: the diodes of the angelov device (templates/devices.j2): voltage-dependent Cgs and Cgd and the
@@ -53,6 +56,49 @@ class Device:
     linear: bool
     conductance: np.ndarray | None = None   # (M,) for linear devices: i = g v
     t0_s: float = 0.0      # grid origin (a switch's turn-on instant)
+    #: reverse conduction across the device, (Vf V, G S): i = G (v + Vf) below v = -Vf, else 0
+    #: (the BREV element of templates/devices.j2); ``law`` includes it
+    diode: tuple[float, float] | None = None
+    #: the elements folded into the device besides ``name`` (the diode's card)
+    extra: tuple[str, ...] = ()
+
+
+def reverse_diode(card: Card) -> tuple[float, float] | None:
+    """(Vf, G) when ``card`` is a B source from ``dsw`` to ground whose current is a
+    reverse-conduction diode ``G min(v + Vf, 0)`` (A, V, S), in whatever form the expression
+    takes (read by probing its law); None for any other element."""
+    t = card.tokens
+    m = re.match(r"\s*i\s*=\s*(.*)$", " ".join(t[3:]), re.IGNORECASE)
+    if card.name[0] != "B" or not m or [x.lower() for x in t[1:3]] not in (["dsw", "0"], ["dsw", "gnd"]):
+        return None
+    text = m.group(1).strip().strip("{}'\"")
+    if re.search(r"\btime\b", text, re.IGNORECASE):
+        return None
+    try:
+        f, nodes = device_expression(text, t[0])
+    except Unsupported:
+        return None
+    if nodes - {"dsw", "0", "gnd"}:
+        return None
+
+    def law(v):
+        v = np.asarray(v, dtype=float)
+        return np.broadcast_to(f({"dsw": v, "0": np.zeros_like(v), "gnd": np.zeros_like(v)}), v.shape).astype(float)
+
+    with np.errstate(all="ignore"):
+        if not np.all(law(np.array([0.0, 1e-3, 1.0, 10.0, 1e3])) == 0.0):
+            return None
+        f1, f2 = law(np.array([-2e3, -1e3]))
+        g = (f2 - f1) / 1e3
+        if not (np.isfinite(g) and g > 0):
+            return None
+        vf = float(f2 / g + 1e3)
+        if not (0.0 <= vf < 1e3):
+            return None
+        probe = np.array([-0.5 * vf, -0.999 * vf, -vf - 1e-3, -vf - 0.1, -vf - 5.0, -vf - 300.0])
+        if not np.allclose(law(probe), g * np.minimum(probe + vf, 0.0), rtol=1e-9, atol=1e-12 * g):
+            return None
+    return vf, float(g)
 
 
 def control_waveform(cards: list[Card], node: str, period_s: float) -> SourceWaveform:
@@ -75,6 +121,24 @@ def read_device(cards: list[Card], models: dict, period_s: float, points: int) -
                           "and a reverse-conduction diode, which the periodic estimate does not solve")
     touching = [c for c in cards if not c.text.startswith(".") and c.name[0] not in LINEAR_KINDS + "S"
                 and "dsw" in [x.lower() for x in c.tokens[1:3]]]
+    diodes = [(c, d) for c in touching for d in (reverse_diode(c),) if d is not None]
+    if len(diodes) > 1:
+        raise Unsupported(f"{diodes[1][0].tokens[0]}: more than one reverse-conduction element at 'dsw'")
+    touching = [c for c in touching if all(c is not x for x, _ in diodes)]
+    dev = _main_device(touching, cards, models, period_s, points)
+    if diodes:
+        (card, (vf, gd)), base = diodes[0], dev.law
+        dev.law = lambda v, idx: base(v, idx) + gd * np.minimum(v + vf, 0.0)
+        dev.diode, dev.extra = (vf, gd), (card.tokens[0],)
+    return dev
+
+
+def _main_device(touching: list[Card], cards: list[Card], models: dict, period_s: float, points: int) -> Device:
+    """The switch or B-source device between ``dsw`` and ground (read_device without the diode).
+
+    Length: the S switch's reading (model, control, state at t = 0, grid placement) and the B
+    source's (expression, controls, linearity probe) are each one sequence of checks.
+    """
     switches = [c for c in cards if c.name[0] == "S" and [x.lower() for x in c.tokens[1:3]] in (["dsw", "0"], ["dsw", "gnd"])]
     cands = switches + [c for c in touching if c.name[0] == "B"]
     others = [c for c in touching if c.name[0] != "B"]
@@ -158,19 +222,9 @@ def solve_device(dev: Device, voc_k: np.ndarray, zdraw_k: np.ndarray, M: int) ->
     j = np.arange(M)
     if dev.linear:
         g = dev.conductance
-        g0 = float(max(g.min(), 0.0))
-        # fold the constant part g0 into the port: z' = z / (1 + g0 z) (z = -zdraw), voc' likewise
-        z_k = -zdraw_k
-        zf_k = z_k / (1.0 + g0 * z_k)
-        vocf = np.fft.irfft(voc_k / (1.0 + g0 * z_k), M)
-        kf = np.fft.irfft(zf_k, M)
-        act = np.nonzero(g - g0 > 1e-12 * max(g.max(), 1e-30))[0]
-        i_act = np.zeros(M)
-        if act.size:
-            # v_A = vocf_A - C i_A and i_A = dg v_A  ->  (C + diag(1/dg)) i_A = vocf_A
-            i_act[act] = _solve_on_interval(kf, act, 1.0 / (g[act] - g0), vocf[act])
-        v = vocf - _circ(kf, i_act)
-        return g0 * v + i_act
+        if dev.diode is None:
+            return _solve_linear(g, None, voc_k, zdraw_k, M)[0]
+        return _solve_with_diode(g, dev.diode, voc_k, zdraw_k, M)
     # nonlinear: Newton on the voltage at the samples where the device can conduct
     probe_v = np.abs(voc).max() * np.array([-2.0, -0.5, 0.25, 1.0, 3.0]) + np.array([-1, -0.1, 0.1, 1, 10])
     can = np.zeros(M, bool)
@@ -209,6 +263,59 @@ def solve_device(dev: Device, voc_k: np.ndarray, zdraw_k: np.ndarray, M: int) ->
     out = np.zeros(M)
     out[act] = i
     return out
+
+
+def _solve_linear(g: np.ndarray, c: np.ndarray | None, voc_k, zdraw_k, M: int,
+                  g0: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Current and voltage (A, V) of the device ``i = g v + c`` on the grid (``c``: a known
+    current, A, or None, only where g exceeds ``g0``: the conductance folded into the port,
+    default the smallest of g)."""
+    g0 = float(max(g.min(), 0.0)) if g0 is None else g0
+    # fold the constant part g0 into the port: z' = z / (1 + g0 z) (z = -zdraw), voc' likewise
+    z_k = -zdraw_k
+    zf_k = z_k / (1.0 + g0 * z_k)
+    vocf = np.fft.irfft(voc_k / (1.0 + g0 * z_k), M)
+    kf = np.fft.irfft(zf_k, M)
+    act = np.nonzero(g - g0 > 1e-12 * max(g.max(), 1e-30))[0]
+    i_act = np.zeros(M)
+    if act.size:
+        # v_A = vocf_A - C i_A and i_A = dg v_A + c_A  ->  (C + diag(1/dg)) i_A = vocf_A + c_A/dg
+        dg = g[act] - g0
+        rhs = vocf[act] if c is None else vocf[act] + c[act] / dg
+        i_act[act] = _solve_on_interval(kf, act, 1.0 / dg, rhs)
+    v = vocf - _circ(kf, i_act)
+    return g0 * v + i_act, v
+
+
+def _solve_with_diode(g: np.ndarray, diode: tuple[float, float], voc_k, zdraw_k, M: int) -> np.ndarray:
+    """A linear device with the reverse-conduction diode ``G min(v + Vf, 0)`` across it (A).
+
+    The diode makes the law piecewise linear; on a guessed set D of conducting samples it is the
+    linear device ``i = (g + G) v + G Vf`` there, solved exactly (:func:`_solve_linear`). D is
+    then replaced by the samples with ``v < -Vf`` until it repeats: Newton's method on a
+    piecewise-linear equation (an active-set method; each step is one linear solve, and a
+    solution found is the exact one). It starts from the device without the diode, so a
+    periodic state that never reaches -Vf costs one solve and is the same as before. Raises
+    Unsupported after ``DIODE_MAX`` steps.
+    """
+    vf, gd = diode
+    on = np.zeros(M, bool)
+    seen: set[bytes] = set()
+    for _ in range(DIODE_MAX):
+        # the switch's own smallest conductance is folded into the port, so every diode sample
+        # (g + G > g0) carries its G Vf in the solve, even were the diode on everywhere
+        i, v = _solve_linear(g + gd * on, np.where(on, gd * vf, 0.0), voc_k, zdraw_k, M, g0=float(max(g.min(), 0.0)))
+        tol = 1e-9 * max(float(np.abs(v).max()), 1.0)
+        new = np.where(np.abs(v + vf) <= tol, on, v < -vf)  # at the knee either side is exact
+        if np.array_equal(new, on):
+            return i
+        key = np.packbits(new).tobytes()
+        if key in seen:  # a cycle of sets: the step is not contracting here
+            break
+        seen.add(key)
+        on = new
+    raise Unsupported("the reverse-conduction diode's conducting intervals did not settle "
+                      f"in {DIODE_MAX} steps of the periodic estimate")
 
 
 def _solve_on_interval(kernel: np.ndarray, act: np.ndarray, r: np.ndarray, rhs: np.ndarray) -> np.ndarray:

@@ -221,10 +221,16 @@ class _Net:
                 Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
 
 
-def _network(cards: list[Card], device: str, period_s: float, blocks: dict | None = None, *,
+def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None, *,
              exclude: frozenset = frozenset(), roots: tuple = ("dsw",)) -> tuple[_Net, set[str]]:
     """The linear elements connected (through other linear elements) to ``dsw`` (and to the
-    other ``roots``), leaving out ``device`` and the elements named in ``exclude``."""
+    other ``roots``); ``device``: the device's element name(s), left out, as are the elements
+    named in ``exclude``.
+
+    Length: reachability from the roots and then one check and branch numbering per element kind,
+    in the order ``_Net.assemble`` stamps them.
+    """
+    device = {device} if isinstance(device, str) else set(device)
     elements = [c for c in cards if not c.text.startswith(".") and c.name not in exclude]
     adj: dict[str, set[str]] = {}
 
@@ -239,7 +245,7 @@ def _network(cards: list[Card], device: str, period_s: float, blocks: dict | Non
         return t[1:3]
 
     for c in elements:
-        if c.name == device:
+        if c.name in device:
             continue
         ns = [x for x in terminals(c) if x not in GROUND]
         for x in ns:
@@ -252,7 +258,7 @@ def _network(cards: list[Card], device: str, period_s: float, blocks: dict | Non
             continue
         seen.add(x)
         stack.extend(adj.get(x, ()))
-    mine = [c for c in elements if c.name != device and any(x in seen for x in terminals(c))]
+    mine = [c for c in elements if c.name not in device and any(x in seen for x in terminals(c))]
     branches: dict[str, int] = {}
     widths: dict[str, int] = {}
     sources: dict[str, SourceWaveform] = {}
@@ -455,7 +461,7 @@ def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dic
             M = grid_points(points, nonlinear=True)
             dev = read_device(cards, models, period, M)
         dev_name, t0_s = dev.name, dev.t0_s
-        net, _ = _network(cards, dev.name.upper(), period, blocks)
+        net, _ = _network(cards, {dev.name.upper(), *(x.upper() for x in dev.extra)}, period, blocks)
     h = period / M
     if "dsw" not in net.index:
         raise Unsupported("the device node 'dsw' is not connected to the network")

@@ -27,6 +27,7 @@ __all__ = [
     "grid_data",
     "sample_data",
     "circle_data",
+    "CIRCLE_STRESS",
     "plot_line",
     "plot_grid",
     "plot_histograms",
@@ -113,14 +114,20 @@ def sample_data(rows: Sequence[dict], metric: str) -> np.ndarray:
     return v[np.isfinite(v)]
 
 
+#: the device stress figures of a load circle (metrics.json keys), drawn in its stress panels
+CIRCLE_STRESS = ("peak_vd_v", "min_vd_v", "peak_id_a", "device_dissipation_w")
+
+
 def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
-    """Reflection coefficients of the load-circle points and their efficiency and power.
+    """Reflection coefficients of the load-circle points, their load phase (deg, NaN when the
+    row has none), efficiency, power and the device stress figures of ``CIRCLE_STRESS``.
 
     Gamma = (Z - RL)/(Z + RL) with Z = design.load + j design.load_x (Pozar).
     """
     from netgen.design import parse_quantity
 
-    g, eff, pout = [], [], []
+    keys = ("drain_efficiency", "pout_w", *CIRCLE_STRESS)
+    g, phase, vals = [], [], {k: [] for k in keys}
     for r in rows:
         s = r["inputs"].get("set", {})
         if "design.load" not in s:
@@ -128,9 +135,11 @@ def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
         z = complex(parse_quantity(s["design.load"], "ohm", "design.load"),
                     parse_quantity(s.get("design.load_x", "0 ohm"), "ohm", "design.load_x"))
         g.append((z - rl_ohm) / (z + rl_ohm))
-        eff.append(_value(r, "drain_efficiency"))
-        pout.append(_value(r, "pout_w"))
-    return {"gamma": np.array(g, dtype=complex), "drain_efficiency": np.array(eff), "pout_w": np.array(pout)}
+        phase.append(float(r["inputs"].get("axes", {}).get("load_phase_deg", math.nan)))
+        for k in keys:
+            vals[k].append(_value(r, k))
+    return {"gamma": np.array(g, dtype=complex), "phase_deg": np.array(phase, dtype=float),
+            **{k: np.array(v, dtype=float) for k, v in vals.items()}}
 
 
 # ---------------------------------------------------------------- drawing
@@ -222,10 +231,55 @@ def plot_histograms(rows: Sequence[dict], specs: Sequence[Spec], path: Path,
     return _save(fig, path)
 
 
-def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path) -> Path:
-    """Efficiency and output power at each load, on a reflection-coefficient plane with a Smith-like grid."""
+def _worst(data: dict, key: str, pick, unit: str) -> str:
+    """'<value> <unit> at <phase>' of the worst point of a stress figure (``pick``: np.nanargmax / nanargmin)."""
+    v = data[key]
+    if not np.isfinite(v).any():
+        return "-"
+    i = int(pick(v))
+    where = f" at {data['phase_deg'][i]:g} deg" if np.isfinite(data["phase_deg"][i]) else ""
+    return f"{v[i]:.3g} {unit}{where}"
+
+
+def _stress_panels(ax_v, ax_i, data: dict, vdd_v: float | None) -> None:
+    """The device stress at each load against its phase: drain voltage extremes (V) on the left,
+    peak drain current (A) and device dissipation (W) on the right; the worst of each in the title."""
+    x = data["phase_deg"]
+    if not np.isfinite(x).all():
+        x = np.arange(len(x), dtype=float)  # no phase axis: by point
+        ax_v.set_xlabel("point")
+    else:
+        ax_v.set_xlabel("load phase (deg)")
+    order = np.argsort(x, kind="stable")
+    xs = x[order]
+    ax_v.plot(xs, data["peak_vd_v"][order], "^-", color="#b22222", ms=4, lw=1.0, label="peak drain voltage")
+    ax_v.plot(xs, data["min_vd_v"][order], "v-", color="#1f4e79", ms=4, lw=1.0, label="min drain voltage")
+    ax_v.axhline(0.0, color="#888888", lw=0.7)
+    if vdd_v:
+        ax_v.axhline(vdd_v, color="#888888", lw=0.7, ls=":", label="Vdd")
+    ax_v.set_ylabel("drain voltage (V)", fontsize=8)
+    ax_v.legend(fontsize=7, loc="best")
+    ax_v.set_title(f"drain voltage: peak {_worst(data, 'peak_vd_v', np.nanargmax, 'V')}, "
+                   f"min {_worst(data, 'min_vd_v', np.nanargmin, 'V')}", fontsize=8)
+    ax_i.plot(xs, data["peak_id_a"][order], "o-", color="#7a3b00", ms=4, lw=1.0, label="peak drain current")
+    ax_i.set_ylabel("peak drain current (A)", fontsize=8, color="#7a3b00")
+    ax_i.set_xlabel(ax_v.get_xlabel())
+    ax_w = ax_i.twinx()
+    ax_w.plot(xs, data["device_dissipation_w"][order], "s--", color="#2e7d32", ms=4, lw=1.0, label="device dissipation")
+    ax_w.set_ylabel("device dissipation (W)", fontsize=8, color="#2e7d32")
+    ax_i.set_title(f"peak current {_worst(data, 'peak_id_a', np.nanargmax, 'A')}, "
+                   f"dissipation {_worst(data, 'device_dissipation_w', np.nanargmax, 'W')}", fontsize=8)
+    for ax in (ax_v, ax_i):
+        ax.grid(True, color="#dddddd", lw=0.6)
+
+
+def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path, vdd_v: float | None = None) -> Path:
+    """Efficiency and output power at each load, on a reflection-coefficient plane with a
+    Smith-like grid, and below them the device stress at each load (drain voltage extremes,
+    peak drain current, device dissipation: what a mismatch does to the device)."""
     data = circle_data(rows, rl_ohm)
-    fig, axes = plt.subplots(1, 2, figsize=(10, 4.8))
+    fig, grid = plt.subplots(2, 2, figsize=(10, 8.6), gridspec_kw={"height_ratios": [1.25, 1.0]})
+    axes = grid[0]
     t = np.linspace(0, 2 * np.pi, 361)
     for ax, key in zip(axes, ("drain_efficiency", "pout_w")):
         ax.plot(np.cos(t), np.sin(t), color="#888888", lw=0.8)
@@ -248,6 +302,7 @@ def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path) -> Path:
         ax.set_xlabel("Re Γ")
         ax.set_ylabel("Im Γ")
         ax.set_title(label, fontsize=9)
+    _stress_panels(grid[1][0], grid[1][1], data, vdd_v)
     fig.suptitle(f"load circle around {rl_ohm:g} ohm", fontsize=10)
     fig.tight_layout()
     return _save(fig, path)
@@ -329,7 +384,9 @@ def plot_sweep(db, outdir, specs: Sequence[Spec] = ()) -> dict:
 
         doc = tomllib.loads(info["design_toml"])
         rl = parse_quantity(doc.get("design", {}).get("load", "50 ohm"), "ohm", "design.load")
-        made["load_circle"] = plot_load_circle(rows, rl, outdir / "load_circle.png")
+        vdd = doc.get("design", {}).get("vdd")
+        vdd_v = parse_quantity(vdd, "V", "design.vdd") if vdd is not None else None
+        made["load_circle"] = plot_load_circle(rows, rl, outdir / "load_circle.png", vdd_v)
         if len(units) == 1:
             made["line_load_phase_deg"] = plot_line(rows, "load_phase_deg", outdir / "sweep_load_phase.png", "deg")
     if numeric == ["drive.pin"] and not spec["samples"] and len(units) == 1:
