@@ -365,3 +365,32 @@ def test_the_start_sentence_names_the_fallback_and_its_reason():
         "Started from the DC state of feed and block (XDEV: the device is a subcircuit).")
     assert start_text({"method": "cold"}) == "Started from zero (sim.warm_start = false)."
     assert start_text({}) == ""
+
+
+@pytest.mark.parametrize("name", ["demo", "class_f_lumped", "class_f_feed"])
+def test_inductors_folded_into_admittances_give_the_full_mna_solution(name):
+    # Modified nodal analysis (Ho, Ruehli & Brennan, IEEE T-CAS 1975): an inductor's branch
+    # unknown and its admittance 1/(sL) between the same nodes describe the same circuit at every
+    # s != 0, with i_L = (v_a - v_b)/(sL). The estimate solves bins 1.. the folded way; here every
+    # unknown of every bin is compared with the plain MNA solve of the whole system.
+    sized = size(load_design(SIMS / f"{name}.toml"))
+    d = sized.design
+    text = render(sized, mode="tran")
+    cards = netlist_cards.read_cards(text)
+    dev = estimator.read_device(cards, netlist_cards.model_cards(cards), 1 / d.f0_hz, 200)
+    net, _ = estimator._network(cards, {dev.name.upper(), *(x.upper() for x in dev.extra)}, 1 / d.f0_hz)
+    assert any(k[0] == "L" for k in net.branches)  # the case the folding is for
+    M = 200
+    theta = 2 * PI * np.arange(M // 2 + 1) / M
+    h = 1 / d.f0_hz / M
+    s = 2j / h * np.tan(theta / 2)
+    s[-1] = 2j / h * 1e3  # the capped Nyquist bin, as the estimate does
+    cols = [net.index["dsw"]]
+    got = estimator._solve_bins(net, s, theta, 1 / d.f0_hz, M, 0.0, cols)
+    Y, b = net.assemble(s, theta, 1 / d.f0_hz, M, 0.0)
+    draw = np.zeros(b.shape + (1,), complex)
+    draw[:, cols[0], 0] = -1.0
+    want = np.linalg.solve(Y, np.concatenate([b[..., None], draw], axis=-1))
+    scale = np.abs(want).max(axis=(0, 1), keepdims=True)
+    assert np.abs(got - want).max() / scale.max() < 1e-9
+    assert got.shape == want.shape

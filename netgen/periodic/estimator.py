@@ -100,20 +100,36 @@ class _Net:
     def __post_init__(self):
         self.index = {n: i for i, n in enumerate(self.nodes)}
 
-    def assemble(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float):
-        """Y (K, n, n) and source vectors (K, n) for the bins with Laplace variable ``s`` (trapezoidal).
+    def folded_columns(self) -> dict[str, int]:
+        """Branch name -> first column in the system without inductor branches (``fold_inductors``)."""
+        cols, at = {}, len(self.nodes)
+        for name, _ in sorted(self.branches.items(), key=lambda kv: kv[1]):
+            if name[0] != "L":
+                cols[name] = at
+                at += self.widths.get(name, 1)
+        return cols
+
+    def assemble(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float, *,
+                 first_bin: int = 0, fold_inductors: bool = False):
+        """Y (K, n, n) and source vectors (K, n) for the bins ``first_bin ..`` with Laplace variable
+        ``s`` (trapezoidal). With ``fold_inductors`` (every s non-zero) an inductor is stamped as
+        its admittance 1/(sL) instead of a branch unknown (same solution, fewer unknowns: the
+        columns are :meth:`folded_columns`).
 
         Length: one modified-nodal-analysis stamp per element kind (R, L, C, V, I, E, G, T),
         side by side so the stamps can be checked against each other.
         """
-        K, n, nn = len(s), self.size, len(self.nodes)
+        nn = len(self.nodes)
+        cols = self.folded_columns() if fold_inductors else {k: nn + v for k, v in self.branches.items()}
+        K = len(s)
+        n = self.size - (sum(1 for k in self.branches if k[0] == "L") if fold_inductors else 0)
         Y = np.zeros((K, n, n), complex)
         b = np.zeros((K, n), complex)
         Y[:, np.arange(nn), np.arange(nn)] += 1e-12  # gmin, as in SPICE
         grid = t0_s + np.arange(points) * (period_s / points)
 
         def spectrum(src: SourceWaveform) -> np.ndarray:
-            return np.fft.rfft(src.value(grid))[:K]
+            return np.fft.rfft(src.value(grid))[first_bin:first_bin + K]
 
         def add(r, c, y):
             if r is not None and c is not None:
@@ -144,13 +160,15 @@ class _Net:
                 conductance(a, bb, 1.0 / spice_value(t[3].split("=")[-1], c.name))
             elif kind == "C":
                 conductance(a, bb, s * spice_value(t[3], c.name))
+            elif kind == "L" and fold_inductors:
+                conductance(a, bb, 1.0 / (s * spice_value(t[3], c.name)))
             elif kind == "L":
-                p = nn + self.branches[c.name]
+                p = cols[c.name]
                 branch_kcl(a, bb, p)
                 vdiff(p, a, bb, 1.0)
                 Y[:, p, p] -= s * spice_value(t[3], c.name)
             elif kind == "V":
-                p = nn + self.branches[c.name]
+                p = cols[c.name]
                 branch_kcl(a, bb, p)
                 vdiff(p, a, bb, 1.0)
                 b[:, p] += spectrum(self.sources[c.name])
@@ -169,18 +187,18 @@ class _Net:
                     add(r, self.node(ca), sign * gm)
                     add(r, self.node(cb), -sign * gm)
             elif kind == "E":
-                p = nn + self.branches[c.name]
+                p = cols[c.name]
                 branch_kcl(a, bb, p)
                 vdiff(p, a, bb, 1.0)
                 vdiff(p, t[3].lower(), t[4].lower(), -spice_value(t[5], c.name))
             elif kind == "X":
-                self._stamp_block(c, Y, s, add, branch_kcl, vdiff)
+                self._stamp_block(c, Y, s, add, branch_kcl, vdiff, cols[c.name])
             elif kind == "T":
                 pars = card_params(t[5:])
                 z0 = spice_value(pars["Z0"], c.name)
                 d = np.exp(-1j * theta * (spice_value(pars["TD"], c.name) / period_s) * points)
                 n3, n4 = t[3].lower(), t[4].lower()
-                p1 = nn + self.branches[c.name]
+                p1 = cols[c.name]
                 p2 = p1 + 1
                 branch_kcl(a, bb, p1)
                 branch_kcl(n3, n4, p2)
@@ -195,7 +213,7 @@ class _Net:
                 Y[:, p2, p1] -= d * z0
         return Y, b
 
-    def _stamp_block(self, c: Card, Y, s, add, branch_kcl, vdiff) -> None:
+    def _stamp_block(self, c: Card, Y, s, add, branch_kcl, vdiff, p0: int) -> None:
         """A Touchstone block's scattering relation per bin, one current unknown per port.
 
         With a = (v + z0 i)/(2 sqrt z0), b = (v - z0 i)/(2 sqrt z0) at each port (i into the
@@ -207,7 +225,6 @@ class _Net:
         t = c.tokens
         blk = self.blocks[t[-1].upper()]
         ports = [x.lower() for x in t[1:-1]]
-        p0 = len(self.nodes) + self.branches[c.name]
         S = blk.s_bins(s.imag / (2 * math.pi))
         rz = np.sqrt(np.asarray(blk.z0_ohm, dtype=float))
         for p, node in enumerate(ports):
@@ -220,6 +237,51 @@ class _Net:
                 vdiff(row, other, "0", -S[:, p, q] / rz[q])
                 Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
 
+
+
+def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M: int, t0_s: float,
+                cols: list[int]) -> np.ndarray:
+    """X (K, n, 1 + len(cols)): the network's response per bin to its own sources (column 0) and
+    to one unit of current drawn from each node in ``cols``, in the full MNA unknowns.
+
+    Bin 0 (DC, s = 0: an inductor is a short) is solved with the inductors' branch unknowns; the
+    other bins with the inductors folded into admittances 1/(sL) and their currents recovered as
+    (v_a - v_b)/(sL): the same solution with fewer unknowns (a loss ladder adds one inductor per
+    section; the batched dense solve costs n^3 per bin).
+    """
+    nn, n = len(net.nodes), net.size
+
+    def rhs(b: np.ndarray) -> np.ndarray:
+        draw = np.zeros(b.shape + (len(cols),), complex)
+        for j, col in enumerate(cols):
+            draw[:, col, j] = -1.0  # one unit of current drawn from dsw (from each port) by the device
+        return np.concatenate([b[..., None], draw], axis=-1)
+
+    X = np.zeros((len(s), n, 1 + len(cols)), complex)
+    try:
+        Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)
+        X[:1] = np.linalg.solve(Y0, rhs(b0))
+        if len(s) > 1:
+            Yr, br = net.assemble(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
+            Xr = np.linalg.solve(Yr, rhs(br))
+    except np.linalg.LinAlgError:
+        raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
+    if len(s) > 1:
+        X[1:, :nn] = Xr[:, :nn]
+        folded = net.folded_columns()
+        for c in net.cards:
+            if c.name not in net.branches:
+                continue
+            full = nn + net.branches[c.name]
+            if c.name[0] == "L":
+                ia, ib = (net.node(x.lower()) for x in c.tokens[1:3])
+                va = Xr[:, ia] if ia is not None else 0.0
+                vb = Xr[:, ib] if ib is not None else 0.0
+                X[1:, full] = (va - vb) / (s[1:, None] * spice_value(c.tokens[3], c.name))
+            else:
+                w = net.widths.get(c.name, 1)
+                X[1:, full:full + w] = Xr[:, folded[c.name]:folded[c.name] + w]
+    return X
 
 def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None, *,
              exclude: frozenset = frozenset(), roots: tuple = ("dsw",)) -> tuple[_Net, set[str]]:
@@ -471,16 +533,9 @@ def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dic
     # the simulator's integration per bin: trapezoidal, s_k = (2/h) j tan(theta/2) (the Nyquist bin,
     # C short and L open, capped), or ngspice's damped form when the netlist sets xmu
     s = collocation.s_bins(theta, h, collocation.xmu_of(cards))
-    Y, b = net.assemble(s, theta, period, M, t0_s)
     idsw = net.index["dsw"]
     cols = [idsw] + [net.index[p] for p in ports]
-    draw = np.zeros(b.shape + (len(cols),), complex)
-    for j, col in enumerate(cols):
-        draw[:, col, j] = -1.0  # one unit of current drawn from dsw (from each port) by the device
-    try:
-        X = np.linalg.solve(Y, np.concatenate([b[..., None], draw], axis=-1))
-    except np.linalg.LinAlgError:
-        raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
+    X = _solve_bins(net, s, theta, period, M, t0_s, cols)
     x_src, x_draw = X[..., 0], X[..., 1]
     if ports:
         pid = cols[1:]
