@@ -17,6 +17,7 @@ import ast
 import math
 import re
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -56,13 +57,18 @@ class Card:
     stop: int
     text: str
 
-    @property
-    def tokens(self) -> list[str]:
-        return self.text.split(";")[0].split()
+    @cached_property
+    def _split(self) -> tuple[str, ...]:
+        return tuple(self.text.split(";")[0].split())
 
     @property
+    def tokens(self) -> list[str]:
+        """The card's words before any ``;`` comment (a fresh list each call; split once)."""
+        return list(self._split)
+
+    @cached_property
     def name(self) -> str:
-        return self.tokens[0].upper()
+        return self._split[0].upper()
 
 
 def read_cards(netlist: str) -> list[Card]:
