@@ -368,11 +368,13 @@ def test_the_start_sentence_names_the_fallback_and_its_reason():
 
 
 @pytest.mark.parametrize("name", ["demo", "class_f_lumped", "class_f_feed"])
-def test_inductors_folded_into_admittances_give_the_full_mna_solution(name):
+def test_folded_and_condensed_solve_gives_the_full_mna_solution(name):
     # Modified nodal analysis (Ho, Ruehli & Brennan, IEEE T-CAS 1975): an inductor's branch
     # unknown and its admittance 1/(sL) between the same nodes describe the same circuit at every
-    # s != 0, with i_L = (v_a - v_b)/(sL). The estimate solves bins 1.. the folded way; here every
-    # unknown of every bin is compared with the plain MNA solve of the whole system.
+    # s != 0, with i_L = (v_a - v_b)/(sL); and Gaussian elimination of a node coupled to two
+    # others is exact (a Schur complement; Tinney & Walker, Proc. IEEE 1967). The estimate solves
+    # bins 1.. folded and condensed; here every unknown of every bin is compared with the plain
+    # MNA solve of the whole system by LAPACK's partial pivoting.
     sized = size(load_design(SIMS / f"{name}.toml"))
     d = sized.design
     text = render(sized, mode="tran")

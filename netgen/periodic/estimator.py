@@ -263,7 +263,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
         X[:1] = np.linalg.solve(Y0, rhs(b0))
         if len(s) > 1:
             Yr, br = net.assemble(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
-            Xr = np.linalg.solve(Yr, rhs(br))
+            Xr = _solve_condensed(Yr, rhs(br), nn)
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     if len(s) > 1:
@@ -281,6 +281,63 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
             else:
                 w = net.widths.get(c.name, 1)
                 X[1:, full:full + w] = Xr[:, folded[c.name]:folded[c.name] + w]
+    return X
+
+
+#: a node is condensed only if its pivot is at least this fraction of its largest coupling at every bin
+CONDENSE_PIVOT_MIN = 1e-6
+
+
+def _solve_condensed(Y: np.ndarray, R: np.ndarray, nn: int) -> np.ndarray:
+    """X with Y X = R per bin (Y (K, n, n), overwritten; R (K, n, c)), after Gaussian elimination of the nodes
+    that couple to at most two other nodes and carry no right-hand side (the inner nodes of loss
+    ladders and series chains); the rest by one batched dense solve.
+
+    The elimination of such a node is exact (a Schur complement of one unknown: the series
+    combination of its two branches, Y_jk -= Y_ji Y_ik / Y_ii) and creates at most one new
+    coupling, so a chain collapses node by node (minimum-degree ordering restricted to degree
+    <= 2; Tinney & Walker, Proc. IEEE 1967). Only node unknowns (index < ``nn``) are condensed,
+    and only where the pivot |Y_ii| is at least CONDENSE_PIVOT_MIN of the node's couplings at every
+    bin (a lossless series resonator's inner node near its resonance keeps the dense solve's
+    partial pivoting). The condensed voltages are recovered afterwards in reverse order.
+    """
+    K, n, _ = Y.shape
+    # the couplings, read at a few bins spread over the band (an element's admittance vanishes
+    # at isolated frequencies at most, so a structural zero is a zero at all of them)
+    probe = np.unique(np.linspace(0, K - 1, min(K, 5)).astype(int))
+    pattern = np.any(Y[probe] != 0, axis=0)
+    np.fill_diagonal(pattern, False)
+    free = ~np.any(R != 0, axis=(0, 2))
+    done: list[tuple[int, list[int], np.ndarray, np.ndarray]] = []
+    alive = np.ones(n, bool)
+    changed = True
+    while changed:
+        changed = False
+        for i in range(nn):
+            if not (alive[i] and free[i]):
+                continue
+            nbr = np.flatnonzero((pattern[i] | pattern[:, i]) & alive)
+            if len(nbr) > 2 or np.any(nbr >= nn):
+                continue
+            piv = Y[:, i, i]
+            coupling = np.max(np.abs(Y[:, i, nbr]), axis=1) if len(nbr) else np.abs(piv)
+            if np.any(np.abs(piv) < CONDENSE_PIVOT_MIN * coupling):
+                continue
+            for j in nbr:
+                for k in nbr:
+                    Y[:, j, k] -= Y[:, j, i] * Y[:, i, k] / piv
+                    pattern[j, k] = pattern[j, k] or j != k
+            done.append((i, list(nbr), Y[:, i, nbr].copy(), piv.copy()))
+            alive[i] = False
+            changed = True
+    keep = np.flatnonzero(alive)
+    X = np.zeros(R.shape, complex)
+    X[:, keep] = np.linalg.solve(Y[:, keep[:, None], keep[None, :]], R[:, keep])
+    for i, nbr, row, piv in reversed(done):
+        acc = np.zeros((K, R.shape[2]), complex)
+        for q, j in enumerate(nbr):
+            acc += row[:, q, None] * X[:, j]
+        X[:, i] = -acc / piv[:, None]
     return X
 
 def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None, *,
