@@ -108,6 +108,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "vcj": Key("vcj_v", "V", "0 V", "angelov: offset of both gate junctions, a DC source in series with each diode (C = C0 / (1 - (V - Vcj)/Vbi)^M); 0 for a Schottky gate (it conducts forward as a real one), above the largest gate swing for an insulated gate.", lo=-100.0, hi=100.0),
         "rev_is": Key("rev_is_a", "A", "1e-12 A", "angelov: saturation current of the reverse-conduction (body/channel) diode from source to drain.", lo=1e-30, hi=1.0),
         "rev_n": Key("rev_n", "", 1.0, "angelov: emission coefficient of the reverse-conduction diode.", lo=0.5, hi=5.0),
+        "cds_law": Key("cds_law", "str", "linear", "angelov: the drain-source capacitance. linear: device.cout, a fixed capacitor COUT; junction: a reverse-biased junction Cds(Vds) = Cds0 / (1 + Vds/cds_vj)^cds_m (the depletion law, a SPICE junction diode DCDS in place of COUT), with device.cout its value at Vds = Vdd (Cds0 = cout (1 + Vdd/cds_vj)^cds_m); sizing absorbs cout, the nonlinear part is left to the simulation (docs/devices.md).", choices=("linear", "junction")),
+        "cds_vj": Key("cds_vj_v", "V", "0.8 V", "angelov with cds_law = junction: built-in potential Vj of the drain-source junction.", lo=0.05, hi=10.0),
+        "cds_m": Key("cds_m", "", 0.5, "angelov with cds_law = junction: grading exponent M of the drain-source junction (0.5 abrupt, 0.33 linearly graded, common practice).", lo=0.05, hi=0.95),
     },
     "drive": {
         "pin": Key("pin_dbm", "dBm", "20 dBm", "angelov device: available power of the gate source, Pavail = |Vs|^2/(8 Rs) (dBm, or W converted to dBm).", lo=-100.0, hi=90.0),
