@@ -157,3 +157,17 @@ def test_junction_cds_estimate_agrees_with_ngspice_and_settles_in_few_cycles():
     assert fast.start["pload_w"] == pytest.approx(ref_pload, rel=1e-3)
     assert fast.history["pdc_w"][-1] == pytest.approx(ref_pdc, rel=1e-3)
     assert fast.history["pload_w"][-1] == pytest.approx(ref_pload, rel=1e-3)
+
+
+def test_sizing_absorbs_c_at_vdd_and_reports_the_swing():
+    # sizing absorbs device.cout = C(Vdd) whatever the law (the same network as the linear Cout);
+    # the derived values by hand for 0.6 pF at 12 V, Vj = 0.8 V, M = 1/2: Cds0 = 2.4 pF,
+    # C(0)/C(24 V) = sqrt(1 + 24/0.8) = sqrt(31) = 5.568, Q(24 V) = 2.4 pF x 0.8 V x (sqrt(31) - 1)/0.5
+    # = 17.54 pC, Q/24 V = 0.7308 pF (the charge of the depletion law, the integral of C dV)
+    lin = size(design_from_dict(_example()))
+    jun = size(design_from_dict(_example(cds_law="junction")))
+    assert {k: c.value for k, c in lin.components.items()} == {k: c.value for k, c in jun.components.items()}
+    assert jun.derived["cds0_f"][0] == pytest.approx(2.4e-12, rel=1e-12)
+    assert jun.derived["cds_cv_ratio"][0] == pytest.approx(math.sqrt(31.0), rel=1e-12)
+    assert jun.derived["cds_charge_equiv_f"][0] == pytest.approx(2.4e-12 * 0.8 * (math.sqrt(31.0) - 1) / 0.5 / 24.0, rel=1e-12)
+    assert "cds0_f" not in lin.derived
