@@ -137,14 +137,19 @@ def test_cli_error_is_one_line_exit_2(tmp_path):
 
 @pytest.mark.ngspice
 @pytest.mark.slow
-def test_junction_cds_estimate_agrees_with_ngspice_and_settles_in_few_cycles():
+@pytest.mark.parametrize("doc", [
+    _example(cds_law="junction"),
+    # the class E of the reference files, where the junction swings from 0 to about 3.7 Vdd
+    {**_hv_class_e(cds_law="junction"), "sim": {"points_per_cycle": 400, "max_cycles": 600}},
+], ids=["class_b_angelov", "hv_class_e"])
+def test_junction_cds_estimate_agrees_with_ngspice_and_settles_in_few_cycles(doc):
     # as tests/test_collocation.py for the linear example: the estimate (now with DCDS among the
     # device's junctions) against ngspice's settled answer from the independent DC start (judged to
     # sim.settle_tol = 0.1 %): Pdc and load power within 0.1 %; started on the estimate, ngspice settles
     # in <= 10 cycles and lands on the same answer
     from netgen.periodic import simulate
 
-    sized = size(design_from_dict(_example(cds_law="junction")))
+    sized = size(design_from_dict(doc))
     d = sized.design
     fast = simulate(sized)
     slow = simulate(dataclasses.replace(sized, design=dataclasses.replace(
