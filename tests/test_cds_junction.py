@@ -100,9 +100,8 @@ def test_junction_is_portable_and_the_line_variant_keeps_the_series_resistance()
     doc["device"] = {"model": "angelov", "preset": "lv_gan_2w", "vgate_bias": "-2.7 V", "cds_law": "junction"}
     doc["design"]["vdd"] = "12 V"
     cards = {c.name.upper(): c for c in read_cards(render(size(design_from_dict(doc))))}
-    if "RLOSS_COUT" in cards:
-        assert cards["DCDS"].tokens[1:3] == ["x_cout", "dint"]
-        assert cards["RLOSS_COUT"].tokens[1:3] == ["x_cout", "0"]
+    assert cards["DCDS"].tokens[1:3] == ["x_cout", "dint"]
+    assert cards["RLOSS_COUT"].tokens[1:3] == ["x_cout", "0"]
 
 
 @pytest.mark.parametrize("device, key", [
