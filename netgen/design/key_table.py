@@ -78,7 +78,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "diode_vf": Key("diode_vf_v", "V", "0.7 V", "switch with reverse_conduction = diode: forward drop at which the diode starts to conduct (0.7 V is a silicon body diode, common practice).", lo=0.0, hi=100.0),
         "diode_ron": Key("diode_ron_ohm", "ohm", None, "switch with reverse_conduction = diode: the diode's resistance above its forward drop; default: device.ron.", lo=1e-6, hi=1e4),
         "duty": Key("duty", "", 0.5, "Fraction of the period the switch is on.", lo=0.05, hi=0.95),
-        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source, at the current generator: the intrinsic plane). Sizing absorbs it (docs/topologies.md, 'The intrinsic plane'). switch and gm: the netlist adds it as COUT. spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing absorbs it (counted once).", lo=0.0, hi=1.0),
+        "cout": Key("cout_f", "F", "0 F", "Device output capacitance (drain to source, at the current generator: the intrinsic plane). Sizing absorbs it (docs/topologies.md, 'The intrinsic plane'). switch, gm and angelov: the netlist adds it as COUT (angelov with cds_law = junction: a junction diode whose capacitance at Vdd is this value). spice: the model holds its own output capacitance, so the netlist adds nothing; give the model's value here so that sizing absorbs it (counted once).", lo=0.0, hi=1.0),
         "package_l": Key("package_l_h", "H", "0 H", "Package series inductance Ld between Cout and the drain terminal (bond wire); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
         "package_c": Key("package_c_f", "F", "0 F", "Package shunt capacitance Cp at the drain terminal (the package plane); absorbed in sizing like Cout.", lo=0.0, hi=1.0),
         "imax": Key("imax_a", "A", None, "gm device: peak drain current; default sized from the design (Raab/Cripps Fourier coefficients).", lo=0.0, hi=1e4, lo_open=True),
@@ -108,6 +108,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "vcj": Key("vcj_v", "V", "0 V", "angelov: offset of both gate junctions, a DC source in series with each diode (C = C0 / (1 - (V - Vcj)/Vbi)^M); 0 for a Schottky gate (it conducts forward as a real one), above the largest gate swing for an insulated gate.", lo=-100.0, hi=100.0),
         "rev_is": Key("rev_is_a", "A", "1e-12 A", "angelov: saturation current of the reverse-conduction (body/channel) diode from source to drain.", lo=1e-30, hi=1.0),
         "rev_n": Key("rev_n", "", 1.0, "angelov: emission coefficient of the reverse-conduction diode.", lo=0.5, hi=5.0),
+        "cds_law": Key("cds_law", "str", "linear", "angelov: the drain-source capacitance. linear: device.cout, a fixed capacitor COUT; junction: a reverse-biased junction Cds(Vds) = Cds0 / (1 + Vds/cds_vj)^cds_m (the depletion law, a SPICE junction diode DCDS in place of COUT), with device.cout its value at Vds = Vdd (Cds0 = cout (1 + Vdd/cds_vj)^cds_m); sizing absorbs cout, the nonlinear part is left to the simulation (docs/devices.md).", choices=("linear", "junction")),
+        "cds_vj": Key("cds_vj_v", "V", "0.8 V", "angelov with cds_law = junction: built-in potential Vj of the drain-source junction.", lo=0.05, hi=10.0),
+        "cds_m": Key("cds_m", "", 0.5, "angelov with cds_law = junction: grading exponent M of the drain-source junction (0.5 abrupt, 0.33 linearly graded, common practice).", lo=0.05, hi=0.95),
     },
     "drive": {
         "pin": Key("pin_dbm", "dBm", "20 dBm", "angelov device: available power of the gate source, Pavail = |Vs|^2/(8 Rs) (dBm, or W converted to dBm).", lo=-100.0, hi=90.0),

@@ -9,6 +9,7 @@ All floats are SI; names carry the unit.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 from dataclasses import dataclass, field
@@ -101,7 +102,7 @@ class SizedDesign:
     def digest(self) -> str:
         """Short SHA-256 of every input and sized value; changes iff the sized design changes."""
         payload = {
-            "design": {k: repr(v) for k, v in sorted(vars(self.design).items()) if k not in ("raw", "source")},
+            "design": {k: _digest_repr(k, v) for k, v in sorted(vars(self.design).items()) if k not in ("raw", "source")},
             "ropt": repr(self.ropt_ohm),
             "components": [(c.name, c.kind, repr(c.value), c.role, c.lossy) for c in self.components.values()],
             "derived": {k: repr(v[0]) for k, v in sorted(self.derived.items())},
@@ -109,6 +110,16 @@ class SizedDesign:
         if self.input_network:
             payload["input_network"] = [(c.name, c.kind, repr(c.value), c.role) for c in self.input_network.values()]
         return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:16]
+
+
+def _digest_repr(key: str, value) -> str:
+    """``repr(value)``, except that a device with the linear drain-source capacitance (``cds_law``
+    = "linear", the default) leaves out the junction law's keys, which do not change its netlist:
+    the digest of every design without a junction Cds stays what it was before the keys existed."""
+    if key != "device" or getattr(value, "cds_law", "linear") != "linear" or not dataclasses.is_dataclass(value):
+        return repr(value)
+    kept = [f for f in dataclasses.fields(value) if f.repr and not f.name.startswith("cds_")]
+    return f"{type(value).__name__}(" + ", ".join(f"{f.name}={getattr(value, f.name)!r}" for f in kept) + ")"
 
 
 @dataclass(frozen=True)

@@ -101,6 +101,9 @@ class DeviceSpec:
     vcj_v: float = 0.0
     rev_is_a: float = 1e-12
     rev_n: float = 1.0
+    cds_law: str = "linear"
+    cds_vj_v: float = 0.8
+    cds_m: float = 0.5
 
 
 @dataclass(frozen=True)
@@ -377,6 +380,11 @@ def design_from_dict(doc: dict, source: Path | None = None, where: str = "design
         dev["include"] = inc
     elif dev["include"] is not None:
         dev["include"] = _resolve_include(base, dev["include"])
+    if dev["cds_law"] == "junction":
+        if dev["model"] != "angelov":
+            raise DesignError(f"device.cds_law: 'junction' applies to device.model = \"angelov\" only (this design's is '{dev['model']}'); remove the key or use \"linear\".")
+        if dev["cout_f"] <= 0:
+            raise DesignError("device.cds_law: 'junction' needs device.cout > 0 (the drain-source capacitance at Vdd); give device.cout or use \"linear\".")
     block = _block_spec(values["block"], base, d["topology"], "block" in doc)
     sim = values["sim"]
     if sim["min_cycles"] > sim["max_cycles"]:

@@ -23,6 +23,7 @@ _EXPORTS = {
     "SourceWaveform": "cards",
     "Unsupported": "cards",
     "card_params": "cards",
+    "cds_junction": "renderer",
     "check_model_file": "safety",
     "check_netlist_text": "safety",
     "check_portable": "portable",

@@ -31,7 +31,7 @@ from .portable import portable_cards
 from .safety import check_model_file, check_netlist_text
 from .sandbox import BoundedEnvironment, LimitExceeded, bounded
 
-__all__ = ["render", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
+__all__ = ["render", "cds_junction", "loss_elements", "dc_islands", "template_dir", "ac_grid", "template_context", "MODES", "DIALECTS"]
 
 MODES = ("tran", "ac", "op")
 #: the small-signal two-port of a driven angelov design (render only; netgen.studies.small_signal)
@@ -206,6 +206,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "vgate_bias_v": dev.vgate_bias_v,
         "vgate_amp_v": dev.vgate_amp_v,
         "conduction_angle_deg": dev.conduction_angle_deg,
+        "cds_law": "linear",
     }
     device["cout_rs_ohm"] = cout_series_ohm(dev.cout_f, period, tmax) if (lines and dev.cout_f > 0 and not _soft_turn_on(d)) else 0.0
     if dev.model == "switch":
@@ -221,6 +222,8 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         device.update(imax_a=imax, vg_bias=-math.cos(alpha), gm_a_per_v=imax / (1.0 - math.cos(alpha)))
     elif dev.model == "angelov":
         device["angelov"] = _angelov_ctx(d, sized)
+        if dev.cds_law == "junction":
+            device.update(cds_law="junction", cds=cds_junction(dev.cout_f, d.vdd_v, dev.cds_vj_v, dev.cds_m))
     else:
         pins = {"drain": "dsw", "gate": "gate", "source": "0"}
         device["nodes"] = " ".join(pins[p] for p in dev.pins)
@@ -313,6 +316,22 @@ def _angelov_ctx(design, sized: SizedDesign | None = None) -> dict:
         "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
         "input": _input_ctx(sized) if sized is not None else None,
     }
+
+
+#: the drain-source junction diode's saturation current, A: tiny, so that it is a capacitor only
+#: (the device's reverse conduction is DREV's)
+CDS_IS_A = 1e-18
+#: SPICE3's forward-bias coefficient FC of the junction capacitance (its default, recalled from memory)
+CDS_FC = 0.5
+
+
+def cds_junction(cout_f: float, vdd_v: float, vj_v: float, m: float) -> dict:
+    """The ``DCDS`` diode's model values (templates/devices.j2, docs/devices.md): a reverse-biased
+    drain-source junction whose depletion capacitance Cds(Vds) = Cds0 / (1 + Vds/Vj)^M (the abrupt /
+    graded junction law, S. M. Sze, "Physics of Semiconductor Devices", ch. 2, recalled from memory;
+    the SPICE3 diode's CJO / (1 - V/VJ)^M with V = -Vds) equals ``cout_f`` at Vds = Vdd:
+    Cds0 = cout (1 + Vdd/Vj)^M. Returns ``cj0_f`` (F), ``vj_v`` (V), ``m``, ``fc``, ``is_a`` (A)."""
+    return {"cj0_f": cout_f * (1.0 + vdd_v / vj_v) ** m, "vj_v": vj_v, "m": m, "fc": CDS_FC, "is_a": CDS_IS_A}
 
 
 def _soft_turn_on(design) -> bool:

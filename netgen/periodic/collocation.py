@@ -3,7 +3,8 @@
 A device given as several nonlinear elements between internal nodes -- ``B`` current sources
 whose expression :func:`netgen.netlist.device_expression` reads and SPICE junction diodes ``D``
 (the angelov device of templates/devices.j2: the Angelov I-V as a B source, Cgs and Cgd as
-junction diodes, the reverse-conduction diode) -- obeys at its nodes
+junction diodes, the reverse-conduction diode, with device.cds_law = "junction" the drain-source
+junction DCDS) -- obeys at its nodes
 
     i(t) = F(v(t)) + dQ(v(t))/dt
 

@@ -43,8 +43,9 @@ DIODE_MAX = 60
 
 
 #: the diodes of the angelov device (templates/devices.j2): voltage-dependent Cgs and Cgd and the
-#: reverse-conduction path; the periodic estimate has no nonlinear charges, so it declines them
-ANGELOV_DIODES = ("DCGS", "DCGD", "DREV")
+#: reverse-conduction path, the junction Cds (device.cds_law); this single-device reader declines them
+#: (netgen.periodic.collocation solves them)
+ANGELOV_DIODES = ("DCGS", "DCGD", "DREV", "DCDS")
 
 
 @dataclass

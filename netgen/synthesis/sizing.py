@@ -178,10 +178,31 @@ def _parasitic_derived(design: Design, topo, ropt: float, derived: dict) -> None
     derived["cout_q"] = (q, "", ("omega0 (Cout + Cp) Ropt: the device capacitance's own Q at f0, absorbed by the network "
                                  f"(above {COUT_Q_WARN:g} the design is narrowband and sensitive to part loss and tolerance: "
                                  "lower f0, use a smaller device or a lower Ropt)"))
+    if design.device.model == "angelov" and design.device.cds_law == "junction":
+        _cds_derived(design, derived)
     if topo.wave_class == "E":
         derived["class_e_fmax_hz"] = (class_e_fmax_hz(ropt, par.cout_f + par.cp_f), "Hz",
                                       ("highest f0 at which class E absorbs Cout: 0.1836/(2 pi R Cout) = "
                                        "Imax/(56.5 Cout Vdd) (Sokal 1975; Raab 1977)"))
+
+
+def _cds_derived(design: Design, derived: dict) -> None:
+    """The junction drain-source capacitance (device.cds_law = "junction", docs/devices.md): sizing
+    absorbs C(Vdd) = device.cout like a linear Cout; these values say how far the junction departs
+    from it over a swing from 0 to 2 Vdd. Cds(V) = Cds0 / (1 + V/Vj)^M (the depletion law, S. M. Sze,
+    "Physics of Semiconductor Devices", ch. 2, recalled from memory), its charge
+    Q(V) = Cds0 Vj ((1 + V/Vj)^(1-M) - 1) / (1 - M) (the integral of C dV)."""
+    dev, vdd = design.device, design.vdd_v
+    vj, m = dev.cds_vj_v, dev.cds_m
+    c0 = dev.cout_f * (1.0 + vdd / vj) ** m
+    v2 = 2.0 * vdd
+    c2 = c0 / (1.0 + v2 / vj) ** m
+    q2 = c0 * vj * ((1.0 + v2 / vj) ** (1.0 - m) - 1.0) / (1.0 - m)
+    derived["cds0_f"] = (c0, "F", "Cds0 = cout (1 + Vdd/Vj)^M: the junction's capacitance at Vds = 0 (cout is its value at Vdd)")
+    derived["cds_cv_ratio"] = (c0 / c2, "", "Cds(0)/Cds(2 Vdd): the junction's C-V ratio over a swing from 0 to 2 Vdd; "
+                                            "sizing absorbs Cds(Vdd) = cout, the nonlinear part is left to the simulation")
+    derived["cds_charge_equiv_f"] = (q2 / v2, "F", "Q(2 Vdd)/(2 Vdd): the charge-equivalent (large-signal average) "
+                                                   "capacitance over 0 to 2 Vdd, for comparison (not absorbed)")
 
 
 def _lossless(design: Design) -> Design:
