@@ -80,6 +80,10 @@ class NonlinearElement:
     limits: tuple = ()
 
 
+#: threadpoolctl's controller, made on first use (False: threadpoolctl is not installed)
+_BLAS_CONTROLLER = None
+
+
 @contextmanager
 def blas_single_thread():
     """One BLAS thread inside the block (threadpoolctl, when installed).
@@ -87,14 +91,21 @@ def blas_single_thread():
     The estimate's dense solves are small (at most ``MAX_UNKNOWNS`` unknowns); with a threaded
     BLAS on a loaded machine each factorisation waits for its second thread's time slice:
     measured with 2 cores shared by other jobs, 20 LU factorisations of 150 unknowns took 2.9 s
-    with OpenBLAS's 2 threads and 0.027 s with one.
+    with OpenBLAS's 2 threads and 0.027 s with one. The controller (which scans the loaded
+    libraries, ~4 ms) is made once per process.
     """
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:  # pragma: no cover - a dependency; without it the solves are only slower
+    global _BLAS_CONTROLLER
+    if _BLAS_CONTROLLER is None:
+        try:
+            from threadpoolctl import ThreadpoolController
+        except ImportError:  # pragma: no cover - a dependency; without it the solves are only slower
+            _BLAS_CONTROLLER = False
+        else:
+            _BLAS_CONTROLLER = ThreadpoolController()
+    if _BLAS_CONTROLLER is False:  # pragma: no cover
         yield
         return
-    with threadpool_limits(limits=1, user_api="blas"):
+    with _BLAS_CONTROLLER.limit(limits=1, user_api="blas"):
         yield
 
 

@@ -123,7 +123,9 @@ class _Net:
         cols = self.folded_columns() if fold_inductors else {k: nn + v for k, v in self.branches.items()}
         K = len(s)
         n = self.size - (sum(1 for k in self.branches if k[0] == "L") if fold_inductors else 0)
-        Y = np.zeros((K, n, n), complex)
+        # stored entry-major (n, n, K) and handed out as the (K, n, n) view: every stamp and the
+        # node condensation touch one entry over all bins, contiguous in this layout
+        Y = np.zeros((n, n, K), complex).transpose(2, 0, 1)
         b = np.zeros((K, n), complex)
         Y[:, np.arange(nn), np.arange(nn)] += 1e-12  # gmin, as in SPICE
         grid = t0_s + np.arange(points) * (period_s / points)
