@@ -5,7 +5,6 @@ for line, the periodic start with the junction, and a bad key refused in one lin
 from __future__ import annotations
 
 import copy
-import dataclasses
 import math
 import subprocess
 import sys
@@ -146,21 +145,9 @@ def test_junction_cds_estimate_agrees_with_ngspice_and_settles_in_few_cycles(doc
     # device's junctions) against ngspice's settled answer from the independent DC start (judged to
     # sim.settle_tol = 0.1 %): Pdc and load power within 0.1 %; started on the estimate, ngspice settles
     # in <= 10 cycles and lands on the same answer
-    from netgen.periodic import simulate
+    from test_collocation import periodic_and_dc_start
 
-    sized = size(design_from_dict(doc))
-    d = sized.design
-    fast = simulate(sized)
-    slow = simulate(dataclasses.replace(sized, design=dataclasses.replace(
-        d, sim=dataclasses.replace(d.sim, periodic_start=False))))
-    assert fast.settled and slow.settled
-    assert fast.start["method"] == "periodic" and slow.start["method"] == "dc"
-    assert fast.cycles <= 10
-    ref_pdc, ref_pload = slow.history["pdc_w"][-1], slow.history["pload_w"][-1]
-    assert fast.start["pdc_w"] == pytest.approx(ref_pdc, rel=1e-3)
-    assert fast.start["pload_w"] == pytest.approx(ref_pload, rel=1e-3)
-    assert fast.history["pdc_w"][-1] == pytest.approx(ref_pdc, rel=1e-3)
-    assert fast.history["pload_w"][-1] == pytest.approx(ref_pload, rel=1e-3)
+    periodic_and_dc_start(size(design_from_dict(doc)))
 
 
 def test_sizing_absorbs_c_at_vdd_and_reports_the_swing():

@@ -71,19 +71,29 @@ def test_angelov_example_estimate_agrees_with_ngspice_and_settles_in_few_cycles(
     # 0.1 % (measured 0.02 %); started on the estimate, ngspice settles in <= 10 cycles (measured 6, the
     # judge's minimum; 30 from the DC start) and lands on the same answer
     from netgen.design.schema import load_design
-    from netgen.periodic import simulate
     from netgen.synthesis import size
 
-    sized = size(load_design(SIMS / "class_b_angelov.toml"))
+    fast, slow = periodic_and_dc_start(size(load_design(SIMS / "class_b_angelov.toml")))
+    assert fast.cycles <= 10 < slow.cycles
+
+
+def periodic_and_dc_start(sized):
+    """The design run from the periodic estimate and from the DC start, with the checks both
+    tests of the estimate against ngspice share: both settled, each by its own start, <= 10 cycles
+    from the estimate, and its Pdc and load power (estimate and settled run) within 0.1 % of the
+    DC start's settled answer. Returns (periodic run, DC run)."""
+    from netgen.periodic import simulate
+
     d = sized.design
     fast = simulate(sized)
     slow = simulate(dataclasses.replace(sized, design=dataclasses.replace(
         d, sim=dataclasses.replace(d.sim, periodic_start=False))))
     assert fast.settled and slow.settled
     assert fast.start["method"] == "periodic" and slow.start["method"] == "dc"
-    assert fast.cycles <= 10 < slow.cycles
+    assert fast.cycles <= 10
     ref_pdc, ref_pload = slow.history["pdc_w"][-1], slow.history["pload_w"][-1]
     assert fast.start["pdc_w"] == pytest.approx(ref_pdc, rel=1e-3)
     assert fast.start["pload_w"] == pytest.approx(ref_pload, rel=1e-3)
     assert fast.history["pdc_w"][-1] == pytest.approx(ref_pdc, rel=1e-3)
     assert fast.history["pload_w"][-1] == pytest.approx(ref_pload, rel=1e-3)
+    return fast, slow

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from netgen.periodic.extrapolate import mpe, state_vectors, with_boundary_state
+from test_own_designs import DRYER  # the 13.56 MHz class E with a level-1 MOSFET subcircuit
 
 DATA = Path(__file__).parent / "data"
 
@@ -75,16 +76,6 @@ def test_rc_boundary_states_from_ngspice_extrapolate_to_the_analytic_periodic_st
     vp0 = -vs * w * tau / (1 + (w * tau) ** 2)
     assert abs(x[-1][0] - vp0) > 0.01 * abs(vp0)  # two cycles alone are far from it (e^-2T/tau ~ 0.06)
     assert mpe(x)[0] == pytest.approx(vp0, rel=1e-4)
-
-
-DRYER = {
-    "design": {"name": "dryer_1356", "topology": "class_e", "f0": "13.56 MHz", "vdd": "24 V",
-               "load": "50 ohm", "pout": "25 W"},
-    "device": {"model": "spice", "include": str(DATA / "nmos_l1.lib"), "subckt": "NSW1",
-               "pins": ["drain", "gate", "source"], "vgate_bias": "4 V", "vgate_amp": "6 V", "cout": "120 pF"},
-    "network": {"loaded_q": 8},
-    "sim": {"points_per_cycle": 500, "max_cycles": 800},
-}
 
 
 @pytest.mark.ngspice

@@ -36,6 +36,8 @@ import numpy as np
 
 from netgen.netlist import GROUND, read_cards
 
+from .initial_state import insert_before_end, replace_cards, set_ic
+
 __all__ = ["mpe", "BoundaryStates", "state_vectors", "with_boundary_state", "EXTRAPOLATE_CYCLES", "ROUNDS", "SKIP_CYCLES"]
 
 #: cycles run per extrapolation round, boundary states skipped after each (re)start (the fast
@@ -141,35 +143,19 @@ def with_boundary_state(netlist: str, nodes: list[str], inductors: list[str], st
     lines = netlist.splitlines()
     replace: dict[int, tuple[int, str]] = {}
 
-    def set_ic(text: str, value: float) -> str:
-        if re.search(r"\bic\s*=", text, re.IGNORECASE):
-            return re.sub(r"\bic\s*=\s*\S+", f"IC={value:.12g}", text, flags=re.IGNORECASE)
-        return f"{text} IC={value:.12g}"
-
     for c in cards:
         if c.text.lower().startswith(".tran"):
             if not re.search(r"\buic\b", c.text, re.IGNORECASE):
                 replace[c.start] = (c.stop, c.text + " uic")
         elif c.name[0] == "L" and c.name in i:
-            replace[c.start] = (c.stop, set_ic(c.text, i[c.name]))
+            replace[c.start] = (c.stop, set_ic(c.text, f"{i[c.name]:.12g}"))
         elif c.name[0] == "C" and not c.text.startswith("."):
             a, b = (x.lower() for x in c.tokens[1:3])
-            replace[c.start] = (c.stop, set_ic(c.text, v.get(a, 0.0) - v.get(b, 0.0)))
-    out: list[str] = []
-    n = 0
-    while n < len(lines):
-        if n in replace:
-            stop, text = replace[n]
-            out.append(text)
-            n = stop
-            continue
-        out.append(lines[n])
-        n += 1
+            replace[c.start] = (c.stop, set_ic(c.text, f"{v.get(a, 0.0) - v.get(b, 0.0):.12g}"))
+    out = replace_cards(lines, replace)
     pairs = [f"v({k})={x:.12g}" for k, x in v.items()]
     ic = [".ic " + " ".join(pairs[:6])] + ["+ " + " ".join(pairs[j:j + 6]) for j in range(6, len(pairs), 6)]
-    end = max((k for k, ln in enumerate(out) if re.fullmatch(r"\.end\b.*", ln.strip().lower())
-               and not re.match(r"\.end[a-z]", ln.strip().lower())), default=len(out))
-    return "\n".join(out[:end] + ic + out[end:]) + "\n"
+    return insert_before_end(out, ic)
 
 
 def extrapolated_start(start_netlist: str, plain_netlist: str, period_s: float, *, backend: str | None,

@@ -62,10 +62,34 @@ def initial_conditions(state: PeriodicState) -> dict[str, float]:
     return ic
 
 
-def _set_ic(text: str, value: str) -> str:
+def set_ic(text: str, value: str) -> str:
+    """The element card ``text`` with ``IC=value`` (replacing an IC= it has)."""
     if re.search(r"\bic\s*=", text, re.IGNORECASE):
         return re.sub(r"\bic\s*=\s*\S+", f"IC={value}", text, flags=re.IGNORECASE)
     return f"{text} IC={value}"
+
+
+def replace_cards(lines: list[str], replace: dict[int, tuple[int, str]]) -> list[str]:
+    """The netlist lines with each card starting at line ``k`` of ``replace`` (its lines up to
+    ``stop``, continuations included) replaced by the one line ``text``: ``{k: (stop, text)}``."""
+    out: list[str] = []
+    n = 0
+    while n < len(lines):
+        if n in replace:
+            stop, text = replace[n]
+            out.append(text)
+            n = stop
+            continue
+        out.append(lines[n])
+        n += 1
+    return out
+
+
+def insert_before_end(lines: list[str], extra: list[str]) -> str:
+    """The netlist text with ``extra`` lines placed before its ``.end`` card (at the end if none)."""
+    end = max((i for i, ln in enumerate(lines) if re.fullmatch(r"\.end\b.*", ln.strip().lower())
+               and not re.match(r"\.end[a-z]", ln.strip().lower())), default=len(lines))
+    return "\n".join(lines[:end] + extra + lines[end:]) + "\n"
 
 
 def simplify_polyline(t: np.ndarray, y: np.ndarray, tol: float) -> np.ndarray:
@@ -221,7 +245,7 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
         name = by_name[key]
         kind = state.elements[name][0]
         if kind in "LCD":
-            replace[c.start] = (c.stop, _set_ic(c.text, _fmt(ic[name])))
+            replace[c.start] = (c.stop, set_ic(c.text, _fmt(ic[name])))
         else:
             (p1, p2, ic_vals), more = history_sources(state, name)
             toks = c.text.split()
@@ -229,16 +253,7 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
             text = re.sub(r"\s+ic\s*=\s*\S+", "", " ".join(toks), flags=re.IGNORECASE)
             replace[c.start] = (c.stop, f"{text} IC={','.join(ic_vals)}")
             extra += more
-    out: list[str] = []
-    n = 0
-    while n < len(lines):
-        if n in replace:
-            stop, text = replace[n]
-            out.append(text)
-            n = stop
-            continue
-        out.append(lines[n])
-        n += 1
+    out = replace_cards(lines, replace)
     if state.blocks:
         from netgen.netlist import BLOCK_SUBCKT
 
@@ -251,6 +266,4 @@ def with_initial_state(netlist: str, state: PeriodicState) -> str:
         # (measured: without it the gate started at +4.2 V instead of -4.4 V, and the jolt
         # excited the bias network's choke-block mode for 230 cycles)
         extra.append(".ic " + " ".join(f"v({n})={_fmt(state.at(n, 0.0))}" for n in state.ports))
-    end = max((i for i, ln in enumerate(out) if re.fullmatch(r"\.end\b.*", ln.strip().lower())
-               and not re.match(r"\.end[a-z]", ln.strip().lower())), default=len(out))
-    return "\n".join(out[:end] + extra + out[end:]) + "\n"
+    return insert_before_end(out, extra)

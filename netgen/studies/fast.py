@@ -328,11 +328,7 @@ def confirm_points(store, sweep_id: int, base_doc: dict, indices, *, progress=No
         d = disagreement(m, full)
         d.update(idx=row["idx"], seconds=time.perf_counter() - t0,
                  ngspice_pout_w=full.get("pout_w"), ngspice_drain_efficiency=full.get("drain_efficiency"))
-        kept = dict(full) if d["flagged"] else dict(m)
-        kept["confirmation"] = {**d, "estimate_pout_w": m.get("pout_w"),
-                                "estimate_drain_efficiency": m.get("drain_efficiency"),
-                                "replaced_by_ngspice": bool(d["flagged"])}
-        _replace(store, sweep_id, row, kept)
+        store_confirmed(store, sweep_id, row, dict(full) if d["flagged"] else dict(m), d, m)
         out.append(d)
         if progress is not None:
             progress(d)
@@ -351,22 +347,19 @@ def _point_doc(base_doc: dict, inputs: dict) -> dict:
     return doc
 
 
-def _replace(store, sweep_id: int, row: dict, metrics: dict) -> None:
-    """Replace a stored point's metrics (the store keeps the first record of a point otherwise)."""
-    import json
+def store_confirmed(store, sweep_id: int, row: dict, kept: dict, d: dict, estimate: dict) -> None:
+    """Store a confirmed point: ``kept`` (the estimate's metrics, or ngspice's where flagged) with
+    its ``confirmation`` record (the disagreement ``d`` and the estimate's own Pout and efficiency)."""
+    kept["confirmation"] = {**d, "estimate_pout_w": estimate.get("pout_w"),
+                            "estimate_drain_efficiency": estimate.get("drain_efficiency"),
+                            "replaced_by_ngspice": bool(d["flagged"])}
+    from .execute import plain_json
 
-    metrics = json.loads(json.dumps(metrics, default=_plain))
+    # the point's record is replaced (the store keeps the first record of a point otherwise)
+    metrics = plain_json(kept)
     store.con.execute("DELETE FROM points WHERE sweep_id = ? AND idx = ?", (sweep_id, row["idx"]))
     status = "ok" if metrics.get("settled") else "not_settled"
     store.record(sweep_id, row["idx"], row["inputs"], status, metrics, None, row["seconds"] or 0.0)
-
-
-def _plain(obj):
-    if isinstance(obj, (np.floating, np.integer, np.bool_)):
-        return obj.item()
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    return str(obj)
 
 
 def confirm_sample(store, sweep_id: int, base_doc: dict, n: int, *, seed: int = 1, include=(),

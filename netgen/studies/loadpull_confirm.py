@@ -271,7 +271,7 @@ def confirm_loadpull(plan: LoadPullPlan, store, sweep_id: int, indices, *, progr
         As :func:`netgen.studies.fast.summarize_confirmation` (``points``, ``confirmed``,
         ``errors``, ``flagged``, ``worst_pout_rel``, ``worst_efficiency_rel``, ``tolerance``).
     """
-    from .fast import _replace, disagreement, summarize_confirmation
+    from .fast import disagreement, store_confirmed, summarize_confirmation
 
     wanted = {int(i) for i in indices}
     results = []
@@ -293,10 +293,7 @@ def confirm_loadpull(plan: LoadPullPlan, store, sweep_id: int, indices, *, progr
                  ngspice_settled=full["settled"])
         solved = {k: v for k, v in m.items() if k not in ("v_n", "i_n", "newton")}  # the solve's own, not ngspice's
         kept = {**solved, **{k: full[k] for k in full if k != "cycles"}} if d["flagged"] else dict(m)
-        kept["confirmation"] = {**d, "estimate_pout_w": m.get("pout_w"),
-                                "estimate_drain_efficiency": m.get("drain_efficiency"),
-                                "replaced_by_ngspice": bool(d["flagged"])}
-        _replace(store, sweep_id, row, kept)
+        store_confirmed(store, sweep_id, row, kept, d, m)
         results.append(d)
         if progress is not None:
             progress(d)
