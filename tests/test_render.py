@@ -56,6 +56,21 @@ def test_examples_render_all_modes(path):
             assert "VDD vdd 0 DC " in text and re.search(r"^RLOAD load 0 ", text, re.M)
 
 
+@pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.stem)
+def test_shipped_templates_render_the_same_outside_the_sandbox(path, monkeypatch):
+    # the shipped templates render in a plain Jinja environment (package code, no per-call
+    # checks); the text must be byte for byte what the sandbox gives, in every mode and dialect
+    import netgen.netlist.renderer as renderer
+
+    s = size(load_design(path))
+    plain = {(m, dl): render(s, m, dl) for dl in ("ngspice", "portable") for m in ("tran", "ac", "op")}
+    original = renderer._run_template
+    monkeypatch.setattr(renderer, "_run_template", lambda d, ctx, name: original(d, ctx, name, sandbox=True))
+    boxed = {(m, dl): render(s, m, dl) for dl in ("ngspice", "portable") for m in ("tran", "ac", "op")}
+    assert plain == boxed
+    assert renderer._package_environment() is not renderer._environment()
+
+
 @pytest.mark.ngspice
 @pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.stem)
 def test_examples_tran_runs_in_ngspice(path, tmp_path):

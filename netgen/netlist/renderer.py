@@ -1,7 +1,8 @@
 """Render a :class:`~netgen.design.records.SizedDesign` into netlist text through Jinja templates.
 
-The environment is sandboxed (``SandboxedEnvironment``), undefined names are errors
-(``StrictUndefined``), nothing is escaped, and numbers reach the text only through our
+A user template renders in a sandboxed environment (``SandboxedEnvironment`` with bounded work,
+netlist/sandbox.py), the templates shipped in the package in a plain one with the same settings
+(package code; identical output); undefined names are errors (``StrictUndefined``), nothing is escaped, and numbers reach the text only through our
 ``n`` filter (``'{:.10g}'``). The only user text placed in a netlist is the validated design
 name (:data:`netgen.design.schema.SAFE_NAME`) and the checked model-file path of a spice device.
 Output is byte-identical for identical input (no timestamps). Every context variable is
@@ -75,6 +76,24 @@ def _environment() -> BoundedEnvironment:
         keep_trailing_newline=True,
     )
     env.filters["n"] = _fmt  # our own filter: not wrapped (it only formats one number)
+    return env
+
+
+@functools.lru_cache(maxsize=1)
+def _package_environment() -> jinja2.Environment:
+    """The environment of the templates shipped in the package: the same loader, settings and
+    filter as the sandbox, without its per-call checks (this is package code, as trusted as the
+    renderer itself; the rendered text is checked all the same). Same output, about half the time:
+    tests/test_render.py renders every shipped design both ways."""
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(template_dir())),
+        undefined=jinja2.StrictUndefined,
+        autoescape=False,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    env.filters["n"] = _fmt
     return env
 
 
@@ -487,9 +506,11 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
 MAX_TEMPLATE_BYTES = 1_000_000
 
 
-def _run_template(d, ctx: dict, name: str) -> str:
-    """Render the design's template with ``ctx`` under the sandbox's bounds (netlist/sandbox.py)."""
-    env = _environment()
+def _run_template(d, ctx: dict, name: str, *, sandbox: bool | None = None) -> str:
+    """Render the design's template with ``ctx``: a user template under the sandbox's bounds
+    (netlist/sandbox.py), a shipped one in :func:`_package_environment` (``sandbox=True`` renders
+    a shipped one in the sandbox too)."""
+    env = _environment() if (d.template_path is not None or sandbox) else _package_environment()
     try:
         with bounded():
             if d.template_path is None and ctx["block"]["section"] == "network":

@@ -99,6 +99,16 @@ class _Net:
 
     def __post_init__(self):
         self.index = {n: i for i, n in enumerate(self.nodes)}
+        self._values: dict[str, float] = {}
+
+    def value(self, c: Card) -> float:
+        """The value of an R, L or C card (read once per network: both assemblies and the
+        inductor-current recovery use it)."""
+        v = self._values.get(c.name)
+        if v is None:
+            t = c.tokens
+            v = self._values[c.name] = spice_value(t[3].split("=")[-1] if c.name[0] == "R" else t[3], c.name)
+        return v
 
     def folded_columns(self) -> dict[str, int]:
         """Branch name -> first column in the system without inductor branches (``fold_inductors``)."""
@@ -114,7 +124,23 @@ class _Net:
         """Y (K, n, n) and source vectors (K, n) for the bins ``first_bin ..`` with Laplace variable
         ``s`` (trapezoidal). With ``fold_inductors`` (every s non-zero) an inductor is stamped as
         its admittance 1/(sL) instead of a branch unknown (same solution, fewer unknowns: the
-        columns are :meth:`folded_columns`).
+        columns are :meth:`folded_columns`). The dense form of :meth:`assemble_entries`.
+        """
+        entries, b = self.assemble_entries(s, theta, period_s, points, t0_s, first_bin=first_bin,
+                                           fold_inductors=fold_inductors)
+        K, n = b.shape
+        Y = np.zeros((K, n, n), complex)
+        for (r, c), y in entries.items():
+            Y[:, r, c] = y
+        return Y, b
+
+    def assemble_entries(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float, *,
+                         first_bin: int = 0, fold_inductors: bool = False):
+        """The non-zero entries of Y, {(row, column): value over the bins (K,) or a constant}, and
+        the source vectors b (K, n), as :meth:`assemble`. A network's matrix is sparse (a few
+        entries per element in an n x n matrix), so it is kept by entry: the stamps and the node
+        condensation (_solve_condensed) touch only these, and only the part left after the
+        condensation is made dense.
 
         Length: one modified-nodal-analysis stamp per element kind (R, L, C, V, I, E, G, T),
         side by side so the stamps can be checked against each other.
@@ -123,11 +149,8 @@ class _Net:
         cols = self.folded_columns() if fold_inductors else {k: nn + v for k, v in self.branches.items()}
         K = len(s)
         n = self.size - (sum(1 for k in self.branches if k[0] == "L") if fold_inductors else 0)
-        # stored entry-major (n, n, K) and handed out as the (K, n, n) view: every stamp and the
-        # node condensation touch one entry over all bins, contiguous in this layout
-        Y = np.zeros((n, n, K), complex).transpose(2, 0, 1)
+        Y: dict[tuple[int, int], object] = {(i, i): 1e-12 for i in range(nn)}  # gmin, as in SPICE
         b = np.zeros((K, n), complex)
-        Y[:, np.arange(nn), np.arange(nn)] += 1e-12  # gmin, as in SPICE
         grid = t0_s + np.arange(points) * (period_s / points)
 
         def spectrum(src: SourceWaveform) -> np.ndarray:
@@ -135,7 +158,8 @@ class _Net:
 
         def add(r, c, y):
             if r is not None and c is not None:
-                Y[:, r, c] += y
+                old = Y.get((r, c))
+                Y[(r, c)] = y if old is None else old + y
 
         def conductance(a, bb, y):
             ia, ib = self.node(a), self.node(bb)
@@ -159,16 +183,16 @@ class _Net:
             kind = c.name[0]
             a, bb = t[1].lower(), t[2].lower()
             if kind == "R":
-                conductance(a, bb, 1.0 / spice_value(t[3].split("=")[-1], c.name))
+                conductance(a, bb, 1.0 / self.value(c))
             elif kind == "C":
-                conductance(a, bb, s * spice_value(t[3], c.name))
+                conductance(a, bb, s * self.value(c))
             elif kind == "L" and fold_inductors:
-                conductance(a, bb, 1.0 / (s * spice_value(t[3], c.name)))
+                conductance(a, bb, 1.0 / (s * self.value(c)))
             elif kind == "L":
                 p = cols[c.name]
                 branch_kcl(a, bb, p)
                 vdiff(p, a, bb, 1.0)
-                Y[:, p, p] -= s * spice_value(t[3], c.name)
+                add(p, p, -s * self.value(c))
             elif kind == "V":
                 p = cols[c.name]
                 branch_kcl(a, bb, p)
@@ -194,7 +218,7 @@ class _Net:
                 vdiff(p, a, bb, 1.0)
                 vdiff(p, t[3].lower(), t[4].lower(), -spice_value(t[5], c.name))
             elif kind == "X":
-                self._stamp_block(c, Y, s, add, branch_kcl, vdiff, cols[c.name])
+                self._stamp_block(c, s, add, branch_kcl, vdiff, cols[c.name])
             elif kind == "T":
                 pars = card_params(t[5:])
                 z0 = spice_value(pars["Z0"], c.name)
@@ -206,16 +230,16 @@ class _Net:
                 branch_kcl(n3, n4, p2)
                 # Branin: (v1 - Z0 i1) - d (v2 + Z0 i2) = 0 and the converse (i into the port)
                 vdiff(p1, a, bb, 1.0)
-                Y[:, p1, p1] -= z0
+                add(p1, p1, -z0)
                 vdiff(p1, n3, n4, -d)
-                Y[:, p1, p2] -= d * z0
+                add(p1, p2, -d * z0)
                 vdiff(p2, n3, n4, 1.0)
-                Y[:, p2, p2] -= z0
+                add(p2, p2, -z0)
                 vdiff(p2, a, bb, -d)
-                Y[:, p2, p1] -= d * z0
+                add(p2, p1, -d * z0)
         return Y, b
 
-    def _stamp_block(self, c: Card, Y, s, add, branch_kcl, vdiff, p0: int) -> None:
+    def _stamp_block(self, c: Card, s, add, branch_kcl, vdiff, p0: int) -> None:
         """A Touchstone block's scattering relation per bin, one current unknown per port.
 
         With a = (v + z0 i)/(2 sqrt z0), b = (v - z0 i)/(2 sqrt z0) at each port (i into the
@@ -234,10 +258,10 @@ class _Net:
         for p, node in enumerate(ports):
             row = p0 + p
             vdiff(row, node, "0", 1.0 / rz[p])
-            Y[:, row, p0 + p] -= rz[p]
+            add(row, p0 + p, -rz[p])
             for q, other in enumerate(ports):
                 vdiff(row, other, "0", -S[:, p, q] / rz[q])
-                Y[:, row, p0 + q] -= S[:, p, q] * rz[q]
+                add(row, p0 + q, -S[:, p, q] * rz[q])
 
 
 
@@ -264,7 +288,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
         Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)
         X[:1] = np.linalg.solve(Y0, rhs(b0))
         if len(s) > 1:
-            Yr, br = net.assemble(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
+            Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
             Xr = _solve_condensed(Yr, rhs(br), nn)
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
@@ -279,7 +303,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
                 ia, ib = (net.node(x.lower()) for x in c.tokens[1:3])
                 va = Xr[:, ia] if ia is not None else 0.0
                 vb = Xr[:, ib] if ib is not None else 0.0
-                X[1:, full] = (va - vb) / (s[1:, None] * spice_value(c.tokens[3], c.name))
+                X[1:, full] = (va - vb) / (s[1:, None] * net.value(c))
             else:
                 w = net.widths.get(c.name, 1)
                 X[1:, full:full + w] = Xr[:, folded[c.name]:folded[c.name] + w]
@@ -290,10 +314,16 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
 CONDENSE_PIVOT_MIN = 1e-6
 
 
-def _solve_condensed(Y: np.ndarray, R: np.ndarray, nn: int) -> np.ndarray:
-    """X with Y X = R per bin (Y (K, n, n), overwritten; R (K, n, c)), after Gaussian elimination of the nodes
-    that couple to at most two other nodes and carry no right-hand side (the inner nodes of loss
-    ladders and series chains); the rest by one batched dense solve.
+#: elimination orders found by _solve_condensed, by sparsity structure (a sweep's points share one)
+_ORDERS: dict[tuple, list[tuple[int, tuple[int, ...]]]] = {}
+_ORDERS_MAX = 32
+
+
+def _solve_condensed(Y: dict, R: np.ndarray, nn: int) -> np.ndarray:
+    """X with Y X = R per bin (Y the matrix's entries as ``_Net.assemble_entries`` gives them,
+    consumed; R (K, n, c)), after Gaussian elimination of the nodes that couple to at most two
+    other nodes and carry no right-hand side (the inner nodes of loss ladders and series chains);
+    the rest by one batched dense solve.
 
     The elimination of such a node is exact (a Schur complement of one unknown: the series
     combination of its two branches, Y_jk -= Y_ji Y_ik / Y_ii) and creates at most one new
@@ -302,45 +332,91 @@ def _solve_condensed(Y: np.ndarray, R: np.ndarray, nn: int) -> np.ndarray:
     and only where the pivot |Y_ii| is at least CONDENSE_PIVOT_MIN of the node's couplings at every
     bin (a lossless series resonator's inner node near its resonance keeps the dense solve's
     partial pivoting). The condensed voltages are recovered afterwards in reverse order.
+
+    The order depends on the sparsity structure only (and on the pivot test): it is found once
+    per structure and replayed for the next matrix of the same structure (the points of a sweep),
+    each step's pivot tested again; where a replayed step fails its test, the search continues
+    from there as on a new structure.
     """
-    K, n, _ = Y.shape
-    # the couplings, read at a few bins spread over the band (an element's admittance vanishes
-    # at isolated frequencies at most, so a structural zero is a zero at all of them)
-    probe = np.unique(np.linspace(0, K - 1, min(K, 5)).astype(int))
-    pattern = np.any(Y[probe] != 0, axis=0)
-    np.fill_diagonal(pattern, False)
+    K, n, _ = R.shape
+    adj: list[set[int]] = [set() for _ in range(n)]
+    for r, c in Y:
+        if r != c:
+            adj[r].add(c)
+            adj[c].add(r)
     free = ~np.any(R != 0, axis=(0, 2))
-    done: list[tuple[int, list[int], np.ndarray, np.ndarray]] = []
+    key = (n, nn, free.tobytes(), tuple(sorted(Y)))
+    done: list = []
     alive = np.ones(n, bool)
+    replay = _ORDERS.get(key)
+    complete = replay is not None
+    for i, nbr in replay or ():
+        if not _eliminate(Y, adj, i, nbr, done):
+            complete = False  # this matrix's pivot is too small: search on from here
+            break
+        alive[i] = False
+    if not complete:
+        _search_order(Y, adj, alive, free, nn, done)
+        if replay is None:
+            _ORDERS[key] = [(i, nbr) for i, nbr, _, _ in done]
+            while len(_ORDERS) > _ORDERS_MAX:
+                _ORDERS.pop(next(iter(_ORDERS)))
+    keep = np.flatnonzero(alive)
+    at = {int(j): q for q, j in enumerate(keep)}
+    A = np.zeros((K, len(keep), len(keep)), complex)
+    for (r, c), y in Y.items():
+        A[:, at[r], at[c]] = y
+    X = np.zeros(R.shape, complex)
+    X[:, keep] = np.linalg.solve(A, R[:, keep])
+    for i, nbr, row, piv in reversed(done):
+        acc = 0.0
+        for q, j in enumerate(nbr):
+            acc = acc + np.reshape(row[q], (-1, 1)) * X[:, j]
+        X[:, i] = -acc / np.reshape(piv, (-1, 1))
+    return X
+
+
+def _eliminate(Y: dict, adj: list, i: int, nbr: tuple, done: list) -> bool:
+    """Eliminate node ``i`` (neighbours ``nbr``) from the entries ``Y``, if its pivot passes the test."""
+    piv = Y[(i, i)]
+    row = [Y.get((i, j), 0.0) for j in nbr]
+    col = [Y.get((j, i), 0.0) for j in nbr]
+    apiv = np.abs(piv)
+    coupling = apiv
+    if nbr:
+        coupling = np.abs(row[0]) if len(nbr) == 1 else np.maximum(np.abs(row[0]), np.abs(row[1]))
+    if np.any(apiv < CONDENSE_PIVOT_MIN * coupling):
+        return False
+    for q, j in enumerate(nbr):
+        f = col[q] / piv
+        for r, k in enumerate(nbr):
+            Y[(j, k)] = Y.get((j, k), 0.0) - f * row[r]
+    del Y[(i, i)]
+    for j in nbr:
+        Y.pop((i, j), None)
+        Y.pop((j, i), None)
+        adj[j].discard(i)
+        adj[j].update(x for x in nbr if x != j)
+    adj[i] = set()
+    done.append((i, nbr, row, piv))
+    return True
+
+
+def _search_order(Y: dict, adj: list, alive: np.ndarray, free: np.ndarray, nn: int, done: list) -> None:
+    """Eliminate, pass after pass, every free node coupled to at most two other live nodes
+    (all of them nodes) whose pivot passes the test, until none is left."""
     changed = True
     while changed:
         changed = False
         for i in range(nn):
-            if not (alive[i] and free[i]):
+            if not (alive[i] and free[i]) or len(adj[i]) > 2:
                 continue
-            nbr = np.flatnonzero((pattern[i] | pattern[:, i]) & alive)
-            if len(nbr) > 2 or np.any(nbr >= nn):
+            nbr = tuple(sorted(adj[i]))
+            if any(j >= nn for j in nbr) or not _eliminate(Y, adj, i, nbr, done):
                 continue
-            piv = Y[:, i, i]
-            coupling = np.max(np.abs(Y[:, i, nbr]), axis=1) if len(nbr) else np.abs(piv)
-            if np.any(np.abs(piv) < CONDENSE_PIVOT_MIN * coupling):
-                continue
-            for j in nbr:
-                for k in nbr:
-                    Y[:, j, k] -= Y[:, j, i] * Y[:, i, k] / piv
-                    pattern[j, k] = pattern[j, k] or j != k
-            done.append((i, list(nbr), Y[:, i, nbr].copy(), piv.copy()))
             alive[i] = False
             changed = True
-    keep = np.flatnonzero(alive)
-    X = np.zeros(R.shape, complex)
-    X[:, keep] = np.linalg.solve(Y[:, keep[:, None], keep[None, :]], R[:, keep])
-    for i, nbr, row, piv in reversed(done):
-        acc = np.zeros((K, R.shape[2]), complex)
-        for q, j in enumerate(nbr):
-            acc += row[:, q, None] * X[:, j]
-        X[:, i] = -acc / piv[:, None]
-    return X
+
 
 def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None, *,
              exclude: frozenset = frozenset(), roots: tuple = ("dsw",)) -> tuple[_Net, set[str]]:

@@ -69,30 +69,39 @@ def _lossless(sized):
     return dataclasses.replace(sized, design=dataclasses.replace(sized.design, network=net))
 
 
-def _cause(sized, n: int, want: str, metrics: dict) -> str:
-    """The likely cause of a missed target, from the network model (netgen.synthesis.network)."""
+def _causes(sized, misses: list[tuple[int, str]], metrics: dict) -> list[str]:
+    """The likely cause of each missed target (harmonic n, wanted), from the network model
+    (netgen.synthesis.network), evaluated at all the missed harmonics at once."""
+    if not misses:
+        return []
     d = sized.design
     ropt = sized.ropt_ohm
-    f = [n * d.f0_hz]
+    f = [n * d.f0_hz for n, _ in misses]
     try:
-        z_int = complex(z_intrinsic(sized, f)[0])
-        z_int_ideal = complex(z_intrinsic(_lossless(sized), f)[0])
-        z_pkg = complex(z_drain(sized, f)[0])
+        z_int_all = z_intrinsic(sized, f)
+        z_ideal_all = z_intrinsic(_lossless(sized), f)
+        z_pkg_all = z_drain(sized, f)
     except (KeyError, ValueError, ZeroDivisionError, FloatingPointError):
-        return "the template's own network (not modelled)"
+        return ["the template's own network (not modelled)"] * len(misses)
     dev = d.device
-    if not _meets(z_int, want, ropt):
-        if _meets(z_int_ideal, want, ropt):
-            return (f"lossy resonator (the network model gives {abs(z_int_ideal):.3g} ohm with lossless parts and "
-                    f"{abs(z_int):.3g} ohm with network.inductor_q / capacitor_esr / line_loss)")
-        if _meets(z_pkg, want, ropt) and (dev.cout_f > 0 or dev.package_l_h > 0 or dev.package_c_f > 0):
-            return (f"device Cout / package not absorbed (the network alone gives {abs(z_pkg):.3g} ohm at the package plane; "
-                    "a [network.values] override or a user template?)")
-        return f"the sized network itself (model {abs(z_int):.3g} ohm; loaded Q, network.harmonics or overrides)"
-    if (metrics.get("cout_series_ohm") or 0) > 0:
-        return (f"the series resistance {metrics['cout_series_ohm']:.3g} ohm the simulation gives Cout in designs with lines "
-                f"(docs/simulation.md; the network model gives {abs(z_int):.3g} ohm)")
-    return f"the device waveform rather than the network (the network model gives {abs(z_int):.3g} ohm)"
+    out = []
+    for (n, want), z_int, z_int_ideal, z_pkg in zip(misses, z_int_all, z_ideal_all, z_pkg_all):
+        z_int, z_int_ideal, z_pkg = complex(z_int), complex(z_int_ideal), complex(z_pkg)
+        if not _meets(z_int, want, ropt):
+            if _meets(z_int_ideal, want, ropt):
+                out.append(f"lossy resonator (the network model gives {abs(z_int_ideal):.3g} ohm with lossless parts and "
+                           f"{abs(z_int):.3g} ohm with network.inductor_q / capacitor_esr / line_loss)")
+            elif _meets(z_pkg, want, ropt) and (dev.cout_f > 0 or dev.package_l_h > 0 or dev.package_c_f > 0):
+                out.append(f"device Cout / package not absorbed (the network alone gives {abs(z_pkg):.3g} ohm at the "
+                           "package plane; a [network.values] override or a user template?)")
+            else:
+                out.append(f"the sized network itself (model {abs(z_int):.3g} ohm; loaded Q, network.harmonics or overrides)")
+        elif (metrics.get("cout_series_ohm") or 0) > 0:
+            out.append(f"the series resistance {metrics['cout_series_ohm']:.3g} ohm the simulation gives Cout in designs "
+                       f"with lines (docs/simulation.md; the network model gives {abs(z_int):.3g} ohm)")
+        else:
+            out.append(f"the device waveform rather than the network (the network model gives {abs(z_int):.3g} ohm)")
+    return out
 
 
 def plane_warnings(sized, metrics: dict) -> list[str]:
@@ -111,19 +120,21 @@ def plane_warnings(sized, metrics: dict) -> list[str]:
         return []
     ropt = float(sized.ropt_ohm)
     want = {1: "ropt", **controlled_pattern(topo, d)}
-    out = []
+    missed = []
     for row in metrics.get("harmonics", []):
         n = row["n"]
         if n not in want or row.get("z_int_re_ohm") is None:
             continue
         z = complex(row["z_int_re_ohm"], row["z_int_im_ohm"])
-        w = want[n]
-        if _meets(z, w, ropt):
-            continue
+        if not _meets(z, want[n], ropt):
+            missed.append((n, want[n], z))
+    causes = _causes(sized, [(n, w) for n, w, _ in missed], metrics)
+    out = []
+    for (n, w, z), cause in zip(missed, causes):
         target = {"open": f"an open (> {OPEN_MIN_ROPT:g} Ropt = {OPEN_MIN_ROPT * ropt:.3g} ohm)",
                   "short": f"a short (< Ropt/{SHORT_MAX_ROPT:g} = {ropt / SHORT_MAX_ROPT:.3g} ohm)",
                   "ropt": f"Ropt = {ropt:.4g} ohm within {F0_TOL:.0%}"}[w]
         label = "f0" if n == 1 else f"{n} f0"
         out.append(f"{label} at the intrinsic plane: Z = {z.real:.3g} {z.imag:+.3g}j ohm (|Z| = {abs(z):.3g} ohm), "
-                   f"wanted {target}; likely cause: {_cause(sized, n, w, metrics)}")
+                   f"wanted {target}; likely cause: {cause}")
     return out
