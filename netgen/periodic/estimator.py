@@ -289,7 +289,10 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
         X[:1] = np.linalg.solve(Y0, rhs(b0))
         if len(s) > 1:
             Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
-            Xr = _solve_condensed(Yr, rhs(br), nn)
+            folded = net.folded_columns()
+            vsrc = [(folded[c.name], net.node(c.tokens[1].lower()), net.node(c.tokens[2].lower()))
+                    for c in net.cards if c.name[0] == "V"]
+            Xr = _solve_condensed(Yr, rhs(br), nn, vsrc)
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     if len(s) > 1:
@@ -319,11 +322,12 @@ _ORDERS: dict[tuple, list[tuple[int, tuple[int, ...]]]] = {}
 _ORDERS_MAX = 32
 
 
-def _solve_condensed(Y: dict, R: np.ndarray, nn: int) -> np.ndarray:
+def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) -> np.ndarray:
     """X with Y X = R per bin (Y the matrix's entries as ``_Net.assemble_entries`` gives them,
-    consumed; R (K, n, c)), after Gaussian elimination of the nodes that couple to at most two
-    other nodes and carry no right-hand side (the inner nodes of loss ladders and series chains);
-    the rest by one batched dense solve.
+    consumed; R (K, n, c), overwritten), after the elimination of the voltage sources ``vsrc``
+    ((branch column, node a, node b), :func:`_eliminate_source`) and Gaussian elimination of the
+    nodes that couple to at most two other nodes and carry no right-hand side (the inner nodes of
+    loss ladders and series chains); the rest by one batched dense solve.
 
     The elimination of such a node is exact (a Schur complement of one unknown: the series
     combination of its two branches, Y_jk -= Y_ji Y_ik / Y_ii) and creates at most one new
@@ -339,15 +343,30 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int) -> np.ndarray:
     from there as on a new structure.
     """
     K, n, _ = R.shape
+    alive = np.ones(n, bool)
+    shorted, merged = [], {}  # merged: eliminated node -> the node its voltage went to (None: ground)
+
+    def find(x):
+        while x in merged:
+            x = merged[x]
+        return x
+
+    for p, a, b in vsrc or ():
+        a, b = find(a), find(b)
+        if a == b:  # a loop of voltage sources: left to the dense solve (which finds it singular)
+            continue
+        rec = _eliminate_source(Y, R, p, a, b)
+        merged[rec[1]] = rec[2]
+        alive[rec[0]] = alive[rec[1]] = False
+        shorted.append(rec)
     adj: list[set[int]] = [set() for _ in range(n)]
     for r, c in Y:
         if r != c:
             adj[r].add(c)
             adj[c].add(r)
     free = ~np.any(R != 0, axis=(0, 2))
-    key = (n, nn, free.tobytes(), tuple(sorted(Y)))
+    key = (n, nn, free.tobytes(), alive.tobytes(), tuple(sorted(Y)))
     done: list = []
-    alive = np.ones(n, bool)
     replay = _ORDERS.get(key)
     complete = replay is not None
     for i, nbr in replay or ():
@@ -373,7 +392,48 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int) -> np.ndarray:
         for q, j in enumerate(nbr):
             acc = acc + np.reshape(row[q], (-1, 1)) * X[:, j]
         X[:, i] = -acc / np.reshape(piv, (-1, 1))
+    for p, e, o, sigma, r_p, c_e, row_e, r_e in reversed(shorted):
+        X[:, e] = sigma * r_p + (X[:, o] if o is not None else 0.0)
+        acc = r_e
+        for j, y in row_e.items():
+            acc = acc - np.reshape(y, (-1, 1)) * X[:, j]
+        X[:, p] = acc / c_e
     return X
+
+
+def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | None) -> tuple:
+    """Eliminate a voltage source (branch unknown ``p`` between nodes ``a`` and ``b``, row
+    ``v_a - v_b = R_p``) and one of its nodes ``e`` from the entries Y and the right-hand sides R.
+
+    ``v_e = v_o + sigma R_p`` (o the other node, or ground) goes into every column of e; the
+    source current, which appears only in the KCL rows of a and b, leaves with row e: row e is
+    added to row o (the current's coefficients there are opposite), and afterwards the current is
+    row e's residual. Exact (a 2 x 2 pivot on the source's unit entries; the classic merging of
+    the nodes of a voltage source, e.g. J. Vlach and K. Singhal, "Computer Methods for Circuit
+    Analysis and Design", recalled from memory); 0 V current senses and the supply (0 V off DC)
+    make most of them. Returns what the recovery needs: (p, e, o, sigma, R_p, c_e, row e, R_e).
+    """
+    e, o, sigma = (b, a, -1.0) if b is not None else (a, None, 1.0)
+    c_e = -1.0 if e == b else 1.0  # the current's coefficient in row e (branch_kcl: +1 at a, -1 at b)
+    r_p = R[:, p].copy()
+    for (r, c) in [k for k in Y if k[1] == e]:  # v_e = v_o + sigma r_p in every row
+        y = Y.pop((r, c))
+        if o is not None:
+            Y[(r, o)] = Y.get((r, o), 0.0) + y
+        R[:, r] -= np.reshape(y, (-1, 1)) * (sigma * r_p)
+    for k in [k for k in Y if k[0] == p]:
+        del Y[k]
+    row_e = {c: Y.pop((r, c)) for (r, c) in [k for k in Y if k[0] == e]}
+    row_e.pop(p, None)
+    r_e = R[:, e].copy()
+    if o is not None:
+        Y.pop((o, p), None)
+        for c, y in row_e.items():
+            Y[(o, c)] = Y.get((o, c), 0.0) + y
+        R[:, o] += r_e
+    R[:, e] = 0.0
+    R[:, p] = 0.0
+    return p, e, o, sigma, r_p, c_e, row_e, r_e
 
 
 def _eliminate(Y: dict, adj: list, i: int, nbr: tuple, done: list) -> bool:

@@ -428,6 +428,26 @@ def _pool_point(*args) -> dict:  # pragma: no cover - runs in the pool worker
         _TASK_RUNNING = False
 
 
+def _pool_points(tasks: list[tuple]) -> list[dict]:  # pragma: no cover - runs in the pool worker
+    """:func:`_pool_point` for each of a batch of points (one round trip to the worker for all)."""
+    return [_pool_point(*args) for args in tasks]
+
+
+#: work a batch of points sent to a pool worker is sized for, s (short points travel in batches:
+#: one round trip to the worker and back per batch instead of per point), and the largest batch
+BATCH_TARGET_S = 0.2
+BATCH_MAX = 16
+
+
+def _batch_size(results: list[dict], current: int) -> int:
+    """Points in the next batch: about :data:`BATCH_TARGET_S` of work by the seconds the last
+    batch's points took (1 for points of a tenth of a second and more, e.g. ngspice runs)."""
+    secs = [r["seconds"] for r in results if r.get("seconds")]
+    if not secs:
+        return current
+    return int(min(BATCH_MAX, max(1, round(BATCH_TARGET_S / max(sum(secs) / len(secs), 1e-6)))))
+
+
 def _new_pool(n_workers: int, ctx):
     from concurrent.futures import ProcessPoolExecutor
 
@@ -436,7 +456,10 @@ def _new_pool(n_workers: int, ctx):
 
 
 def _run_local(n_workers: int, co: _Coordinator) -> None:
-    """Process pool with a bounded window of submitted points (memory flat with sweep size).
+    """Process pool with a bounded window of submitted batches of points (memory flat with sweep
+    size). A batch is one point at first and grows to about :data:`BATCH_TARGET_S` of work when
+    points are short (the periodic estimate's few milliseconds: the round trip would otherwise
+    cost as much as the point).
 
     A worker that dies (the simulator crashes the process, out of memory, a kill) breaks the
     pool; the points then in flight are re-run one by one in a fresh single-worker pool, so
@@ -450,26 +473,33 @@ def _run_local(n_workers: int, co: _Coordinator) -> None:
     window = 2 * n_workers
     pool = _new_pool(n_workers, ctx)
     inflight: dict = {}
+    batch = 1
     try:
         while True:
             while len(inflight) < window:
-                idx = co.next_index()
-                if idx is None:
+                idxs = []
+                while len(idxs) < batch and (idx := co.next_index()) is not None:
+                    idxs.append(idx)
+                if not idxs:
                     break
-                inflight[pool.submit(_pool_point, *co.task(idx))] = idx
+                inflight[pool.submit(_pool_points, [co.task(i) for i in idxs])] = idxs
             if not inflight:
                 break
             finished, _ = wait(inflight, return_when=FIRST_COMPLETED)
             broken = False
             for fut in finished:
-                idx = inflight.pop(fut)
+                idxs = inflight.pop(fut)
                 try:
-                    co.finish(fut.result())
+                    results = fut.result()
                 except BrokenProcessPool:
                     broken = True
-                    inflight[fut] = idx  # re-examined below
+                    inflight[fut] = idxs  # re-examined below
+                    continue
+                for res in results:
+                    co.finish(res)
+                batch = _batch_size(results, batch)
             if broken:
-                suspects = sorted(inflight.values())
+                suspects = sorted(i for idxs in inflight.values() for i in idxs)
                 inflight.clear()
                 _terminate(pool)
                 for idx in suspects:
