@@ -130,6 +130,11 @@ class _Net:
                                            fold_inductors=fold_inductors)
         K, n = b.shape
         Y = np.zeros((K, n, n), complex)
+        if K == 1:  # scalars and one-element arrays: one scatter
+            keys = np.array(list(entries), dtype=int).reshape(-1, 2)
+            Y[0, keys[:, 0], keys[:, 1]] = [complex(np.ravel(y)[0]) if np.ndim(y) else complex(y)
+                                            for y in entries.values()]
+            return Y, b
         for (r, c), y in entries.items():
             Y[:, r, c] = y
         return Y, b
@@ -285,7 +290,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
 
     X = np.zeros((len(s), n, 1 + len(cols)), complex)
     try:
-        Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)
+        Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)  # one bin: dense
         X[:1] = np.linalg.solve(Y0, rhs(b0))
         if len(s) > 1:
             Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
@@ -345,6 +350,12 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) 
     K, n, _ = R.shape
     alive = np.ones(n, bool)
     shorted, merged = [], {}  # merged: eliminated node -> the node its voltage went to (None: ground)
+    rows: dict[int, set[int]] = {}
+    cols: dict[int, set[int]] = {}
+    if vsrc:
+        for r, c in Y:
+            rows.setdefault(r, set()).add(c)
+            cols.setdefault(c, set()).add(r)
 
     def find(x):
         while x in merged:
@@ -355,7 +366,7 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) 
         a, b = find(a), find(b)
         if a == b:  # a loop of voltage sources: left to the dense solve (which finds it singular)
             continue
-        rec = _eliminate_source(Y, R, p, a, b)
+        rec = _eliminate_source(Y, R, p, a, b, rows, cols)
         merged[rec[1]] = rec[2]
         alive[rec[0]] = alive[rec[1]] = False
         shorted.append(rec)
@@ -401,9 +412,10 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) 
     return X
 
 
-def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | None) -> tuple:
+def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | None, rows: dict, cols: dict) -> tuple:
     """Eliminate a voltage source (branch unknown ``p`` between nodes ``a`` and ``b``, row
-    ``v_a - v_b = R_p``) and one of its nodes ``e`` from the entries Y and the right-hand sides R.
+    ``v_a - v_b = R_p``) and one of its nodes ``e`` from the entries Y and the right-hand sides R
+    (``rows``/``cols``: the columns of each row and the rows of each column of Y, kept up to date).
 
     ``v_e = v_o + sigma R_p`` (o the other node, or ground) goes into every column of e; the
     source current, which appears only in the KCL rows of a and b, leaves with row e: row e is
@@ -413,23 +425,35 @@ def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | No
     Analysis and Design", recalled from memory); 0 V current senses and the supply (0 V off DC)
     make most of them. Returns what the recovery needs: (p, e, o, sigma, R_p, c_e, row e, R_e).
     """
+    def put(r, c, y):
+        old = Y.get((r, c))
+        Y[(r, c)] = y if old is None else old + y
+        rows.setdefault(r, set()).add(c)
+        cols.setdefault(c, set()).add(r)
+
+    def take(r, c):
+        rows[r].discard(c)
+        cols[c].discard(r)
+        return Y.pop((r, c))
+
     e, o, sigma = (b, a, -1.0) if b is not None else (a, None, 1.0)
     c_e = -1.0 if e == b else 1.0  # the current's coefficient in row e (branch_kcl: +1 at a, -1 at b)
     r_p = R[:, p].copy()
-    for (r, c) in [k for k in Y if k[1] == e]:  # v_e = v_o + sigma r_p in every row
-        y = Y.pop((r, c))
+    for r in list(cols.get(e, ())):  # v_e = v_o + sigma r_p in every row
+        y = take(r, e)
         if o is not None:
-            Y[(r, o)] = Y.get((r, o), 0.0) + y
+            put(r, o, y)
         R[:, r] -= np.reshape(y, (-1, 1)) * (sigma * r_p)
-    for k in [k for k in Y if k[0] == p]:
-        del Y[k]
-    row_e = {c: Y.pop((r, c)) for (r, c) in [k for k in Y if k[0] == e]}
+    for c in list(rows.get(p, ())):
+        take(p, c)
+    row_e = {c: take(e, c) for c in list(rows.get(e, ()))}
     row_e.pop(p, None)
     r_e = R[:, e].copy()
     if o is not None:
-        Y.pop((o, p), None)
+        if (o, p) in Y:
+            take(o, p)
         for c, y in row_e.items():
-            Y[(o, c)] = Y.get((o, c), 0.0) + y
+            put(o, c, y)
         R[:, o] += r_e
     R[:, e] = 0.0
     R[:, p] = 0.0
@@ -644,6 +668,24 @@ class PeriodicState:
             return np.where(np.abs(i) > 0, v / np.where(i == 0, 1, i), np.nan)
 
 
+#: devices read last (netgen.periodic.device.read_device), by the text of every card it may read
+_DEVICES: dict[tuple, object] = {}
+_DEVICES_MAX = 16
+
+
+def _device(cards: list[Card], models: dict, period_s: float, points: int):
+    """:func:`read_device`, once per device: the key is the text of every card but the passive
+    parts and lines (which read_device does not read; they are what a tolerance or a tuning step
+    changes), the period and the grid. The Device is not changed after it is read."""
+    key = (tuple(c.text for c in cards if c.name[0] not in "RLCT" or c.text.startswith(".")), period_s, points)
+    dev = _DEVICES.get(key)
+    if dev is None:
+        dev = _DEVICES[key] = read_device(cards, models, period_s, points)
+        while len(_DEVICES) > _DEVICES_MAX:
+            _DEVICES.pop(next(iter(_DEVICES)))
+    return dev
+
+
 def grid_points(points_per_cycle: int, nonlinear: bool = False) -> int:
     """Grid size for the estimate: the simulator's points per cycle (even), at most ``GRID_MAX``
     (``GRID_MAX_NONLINEAR`` for a nonlinear device, whose Newton steps cost M^3).
@@ -713,10 +755,10 @@ def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dic
         net, _ = _network(cards, "", period, blocks, exclude=frozenset(e.name.upper() for e in nonlin),
                           roots=("dsw", *ports))
     else:
-        dev = read_device(cards, models, period, M)
+        dev = _device(cards, models, period, M)
         if cap and not dev.linear and M > GRID_MAX_NONLINEAR:
             M = grid_points(points, nonlinear=True)
-            dev = read_device(cards, models, period, M)
+            dev = _device(cards, models, period, M)
         dev_name, t0_s = dev.name, dev.t0_s
         net, _ = _network(cards, {dev.name.upper(), *(x.upper() for x in dev.extra)}, period, blocks)
     h = period / M
