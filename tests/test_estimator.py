@@ -396,3 +396,52 @@ def test_folded_and_condensed_solve_gives_the_full_mna_solution(name):
     scale = np.abs(want).max(axis=(0, 1), keepdims=True)
     assert np.abs(got - want).max() / scale.max() < 1e-9
     assert got.shape == want.shape
+
+
+def _ladder_system(rng, K, weak_bin=None):
+    """Entries of a small MNA system: nodes 0..4 in a chain (0-1-2-3-4, 1 to 3 coupled only to their
+    neighbours and ground), node 4 also tied to node 0, and a voltage source (branch 5) from node 0
+    to ground; the right-hand side drives the source and draws current at node 4."""
+    Y = {}
+
+    def cond(a, b, y):
+        for r, c, sgn in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
+            if r is not None and c is not None:
+                Y[(r, c)] = Y.get((r, c), 0.0) + sgn * y
+
+    for a, b in ((0, 1), (1, 2), (2, 3), (3, 4), (4, 0)):
+        cond(a, b, rng.uniform(0.5, 2.0, K) + 1j * rng.uniform(-1, 1, K))
+    for a in range(5):
+        cond(a, None, rng.uniform(0.1, 0.3, K) + 0j)
+    if weak_bin is not None:  # node 2's pivot cancels at one bin: a near-resonant inner node
+        y = Y[(2, 2)].copy()
+        Y[(2, 2)] = Y[(2, 2)] - np.where(np.arange(K) == weak_bin, y * (1 - 1e-9), 0.0)
+    Y[(0, 5)], Y[(5, 0)] = 1.0, 1.0  # source current into KCL of node 0; row: v_0 = V
+    R = np.zeros((K, 6, 2), complex)
+    R[:, 5, 0] = rng.uniform(1, 2, K)
+    R[:, 4, 1] = -1.0
+    return Y, R
+
+
+def _dense(Y, R):
+    K, n, _ = R.shape
+    A = np.zeros((K, n, n), complex)
+    for (r, c), y in Y.items():
+        A[:, r, c] = y
+    return np.linalg.solve(A, R)
+
+
+def test_condensed_solve_replays_its_order_and_falls_back_on_a_weak_pivot():
+    # Gaussian elimination is exact in any order with non-zero pivots (any numerical-analysis
+    # text); the order found on one matrix is replayed on the next of the same structure, and a
+    # replayed step whose pivot fails the test (here |Y_22| ~ 1e-9 of its couplings at one bin)
+    # hands over to the search, which keeps that node for the dense solve. Each result must be
+    # LAPACK's partial-pivoting solve of the whole system.
+    rng = np.random.default_rng(5)
+    estimator._ORDERS.clear()
+    for weak in (None, None, 7, None):
+        Y, R = _ladder_system(rng, 12, weak)
+        want = _dense(dict(Y), R.copy())
+        got = estimator._solve_condensed(dict(Y), R.copy(), 5, [(5, 0, None)])
+        assert np.abs(got - want).max() < 1e-9 * np.abs(want).max()
+    assert len(estimator._ORDERS) == 1  # one structure, one order (the weak pivot's search not stored)

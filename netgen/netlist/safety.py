@@ -60,6 +60,8 @@ def _lines(text: str) -> list[str]:
 
 
 def _bad_char(line: str) -> str | None:
+    if line.isprintable() or line.replace("\t", "").isprintable():  # the common case, at C speed
+        return None
     for ch in line:
         if ch != "\t" and not ch.isprintable():
             return f"U+{ord(ch):04X}"

@@ -370,22 +370,22 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) 
         merged[rec[1]] = rec[2]
         alive[rec[0]] = alive[rec[1]] = False
         shorted.append(rec)
-    adj: list[set[int]] = [set() for _ in range(n)]
-    for r, c in Y:
-        if r != c:
-            adj[r].add(c)
-            adj[c].add(r)
     free = ~np.any(R != 0, axis=(0, 2))
-    key = (n, nn, free.tobytes(), alive.tobytes(), tuple(sorted(Y)))
+    key = (n, nn, free.tobytes(), alive.tobytes(), frozenset(Y))
     done: list = []
     replay = _ORDERS.get(key)
     complete = replay is not None
     for i, nbr in replay or ():
-        if not _eliminate(Y, adj, i, nbr, done):
+        if not _eliminate(Y, None, i, nbr, done):
             complete = False  # this matrix's pivot is too small: search on from here
             break
         alive[i] = False
     if not complete:
+        adj: list[set[int]] = [set() for _ in range(n)]
+        for r, c in Y:
+            if r != c:
+                adj[r].add(c)
+                adj[c].add(r)
         _search_order(Y, adj, alive, free, nn, done)
         if replay is None:
             _ORDERS[key] = [(i, nbr) for i, nbr, _, _ in done]
@@ -460,7 +460,7 @@ def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | No
     return p, e, o, sigma, r_p, c_e, row_e, r_e
 
 
-def _eliminate(Y: dict, adj: list, i: int, nbr: tuple, done: list) -> bool:
+def _eliminate(Y: dict, adj: list | None, i: int, nbr: tuple, done: list) -> bool:
     """Eliminate node ``i`` (neighbours ``nbr``) from the entries ``Y``, if its pivot passes the test."""
     piv = Y[(i, i)]
     row = [Y.get((i, j), 0.0) for j in nbr]
@@ -479,9 +479,11 @@ def _eliminate(Y: dict, adj: list, i: int, nbr: tuple, done: list) -> bool:
     for j in nbr:
         Y.pop((i, j), None)
         Y.pop((j, i), None)
-        adj[j].discard(i)
-        adj[j].update(x for x in nbr if x != j)
-    adj[i] = set()
+    if adj is not None:  # the couplings, kept while an order is being searched for
+        for j in nbr:
+            adj[j].discard(i)
+            adj[j].update(x for x in nbr if x != j)
+        adj[i] = set()
     done.append((i, nbr, row, piv))
     return True
 
