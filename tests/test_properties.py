@@ -15,6 +15,7 @@ No example database is written (``database=None``), so nothing lands in the repo
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -253,3 +254,39 @@ def test_set_dotted_accepts_every_schema_path(path):
     out = set_dotted({}, path, 1)
     section, key = path.split(".")
     assert out[section][key] == 1
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.floats(min_value=1e-18, max_value=1e12, allow_nan=False, allow_infinity=False),
+       st.sampled_from(["Hz", "V", "A", "W", "ohm", "H", "F", "s", "m", "dB", "deg", "dBm"]),
+       st.sampled_from(["{:.10g}", "{:.3e}", "{:g}", "{!r}"]), st.booleans())
+def test_plain_number_and_unit_read_as_quantiphy_reads_them(value, unit, fmt, negative):
+    # "<number literal> <unit>" (how pashape writes values into sweep points and sized files) is
+    # read without quantiphy's parser: the literal's float, which is what quantiphy gives wherever
+    # it reads the spelling as the unit (the registry's quantiphy library as the reference). A
+    # spelling that is a scale letter ("1 a": atto) is left to quantiphy; "1 meter", which
+    # quantiphy reads as milli-"eter", is now 1 m as the spelling table says.
+    from quantiphy import Quantity
+
+    import netgen.design.quantities as quantities
+
+    number = fmt.format(-value if negative else value)
+    for spelling in quantities.UNIT_ALIASES[unit]:
+        text = f"{number} {spelling}"
+        if spelling in quantities._SCALE:  # the fast path must not take it: same as quantiphy's path
+            saved = quantities._PLAIN
+            results = []
+            for pattern in (saved, re.compile(r"(?!)")):  # the second never matches
+                quantities._PLAIN = pattern
+                try:
+                    results.append(parse_quantity(text, unit, "k"))
+                except DesignError as exc:
+                    results.append(str(exc))
+                finally:
+                    quantities._PLAIN = saved
+            assert results[0] == results[1]
+            continue
+        assert parse_quantity(text, unit, "k") == float(number)
+        q = Quantity(text)
+        if (q.units or "").strip() == spelling:
+            assert float(q.real) == float(number)

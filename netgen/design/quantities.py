@@ -47,6 +47,8 @@ UNIT_ALIASES: dict[str, tuple[str, ...]] = {
 _MEG = re.compile(r"(?<=[0-9.\s])meg", re.IGNORECASE)
 _SCALE = set("YZEPTGMkmunpfazy") | {"µ", "μ"}
 _BARE_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+#: a number literal, one blank, a unit spelling (no scale prefix)
+_PLAIN = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?) (\S+)$")
 
 
 def _canonical_unit(units: str) -> str | None:
@@ -100,6 +102,12 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
         raise DesignError(f"{key}: the value is empty; write e.g. \"{example or '1.0'}\".")
     if "\n" in text or "\r" in text:
         raise DesignError(f"{key}: a quantity must be on one line.")
+    plain = _PLAIN.match(text)
+    if plain and unit and plain.group(2) in UNIT_ALIASES.get(unit, ()) and plain.group(2) not in _SCALE:
+        # "5.963e-07 H": a number literal and the key's own unit, as pashape writes values itself
+        # (sweep points, sized files); the same float quantiphy reads, without its parser (a
+        # spelling that is also a scale letter, "1 a", "5 m", is left to quantiphy: it reads atto, milli)
+        return float(plain.group(1))
     spice = _MEG.sub("M", text)
     try:
         q = Quantity(spice)

@@ -82,6 +82,11 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
     el = _elements(netlist_text)
     dt = (wf.t_s[1] - wf.t_s[0]) if len(wf.t_s) > 1 else 1.0
     currents = {k.upper(): np.asarray(v, float) for k, v in wf.i.items()}
+    budget = {k.lower(): w for k, w in (losses or {}).items()}
+    rloss_at: dict[str, tuple] = {}  # first node -> the first RLOSS_* card from it, in netlist order
+    for k, t in el.items():
+        if k.startswith("RLOSS_") and len(t) >= 4:
+            rloss_at.setdefault(t[1].lower(), (k, t))
     out: dict[str, dict] = {}
     for name, tok in el.items():
         kind = name[0]
@@ -92,8 +97,7 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
         v = None if va is None or vb is None else va - vb
         # the series loss resistor of this part: RLOSS_* from node b (x_<component>) onwards
         # (RLOSS_<part>, not a ladder section RLOSS_<part>__s<k>, which carries only part of the current)
-        rl_name, rl = next(((k, t) for k, t in el.items() if k.startswith("RLOSS_") and len(t) >= 4
-                            and t[1].lower() == b and b.startswith("x_")), (None, None))
+        rl_name, rl = rloss_at.get(b, (None, None)) if b.startswith("x_") else (None, None)
         sensed = rl_name is not None and "__" not in rl_name
         part_key = b[2:] if b.startswith("x_") else None
         i_r, p_loss = None, None
@@ -103,7 +107,6 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
             if sensed and r and vr_a is not None and vr_b is not None:
                 i_r = (vr_a - vr_b) / r
                 p_loss = float(np.mean((vr_a - vr_b) ** 2) / r)
-            budget = {k.lower(): w for k, w in (losses or {}).items()}
             if part_key in budget:
                 p_loss = float(budget[part_key])
         if kind == "L":
