@@ -118,8 +118,9 @@ def estimate_waveforms(sized, netlist: str, points: int | None = None):
     shift = round(state.t0_s / T * M) % M  # grid index of the sample nearest t = 0 (mod T)
     start = (-shift) % M
 
-    def rolled(x):
-        return np.roll(np.asarray(x, dtype=float), -start)
+    def rolled(x):  # np.roll(x, -start), without its generality
+        x = np.asarray(x, dtype=float)
+        return np.concatenate((x[start:], x[:start])) if start else x.copy()
 
     v = {name: rolled(x) for name, x in state.series.items() if "#" not in name}
     i = {"drain": rolled(state.series["vidrain#branch"]), "supply": -rolled(state.series["vdd#branch"])}
