@@ -28,7 +28,7 @@ from netgen.synthesis import COUT_Q_WARN, bound_for
 
 from .drive import angelov_warnings, conduction_angle_deg, drive_metrics, input_side, input_warnings
 from .planes import PLANES, intrinsic_columns, plane_warnings
-from .stress import buildability_warnings, part_stress, stress_summary
+from .stress import buildability_warnings, fast_mean, part_stress, stress_summary
 
 
 __all__ = [
@@ -284,7 +284,7 @@ class _Window:
         self.t_grid = wf.t_s
 
     def mean_product(self, x: np.ndarray, y: np.ndarray) -> float:
-        return pwl_mean_product(self.t, x, y) if self.exact else float(np.mean(x * y))
+        return pwl_mean_product(self.t, x, y) if self.exact else fast_mean(x * y)
 
     def node(self, node: str, element: str) -> np.ndarray:
         if node in ("0", "gnd", "GND"):

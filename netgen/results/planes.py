@@ -78,9 +78,11 @@ def _causes(sized, misses: list[tuple[int, str]], metrics: dict) -> list[str]:
     ropt = sized.ropt_ohm
     f = [n * d.f0_hz for n, _ in misses]
     try:
-        z_int_all = z_intrinsic(sized, f)
-        z_ideal_all = z_intrinsic(_lossless(sized), f)
+        from netgen.synthesis.intrinsic import parasitics, to_intrinsic
+
         z_pkg_all = z_drain(sized, f)
+        z_int_all = to_intrinsic(z_pkg_all, f, parasitics(d))  # z_intrinsic without a second z_drain
+        z_ideal_all = z_intrinsic(_lossless(sized), f)
     except (KeyError, ValueError, ZeroDivisionError, FloatingPointError):
         return ["the template's own network (not modelled)"] * len(misses)
     dev = d.device

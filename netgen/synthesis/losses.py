@@ -122,6 +122,20 @@ def r_law_ohm(sized: SizedDesign, name: str, f_hz) -> np.ndarray:
     return net.capacitor_esr_ohm * _scale(net.capacitor_loss_law, "C", f / f0)
 
 
+def _r_law_at_f0(sized: SizedDesign, comp) -> float:
+    """``r_law_ohm(sized, name, f0)`` as a float, in scalar arithmetic: every law is 1 x its f0
+    value at f0, so this is the f0 value itself (the network model asks for it per part and
+    evaluation)."""
+    net = sized.design.network
+    if not comp.lossy or comp.kind not in "LC":
+        return 0.0
+    if comp.kind == "L":
+        if math.isinf(net.inductor_q):
+            return 0.0
+        return 2 * math.pi * sized.design.f0_hz * comp.value / net.inductor_q
+    return float(net.capacitor_esr_ohm)
+
+
 _SCALES = {
     "fixed": lambda x: np.ones_like(x),
     "constant_esr": lambda x: np.ones_like(x),
@@ -235,7 +249,7 @@ def loss_net(sized: SizedDesign, name: str) -> LossNet:
     """
     comp = sized.components[name]
     f0 = sized.design.f0_hz
-    r_f0 = float(r_law_ohm(sized, name, f0)[0])
+    r_f0 = _r_law_at_f0(sized, comp)
     net = sized.design.network
     law = net.inductor_loss_law if comp.kind == "L" else net.capacitor_loss_law
     if r_f0 <= 0 or law in ("fixed", "constant_esr"):
