@@ -132,8 +132,7 @@ class _Net:
         Y = np.zeros((K, n, n), complex)
         if K == 1:  # scalars and one-element arrays: one scatter
             keys = np.array(list(entries), dtype=int).reshape(-1, 2)
-            Y[0, keys[:, 0], keys[:, 1]] = [complex(np.ravel(y)[0]) if np.ndim(y) else complex(y)
-                                            for y in entries.values()]
+            Y[0, keys[:, 0], keys[:, 1]] = [y[0] if isinstance(y, np.ndarray) else y for y in entries.values()]
             return Y, b
         for (r, c), y in entries.items():
             Y[:, r, c] = y
@@ -303,18 +302,23 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
     if len(s) > 1:
         X[1:, :nn] = Xr[:, :nn]
         folded = net.folded_columns()
+        ind_full, ind_a, ind_b, ind_l = [], [], [], []
         for c in net.cards:
             if c.name not in net.branches:
                 continue
             full = nn + net.branches[c.name]
             if c.name[0] == "L":
                 ia, ib = (net.node(x.lower()) for x in c.tokens[1:3])
-                va = Xr[:, ia] if ia is not None else 0.0
-                vb = Xr[:, ib] if ib is not None else 0.0
-                X[1:, full] = (va - vb) / (s[1:, None] * net.value(c))
+                ind_full.append(full)
+                ind_a.append(nn if ia is None else ia)  # column nn of the padded voltages: ground
+                ind_b.append(nn if ib is None else ib)
+                ind_l.append(net.value(c))
             else:
                 w = net.widths.get(c.name, 1)
                 X[1:, full:full + w] = Xr[:, folded[c.name]:folded[c.name] + w]
+        if ind_full:  # every inductor's current, (v_a - v_b)/(sL), in one step
+            v = np.concatenate([Xr[:, :nn], np.zeros((len(s) - 1, 1, Xr.shape[2]), complex)], axis=1)
+            X[1:, ind_full] = (v[:, ind_a] - v[:, ind_b]) / (s[1:, None, None] * np.asarray(ind_l)[None, :, None])
     return X
 
 
@@ -798,6 +802,8 @@ def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dic
     inst = {}
     for c in net.cards:
         kind = c.name[0]
+        if kind not in "LCT" and c.name not in net.branches:
+            continue  # a resistor or a source without a branch: nothing to collect
         toks = [x.lower() for x in c.tokens]
         if c.name in net.branches:
             col = nn + net.branches[c.name]
