@@ -78,7 +78,7 @@ def _causes(sized, misses: list[tuple[int, str]], metrics: dict) -> list[str]:
     ropt = sized.ropt_ohm
     f = [n * d.f0_hz for n, _ in misses]
     try:
-        from netgen.synthesis.intrinsic import parasitics, to_intrinsic
+        from netgen.synthesis import parasitics, to_intrinsic
 
         z_pkg_all = z_drain(sized, f)
         z_int_all = to_intrinsic(z_pkg_all, f, parasitics(d))  # z_intrinsic without a second z_drain
