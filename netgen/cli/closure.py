@@ -182,7 +182,8 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
     if not quiet:
         from tqdm import tqdm
 
-        bar = tqdm(total=plan.n_points, file=sys.stderr, unit="pt", desc="load-pull", dynamic_ncols=True)
+        bar = tqdm(total=plan.n_points, file=sys.stderr, unit="pt", desc="load-pull", dynamic_ncols=True,
+                   disable=not sys.stderr.isatty())  # on a terminal only
 
     def progress(done, total):
         if bar is not None:

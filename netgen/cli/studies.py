@@ -150,8 +150,9 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
         if not quiet:
             from tqdm import tqdm
 
+            # on a terminal only (a log or a pipe gets the summary lines, not the bar's redraws)
             bar = tqdm(total=plan.n_points, initial=len(store.done_indices(sid)), file=sys.stderr,
-                       unit="pt", desc="sweep", dynamic_ncols=True)
+                       unit="pt", desc="sweep", dynamic_ncols=True, disable=not sys.stderr.isatty())
 
         def progress(done, total, res):
             if bar is not None:
