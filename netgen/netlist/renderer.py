@@ -64,10 +64,9 @@ def design_folder(design) -> Path:
 
 
 
-@functools.lru_cache(maxsize=1)
-def _environment() -> BoundedEnvironment:
-    """The shared sandboxed environment (built once per process; templates are cached)."""
-    env = BoundedEnvironment(
+def _make_environment(cls):
+    """An environment of class ``cls`` with the template folder and our settings and filter."""
+    env = cls(
         loader=jinja2.FileSystemLoader(str(template_dir())),
         undefined=jinja2.StrictUndefined,
         autoescape=False,
@@ -75,8 +74,14 @@ def _environment() -> BoundedEnvironment:
         lstrip_blocks=True,
         keep_trailing_newline=True,
     )
-    env.filters["n"] = _fmt  # our own filter: not wrapped (it only formats one number)
+    env.filters["n"] = _fmt  # our own filter: not wrapped in the sandbox (it only formats one number)
     return env
+
+
+@functools.lru_cache(maxsize=1)
+def _environment() -> BoundedEnvironment:
+    """The shared sandboxed environment (built once per process; templates are cached)."""
+    return _make_environment(BoundedEnvironment)
 
 
 @functools.lru_cache(maxsize=1)
@@ -85,16 +90,7 @@ def _package_environment() -> jinja2.Environment:
     filter as the sandbox, without its per-call checks (this is package code, as trusted as the
     renderer itself; the rendered text is checked all the same). Same output, about half the time:
     tests/test_render.py renders every shipped design both ways."""
-    env = jinja2.Environment(
-        loader=jinja2.FileSystemLoader(str(template_dir())),
-        undefined=jinja2.StrictUndefined,
-        autoescape=False,
-        trim_blocks=True,
-        lstrip_blocks=True,
-        keep_trailing_newline=True,
-    )
-    env.filters["n"] = _fmt
-    return env
+    return _make_environment(jinja2.Environment)
 
 
 def ac_grid(freqs_hz) -> tuple[int, float, float]:
