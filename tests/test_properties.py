@@ -287,6 +287,8 @@ def test_plain_number_and_unit_read_as_quantiphy_reads_them(value, unit, fmt, ne
             assert results[0] == results[1]
             continue
         assert parse_quantity(text, unit, "k") == float(number)
+        with pytest.raises(DesignError, match="not a finite number"):
+            parse_quantity(f"1e400 {spelling}", unit, "k")
         q = Quantity(text)
         if (q.units or "").strip() == spelling:
             assert float(q.real) == float(number)

@@ -107,7 +107,9 @@ def parse_quantity(value: object, unit: str, key: str) -> float:
         # "5.963e-07 H": a number literal and the key's own unit, as pashape writes values itself
         # (sweep points, sized files); the same float quantiphy reads, without its parser (a
         # spelling that is also a scale letter, "1 a", "5 m", is left to quantiphy: it reads atto, milli)
-        return float(plain.group(1))
+        number = float(plain.group(1))
+        _check_finite(number, value, key)  # "1e400 V" is a literal too
+        return number
     spice = _MEG.sub("M", text)
     try:
         q = Quantity(spice)
