@@ -2,9 +2,10 @@
 
 A user template renders in a sandboxed environment (``SandboxedEnvironment`` with bounded work,
 netlist/sandbox.py), the templates shipped in the package in a plain one with the same settings
-(package code; identical output); undefined names are errors (``StrictUndefined``), nothing is escaped, and numbers reach the text only through our
-``n`` filter (``'{:.10g}'``). The only user text placed in a netlist is the validated design
-name (:data:`netgen.design.schema.SAFE_NAME`) and the checked model-file path of a spice device.
+(package code; identical output); undefined names are errors (``StrictUndefined``), nothing is
+escaped, and numbers reach the text only through our ``n`` filter (``'{:.10g}'``). The only user
+text placed in a netlist is the validated design name (:data:`netgen.design.schema.SAFE_NAME`) and
+the checked model-file path of a spice device.
 Output is byte-identical for identical input (no timestamps). Every context variable is
 documented in docs/template_context.md; the portable dialect in docs/portable_dialect.md.
 
@@ -502,7 +503,7 @@ def render(sized: SizedDesign, mode: str = "tran", dialect: str = "ngspice", *, 
 MAX_TEMPLATE_BYTES = 1_000_000
 
 
-def _run_template(d, ctx: dict, name: str, *, sandbox: bool | None = None) -> str:
+def _run_template(d, ctx: dict, name: str, *, sandbox: bool = False) -> str:
     """Render the design's template with ``ctx``: a user template under the sandbox's bounds
     (netlist/sandbox.py), a shipped one in :func:`_package_environment` (``sandbox=True`` renders
     a shipped one in the sandbox too)."""

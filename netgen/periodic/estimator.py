@@ -162,8 +162,7 @@ class _Net:
 
         def add(r, c, y):
             if r is not None and c is not None:
-                old = Y.get((r, c))
-                Y[(r, c)] = y if old is None else old + y
+                _accumulate(Y, r, c, y)
 
         def conductance(a, bb, y):
             ia, ib = self.node(a), self.node(bb)
@@ -269,6 +268,20 @@ class _Net:
 
 
 
+def _accumulate(Y: dict, r: int, c: int, y) -> None:
+    """Add ``y`` (a constant or values over the bins) to entry (r, c) of the entries ``Y``."""
+    old = Y.get((r, c))
+    Y[(r, c)] = y if old is None else old + y
+
+
+def _remember(cache: dict, key, value, most: int):
+    """Store ``value`` under ``key`` in a cache of at most ``most`` entries (the oldest go first)."""
+    cache[key] = value
+    while len(cache) > most:
+        cache.pop(next(iter(cache)))
+    return value
+
+
 def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M: int, t0_s: float,
                 cols: list[int]) -> np.ndarray:
     """X (K, n, 1 + len(cols)): the network's response per bin to its own sources (column 0) and
@@ -288,12 +301,12 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
         return np.concatenate([b[..., None], draw], axis=-1)
 
     X = np.zeros((len(s), n, 1 + len(cols)), complex)
+    folded = net.folded_columns()
     try:
         Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)  # one bin: dense
         X[:1] = np.linalg.solve(Y0, rhs(b0))
         if len(s) > 1:
             Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
-            folded = net.folded_columns()
             vsrc = [(folded[c.name], net.node(c.tokens[1].lower()), net.node(c.tokens[2].lower()))
                     for c in net.cards if c.name[0] == "V"]
             Xr = _solve_condensed(Yr, rhs(br), nn, vsrc)
@@ -301,7 +314,6 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     if len(s) > 1:
         X[1:, :nn] = Xr[:, :nn]
-        folded = net.folded_columns()
         ind_full, ind_a, ind_b, ind_l = [], [], [], []
         for c in net.cards:
             if c.name not in net.branches:
@@ -392,9 +404,7 @@ def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) 
                 adj[c].add(r)
         _search_order(Y, adj, alive, free, nn, done)
         if replay is None:
-            _ORDERS[key] = [(i, nbr) for i, nbr, _, _ in done]
-            while len(_ORDERS) > _ORDERS_MAX:
-                _ORDERS.pop(next(iter(_ORDERS)))
+            _remember(_ORDERS, key, [(i, nbr) for i, nbr, _, _ in done], _ORDERS_MAX)
     keep = np.flatnonzero(alive)
     at = {int(j): q for q, j in enumerate(keep)}
     A = np.zeros((K, len(keep), len(keep)), complex)
@@ -430,8 +440,7 @@ def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | No
     make most of them. Returns what the recovery needs: (p, e, o, sigma, R_p, c_e, row e, R_e).
     """
     def put(r, c, y):
-        old = Y.get((r, c))
-        Y[(r, c)] = y if old is None else old + y
+        _accumulate(Y, r, c, y)
         rows.setdefault(r, set()).add(c)
         cols.setdefault(c, set()).add(r)
 
@@ -685,11 +694,8 @@ def _device(cards: list[Card], models: dict, period_s: float, points: int):
     changes), the period and the grid. The Device is not changed after it is read."""
     key = (tuple(c.text for c in cards if c.name[0] not in "RLCT" or c.text.startswith(".")), period_s, points)
     dev = _DEVICES.get(key)
-    if dev is None:
-        dev = _DEVICES[key] = read_device(cards, models, period_s, points)
-        while len(_DEVICES) > _DEVICES_MAX:
-            _DEVICES.pop(next(iter(_DEVICES)))
-    return dev
+    return dev if dev is not None else _remember(_DEVICES, key, read_device(cards, models, period_s, points),
+                                                 _DEVICES_MAX)
 
 
 def grid_points(points_per_cycle: int, nonlinear: bool = False) -> int:

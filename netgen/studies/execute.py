@@ -441,7 +441,7 @@ BATCH_MAX = 16
 
 def _batch_size(results: list[dict], current: int) -> int:
     """Points in the next batch: about :data:`BATCH_TARGET_S` of work by the seconds the last
-    batch's points took (1 for points of a tenth of a second and more, e.g. ngspice runs)."""
+    batch's points took (one point a batch from about 0.13 s a point, e.g. ngspice runs)."""
     secs = [r["seconds"] for r in results if r.get("seconds")]
     if not secs:
         return current

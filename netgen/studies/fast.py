@@ -225,11 +225,9 @@ def evaluate_estimate(design, *, points: int | None = None) -> dict:
 
     Raises ``netgen.netlist.Unsupported`` where the estimate does not apply.
     """
-    from netgen.netlist import render
+    from netgen.netlist import Unsupported, render
     from netgen.results import analyse
     from netgen.synthesis import size
-
-    from netgen.netlist import Unsupported
 
     sized = size(design)
     netlist = render(sized, mode="tran")

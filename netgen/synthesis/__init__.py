@@ -28,7 +28,7 @@ _EXPORTS = {
     "element_name": "builder",
     "get_topology": "topologies",
     "line_plan": "network",
-    "loss_ohm": "network",
+    "loss_ohm": "losses",
     "loss_net": "losses",
     "r_law_ohm": "losses",
     "line_r_law_ohm": "losses",

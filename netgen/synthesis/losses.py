@@ -42,6 +42,7 @@ __all__ = [
     "LossNet",
     "loss_net",
     "line_loss_net",
+    "loss_ohm",
     "r_law_ohm",
     "line_r_law_ohm",
     "z_loss_net",
@@ -101,31 +102,16 @@ def fit_harmonics(sized: SizedDesign) -> int:
 
 # ---------------------------------------------------------------- the laws
 
-def r_law_ohm(sized: SizedDesign, name: str, f_hz) -> np.ndarray:
-    """The law's series loss resistance of component ``name`` at ``f_hz`` (ohm, ndarray).
+def loss_ohm(sized: SizedDesign, name: str) -> float:
+    """Series loss resistance of component ``name`` at f0, ohm (the law's value there).
 
-    Inductor: Q = network.inductor_q at f0, scaled by network.inductor_loss_law. Capacitor:
-    network.capacitor_esr at f0, scaled by network.capacitor_loss_law. Components with
-    ``lossy=False`` (the feed choke) and lines: 0.
+    Inductor: ``omega0 L / Q`` with Q = network.inductor_q (unloaded Q at f0; inf -> 0).
+    Capacitor: network.capacitor_esr. Components with ``lossy=False`` (the feed choke,
+    whose loss is a DC resistance, not omega0 L / Q) and lines: 0. How it scales with
+    frequency (:func:`r_law_ohm`) and the ladder that realises it: the module docstring.
+    Scalar arithmetic: the network model asks for it per part and evaluation.
     """
-    f = np.atleast_1d(np.asarray(f_hz, dtype=float))
     comp = sized.components[name]
-    net = sized.design.network
-    f0 = sized.design.f0_hz
-    if not comp.lossy or comp.kind not in "LC":
-        return np.zeros_like(f)
-    if comp.kind == "L":
-        if math.isinf(net.inductor_q):
-            return np.zeros_like(f)
-        r0 = 2 * math.pi * f0 * comp.value / net.inductor_q
-        return r0 * _scale(net.inductor_loss_law, "L", f / f0)
-    return net.capacitor_esr_ohm * _scale(net.capacitor_loss_law, "C", f / f0)
-
-
-def _r_law_at_f0(sized: SizedDesign, comp) -> float:
-    """``r_law_ohm(sized, name, f0)`` as a float, in scalar arithmetic: every law is 1 x its f0
-    value at f0, so this is the f0 value itself (the network model asks for it per part and
-    evaluation)."""
     net = sized.design.network
     if not comp.lossy or comp.kind not in "LC":
         return 0.0
@@ -134,6 +120,21 @@ def _r_law_at_f0(sized: SizedDesign, comp) -> float:
             return 0.0
         return 2 * math.pi * sized.design.f0_hz * comp.value / net.inductor_q
     return float(net.capacitor_esr_ohm)
+
+
+def r_law_ohm(sized: SizedDesign, name: str, f_hz) -> np.ndarray:
+    """The law's series loss resistance of component ``name`` at ``f_hz`` (ohm, ndarray):
+    :func:`loss_ohm` (the f0 value) scaled by network.inductor_loss_law (inductors) or
+    network.capacitor_loss_law (capacitors); 0 for parts without loss.
+    """
+    f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+    r0 = loss_ohm(sized, name)
+    if r0 == 0.0:
+        return np.zeros_like(f)
+    kind = sized.components[name].kind
+    net = sized.design.network
+    law = net.inductor_loss_law if kind == "L" else net.capacitor_loss_law
+    return r0 * _scale(law, kind, f / sized.design.f0_hz)
 
 
 _SCALES = {
@@ -249,7 +250,7 @@ def loss_net(sized: SizedDesign, name: str) -> LossNet:
     """
     comp = sized.components[name]
     f0 = sized.design.f0_hz
-    r_f0 = _r_law_at_f0(sized, comp)
+    r_f0 = loss_ohm(sized, name)
     net = sized.design.network
     law = net.inductor_loss_law if comp.kind == "L" else net.capacitor_loss_law
     if r_f0 <= 0 or law in ("fixed", "constant_esr"):

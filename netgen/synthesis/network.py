@@ -19,7 +19,7 @@ import numpy as np
 
 from netgen.design import SizedDesign
 
-from .losses import LINE_SEGMENTS_LOSSY, line_loss_net, line_r_law_ohm, loss_net, r_law_ohm, z_loss_net
+from .losses import LINE_SEGMENTS_LOSSY, line_loss_net, line_r_law_ohm, loss_net, loss_ohm, z_loss_net
 
 __all__ = [
     "z_drain",
@@ -38,17 +38,6 @@ __all__ = [
     "z_intrinsic",
     "comp_branches",
 ]
-
-def loss_ohm(sized: SizedDesign, name: str) -> float:
-    """Series loss resistance of component ``name`` at f0, ohm (the law's value there).
-
-    Inductor: ``omega0 L / Q`` with Q = network.inductor_q (unloaded Q at f0; inf -> 0).
-    Capacitor: network.capacitor_esr. Components with ``lossy=False`` (the feed choke,
-    whose loss is a DC resistance, not omega0 L / Q) and lines: 0. How it scales with
-    frequency, and the ladder that realises it: :mod:`netgen.synthesis.losses`.
-    """
-    return float(r_law_ohm(sized, name, sized.design.f0_hz)[0])
-
 
 def line_plan(sized: SizedDesign, base: str) -> dict:
     """How line ``base`` is built: ``{z0, td_seg, k, r_seg, r_total, r0, sections}``.
