@@ -18,7 +18,9 @@ resistor; the Foster form of the skin-effect ladder of Kim & Neikirk, "Compact e
 model for the skin effect", IEEE MTT-S 1996) or ``R_k || C_k`` (a capacitor's falling ESR). The
 section corner frequencies are fixed (octaves from f0/2 to 8 N f0) and the values come from a non-negative least-squares fit at the harmonics f0 .. N f0
 (N = max(5, sim.harmonics)), with the part's main L or C fitted beside them so that the reactance
-at f0 is the designed one. Only R, L and C appear, so the portable dialect carries it, and the
+at f0 is the designed one. The fit is homogeneous in impedance (targets, columns and weights all
+scale with the part's f0 reactance), so it is made once per law and r/|X0| for a part of
+|X0| = 1 ohm and scaled: parts of one Q share it. Only R, L and C appear, so the portable dialect carries it, and the
 periodic estimate, which reads the netlist, sees exactly what ngspice sees.
 
 A passive (causal) impedance cannot have an arbitrary resistance with a fixed reactance: Bode's
@@ -93,6 +95,13 @@ class LossNet:
     @property
     def lossy(self) -> bool:
         return self.r0_ohm > 0 or bool(self.sections)
+
+    def impedance_scaled(self, k: float) -> LossNet:
+        """The same ladder with every impedance times ``k`` (resistances and inductances x k,
+        capacitances / k): Z(w) becomes k Z(w) at every frequency."""
+        if self.kind == "C":
+            return LossNet("C", self.main / k, self.r0_ohm * k, tuple((r * k, c / k) for r, c in self.sections))
+        return LossNet(self.kind, self.main * k, self.r0_ohm * k, tuple((r * k, x * k) for r, x in self.sections))
 
 
 def fit_harmonics(sized: SizedDesign) -> int:
@@ -239,7 +248,15 @@ def _fit(kind: str, law: str, value: float, r_f0: float, f0_hz: float, n_max: in
     else:
         main = float(sol[1]) * value
         secs = tuple((rk, rk * t) for rk, t in keep)  # L_k = R_k tau_k
-    return LossNet(kind, main, float(sol[0]) if sol[0] > tiny else 0.0, secs)
+    # to 12 digits: the solver's last bits may differ between machines' vector paths, and the
+    # ladder's values enter the sized-design digest (12 digits are far finer than the fit's own
+    # agreement with the law, fit_report)
+    g = _digits12
+    return LossNet(kind, g(main), g(float(sol[0])) if sol[0] > tiny else 0.0, tuple((g(a), g(b)) for a, b in secs))
+
+
+def _digits12(x: float) -> float:
+    return float(f"{x:.12g}")
 
 
 def loss_net(sized: SizedDesign, name: str) -> LossNet:
@@ -255,7 +272,14 @@ def loss_net(sized: SizedDesign, name: str) -> LossNet:
     law = net.inductor_loss_law if comp.kind == "L" else net.capacitor_loss_law
     if r_f0 <= 0 or law in ("fixed", "constant_esr"):
         return LossNet(comp.kind, comp.value, max(r_f0, 0.0))
-    return _fit(comp.kind, law, float(comp.value), r_f0, float(f0), fit_harmonics(sized))
+    # the fit is homogeneous in impedance (the law's targets, the columns and the weights all scale
+    # with the part's f0 reactance |X0|; the corners are fixed): fitted once for a part of
+    # |X0| = 1 ohm at this r/|X0| and scaled, so parts of one Q share one fit (a tolerance sweep's
+    # inductors: r = omega0 L / Q)
+    w0 = 2 * math.pi * float(f0)
+    x0 = w0 * comp.value if comp.kind == "L" else 1.0 / (w0 * comp.value)
+    unit = _fit(comp.kind, law, 1.0 / w0, r_f0 / x0, float(f0), fit_harmonics(sized))
+    return unit.impedance_scaled(x0)
 
 
 def line_loss_net(sized: SizedDesign, base: str) -> LossNet:
