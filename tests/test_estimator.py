@@ -23,7 +23,7 @@ import pytest
 
 from netgen.periodic import initial_state
 from netgen.netlist import cards as netlist_cards
-from netgen.periodic import estimator
+from netgen.periodic import condense, estimator
 from netgen.periodic.pwl_fourier import fourier_pwl
 from netgen.design.schema import design_from_dict, load_design
 from netgen.netlist.renderer import render
@@ -438,10 +438,11 @@ def test_condensed_solve_replays_its_order_and_falls_back_on_a_weak_pivot():
     # hands over to the search, which keeps that node for the dense solve. Each result must be
     # LAPACK's partial-pivoting solve of the whole system.
     rng = np.random.default_rng(5)
-    estimator._ORDERS.clear()
+    condense._PLANS.clear()
+    condense._SOURCE_PLANS.clear()
     for weak in (None, None, 7, None):
         Y, R = _ladder_system(rng, 12, weak)
         want = _dense(dict(Y), R.copy())
-        got = estimator._solve_condensed(dict(Y), R.copy(), 5, [(5, 0, None)])
+        got = condense.solve_condensed(condense.Entries.from_dict(Y, 12), R.copy(), 5, [(5, 0, None)])
         assert np.abs(got - want).max() < 1e-9 * np.abs(want).max()
-    assert len(estimator._ORDERS) == 1  # one structure, one order (the weak pivot's search not stored)
+    assert len(condense._PLANS) == 1  # one structure, one order (the weak pivot's search not stored)

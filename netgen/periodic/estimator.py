@@ -64,6 +64,7 @@ from netgen.netlist import (
 )
 
 from . import collocation
+from .condense import TERM_BINS, TERM_CONST, TERM_OVER_S, TERM_TIMES_S, Stamps, remember, solve_condensed
 from .device import LINEAR_KINDS, read_device, solve_device
 
 __all__ = ["Unsupported", "PeriodicState", "estimate", "grid_points"]
@@ -119,6 +120,17 @@ class _Net:
                 at += self.widths.get(name, 1)
         return cols
 
+    @property
+    def structure(self) -> tuple:
+        """What the stamps' placement depends on: every element's kind, name and nodes (not its
+        values). Networks equal in it put the same terms into the same entries."""
+        s = self.__dict__.get("_structure")
+        if s is None:
+            s = self.__dict__["_structure"] = tuple(
+                tuple(c.tokens) if c.name[0] == "X" else tuple(c.tokens[:5 if c.name[0] in "TEG" else 3])
+                for c in self.cards)
+        return s
+
     def assemble(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float, *,
                  first_bin: int = 0, fold_inductors: bool = False):
         """Y (K, n, n) and source vectors (K, n) for the bins ``first_bin ..`` with Laplace variable
@@ -128,23 +140,16 @@ class _Net:
         """
         entries, b = self.assemble_entries(s, theta, period_s, points, t0_s, first_bin=first_bin,
                                            fold_inductors=fold_inductors)
-        K, n = b.shape
-        Y = np.zeros((K, n, n), complex)
-        if K == 1:  # scalars and one-element arrays: one scatter
-            keys = np.array(list(entries), dtype=int).reshape(-1, 2)
-            Y[0, keys[:, 0], keys[:, 1]] = [y[0] if isinstance(y, np.ndarray) else y for y in entries.values()]
-            return Y, b
-        for (r, c), y in entries.items():
-            Y[:, r, c] = y
-        return Y, b
+        return entries.dense(b.shape[1]), b
 
     def assemble_entries(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float, *,
                          first_bin: int = 0, fold_inductors: bool = False):
-        """The non-zero entries of Y, {(row, column): value over the bins (K,) or a constant}, and
+        """The non-zero entries of Y over the bins (:class:`netgen.periodic.condense.Entries`) and
         the source vectors b (K, n), as :meth:`assemble`. A network's matrix is sparse (a few
         entries per element in an n x n matrix), so it is kept by entry: the stamps and the node
-        condensation (_solve_condensed) touch only these, and only the part left after the
-        condensation is made dense.
+        condensation (solve_condensed) touch only these, and only the part left after the
+        condensation is made dense. Each stamp is a sum of terms (a constant, a value times s, a
+        value over s, values over the bins) put into entries with a sign (condense.Stamps).
 
         Length: one modified-nodal-analysis stamp per element kind (R, L, C, V, I, E, G, T),
         side by side so the stamps can be checked against each other.
@@ -153,53 +158,51 @@ class _Net:
         cols = self.folded_columns() if fold_inductors else {k: nn + v for k, v in self.branches.items()}
         K = len(s)
         n = self.size - (sum(1 for k in self.branches if k[0] == "L") if fold_inductors else 0)
-        Y: dict[tuple[int, int], object] = {(i, i): 1e-12 for i in range(nn)}  # gmin, as in SPICE
+        st = Stamps((self.structure, fold_inductors, n))
+        put, term, one = st.put, st.term, st.one
+        gmin = term(TERM_CONST, 1e-12)  # on every node, as in SPICE
+        for i in range(nn):
+            put(i, i, gmin)
         b = np.zeros((K, n), complex)
         grid = t0_s + np.arange(points) * (period_s / points)
 
         def spectrum(src: SourceWaveform) -> np.ndarray:
             return np.fft.rfft(src.value(grid))[first_bin:first_bin + K]
 
-        def add(r, c, y):
-            if r is not None and c is not None:
-                _accumulate(Y, r, c, y)
-
         def conductance(a, bb, y):
             ia, ib = self.node(a), self.node(bb)
-            add(ia, ia, y)
-            add(ib, ib, y)
-            add(ia, ib, -y)
-            add(ib, ia, -y)
+            put(ia, ia, y)
+            put(ib, ib, y)
+            put(ia, ib, y, -1.0)
+            put(ib, ia, y, -1.0)
 
         def branch_kcl(a, bb, col):
-            ia, ib = self.node(a), self.node(bb)
-            add(ia, col, 1.0)
-            add(ib, col, -1.0)
+            put(self.node(a), col, one)
+            put(self.node(bb), col, one, -1.0)
 
         def vdiff(row, a, bb, coef):
-            ia, ib = self.node(a), self.node(bb)
-            add(row, ia, coef)
-            add(row, ib, -coef)
+            put(row, self.node(a), coef)
+            put(row, self.node(bb), coef, -1.0)
 
         for c in self.cards:
             t = c.tokens
             kind = c.name[0]
             a, bb = t[1].lower(), t[2].lower()
             if kind == "R":
-                conductance(a, bb, 1.0 / self.value(c))
+                conductance(a, bb, term(TERM_CONST, 1.0 / self.value(c)))
             elif kind == "C":
-                conductance(a, bb, s * self.value(c))
+                conductance(a, bb, term(TERM_TIMES_S, self.value(c)))
             elif kind == "L" and fold_inductors:
-                conductance(a, bb, 1.0 / (s * self.value(c)))
+                conductance(a, bb, term(TERM_OVER_S, 1.0 / self.value(c)))
             elif kind == "L":
                 p = cols[c.name]
                 branch_kcl(a, bb, p)
-                vdiff(p, a, bb, 1.0)
-                add(p, p, -s * self.value(c))
+                vdiff(p, a, bb, one)
+                put(p, p, term(TERM_TIMES_S, -self.value(c)))
             elif kind == "V":
                 p = cols[c.name]
                 branch_kcl(a, bb, p)
-                vdiff(p, a, bb, 1.0)
+                vdiff(p, a, bb, one)
                 b[:, p] += spectrum(self.sources[c.name])
             elif kind == "I":
                 spec = spectrum(self.sources[c.name])
@@ -209,19 +212,18 @@ class _Net:
                 if ib is not None:
                     b[:, ib] += spec
             elif kind == "G":
-                gm = spice_value(t[5], c.name)
-                ca, cb = t[3].lower(), t[4].lower()
-                for out_node, sign in ((a, 1.0), (bb, -1.0)):
-                    r = self.node(out_node)
-                    add(r, self.node(ca), sign * gm)
-                    add(r, self.node(cb), -sign * gm)
+                gm = term(TERM_CONST, spice_value(t[5], c.name))
+                ca, cb = self.node(t[3].lower()), self.node(t[4].lower())
+                for r, sign in ((self.node(a), 1.0), (self.node(bb), -1.0)):
+                    put(r, ca, gm, sign)
+                    put(r, cb, gm, -sign)
             elif kind == "E":
                 p = cols[c.name]
                 branch_kcl(a, bb, p)
-                vdiff(p, a, bb, 1.0)
-                vdiff(p, t[3].lower(), t[4].lower(), -spice_value(t[5], c.name))
+                vdiff(p, a, bb, one)
+                vdiff(p, t[3].lower(), t[4].lower(), term(TERM_CONST, -spice_value(t[5], c.name)))
             elif kind == "X":
-                self._stamp_block(c, s, add, branch_kcl, vdiff, cols[c.name])
+                self._stamp_block(c, s, st, branch_kcl, vdiff, cols[c.name])
             elif kind == "T":
                 pars = card_params(t[5:])
                 z0 = spice_value(pars["Z0"], c.name)
@@ -232,17 +234,18 @@ class _Net:
                 branch_kcl(a, bb, p1)
                 branch_kcl(n3, n4, p2)
                 # Branin: (v1 - Z0 i1) - d (v2 + Z0 i2) = 0 and the converse (i into the port)
-                vdiff(p1, a, bb, 1.0)
-                add(p1, p1, -z0)
-                vdiff(p1, n3, n4, -d)
-                add(p1, p2, -d * z0)
-                vdiff(p2, n3, n4, 1.0)
-                add(p2, p2, -z0)
-                vdiff(p2, a, bb, -d)
-                add(p2, p1, -d * z0)
-        return Y, b
+                mz0, md, mdz0 = term(TERM_CONST, -z0), term(TERM_BINS, -d), term(TERM_BINS, -d * z0)
+                vdiff(p1, a, bb, one)
+                put(p1, p1, mz0)
+                vdiff(p1, n3, n4, md)
+                put(p1, p2, mdz0)
+                vdiff(p2, n3, n4, one)
+                put(p2, p2, mz0)
+                vdiff(p2, a, bb, md)
+                put(p2, p1, mdz0)
+        return st.entries(s), b
 
-    def _stamp_block(self, c: Card, s, add, branch_kcl, vdiff, p0: int) -> None:
+    def _stamp_block(self, c: Card, s, st: Stamps, branch_kcl, vdiff, p0: int) -> None:
         """A Touchstone block's scattering relation per bin, one current unknown per port.
 
         With a = (v + z0 i)/(2 sqrt z0), b = (v - z0 i)/(2 sqrt z0) at each port (i into the
@@ -260,26 +263,11 @@ class _Net:
             branch_kcl(node, "0", p0 + p)
         for p, node in enumerate(ports):
             row = p0 + p
-            vdiff(row, node, "0", 1.0 / rz[p])
-            add(row, p0 + p, -rz[p])
+            vdiff(row, node, "0", st.term(TERM_CONST, 1.0 / rz[p]))
+            st.put(row, p0 + p, st.term(TERM_CONST, -rz[p]))
             for q, other in enumerate(ports):
-                vdiff(row, other, "0", -S[:, p, q] / rz[q])
-                add(row, p0 + q, -S[:, p, q] * rz[q])
-
-
-
-def _accumulate(Y: dict, r: int, c: int, y) -> None:
-    """Add ``y`` (a constant or values over the bins) to entry (r, c) of the entries ``Y``."""
-    old = Y.get((r, c))
-    Y[(r, c)] = y if old is None else old + y
-
-
-def _remember(cache: dict, key, value, most: int):
-    """Store ``value`` under ``key`` in a cache of at most ``most`` entries (the oldest go first)."""
-    cache[key] = value
-    while len(cache) > most:
-        cache.pop(next(iter(cache)))
-    return value
+                vdiff(row, other, "0", st.term(TERM_BINS, -S[:, p, q] / rz[q]))
+                st.put(row, p0 + q, st.term(TERM_BINS, -S[:, p, q] * rz[q]))
 
 
 def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M: int, t0_s: float,
@@ -290,7 +278,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
     Bin 0 (DC, s = 0: an inductor is a short) is solved with the inductors' branch unknowns; the
     other bins with the inductors folded into admittances 1/(sL) and their currents recovered as
     (v_a - v_b)/(sL): the same solution with fewer unknowns (a loss ladder adds one inductor per
-    section; the batched dense solve costs n^3 per bin).
+    section; the batched dense solve costs n^3 per bin), condensed (netgen.periodic.condense).
     """
     nn, n = len(net.nodes), net.size
 
@@ -309,7 +297,7 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
             Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
             vsrc = [(folded[c.name], net.node(c.tokens[1].lower()), net.node(c.tokens[2].lower()))
                     for c in net.cards if c.name[0] == "V"]
-            Xr = _solve_condensed(Yr, rhs(br), nn, vsrc)
+            Xr = solve_condensed(Yr, rhs(br), nn, vsrc)
     except np.linalg.LinAlgError:
         raise Unsupported("the network's nodal matrix is singular (a floating node or a loop of sources)") from None
     if len(s) > 1:
@@ -332,189 +320,6 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
             v = np.concatenate([Xr[:, :nn], np.zeros((len(s) - 1, 1, Xr.shape[2]), complex)], axis=1)
             X[1:, ind_full] = (v[:, ind_a] - v[:, ind_b]) / (s[1:, None, None] * np.asarray(ind_l)[None, :, None])
     return X
-
-
-#: a node is condensed only if its pivot is at least this fraction of its largest coupling at every bin
-CONDENSE_PIVOT_MIN = 1e-6
-
-
-#: elimination orders found by _solve_condensed, by sparsity structure (a sweep's points share one)
-_ORDERS: dict[tuple, list[tuple[int, tuple[int, ...]]]] = {}
-_ORDERS_MAX = 32
-
-
-def _solve_condensed(Y: dict, R: np.ndarray, nn: int, vsrc: list | None = None) -> np.ndarray:
-    """X with Y X = R per bin (Y the matrix's entries as ``_Net.assemble_entries`` gives them,
-    consumed; R (K, n, c), overwritten), after the elimination of the voltage sources ``vsrc``
-    ((branch column, node a, node b), :func:`_eliminate_source`) and Gaussian elimination of the
-    nodes that couple to at most two other nodes and carry no right-hand side (the inner nodes of
-    loss ladders and series chains); the rest by one batched dense solve.
-
-    The elimination of such a node is exact (a Schur complement of one unknown: the series
-    combination of its two branches, Y_jk -= Y_ji Y_ik / Y_ii) and creates at most one new
-    coupling, so a chain collapses node by node (minimum-degree ordering restricted to degree
-    <= 2; Tinney & Walker, Proc. IEEE 1967). Only node unknowns (index < ``nn``) are condensed,
-    and only where the pivot |Y_ii| is at least CONDENSE_PIVOT_MIN of the node's couplings at every
-    bin (a lossless series resonator's inner node near its resonance keeps the dense solve's
-    partial pivoting). The condensed voltages are recovered afterwards in reverse order.
-
-    The order depends on the sparsity structure only (and on the pivot test): it is found once
-    per structure and replayed for the next matrix of the same structure (the points of a sweep),
-    each step's pivot tested again; where a replayed step fails its test, the search continues
-    from there as on a new structure.
-    """
-    K, n, _ = R.shape
-    alive = np.ones(n, bool)
-    shorted, merged = [], {}  # merged: eliminated node -> the node its voltage went to (None: ground)
-    rows: dict[int, set[int]] = {}
-    cols: dict[int, set[int]] = {}
-    if vsrc:
-        for r, c in Y:
-            rows.setdefault(r, set()).add(c)
-            cols.setdefault(c, set()).add(r)
-
-    def find(x):
-        while x in merged:
-            x = merged[x]
-        return x
-
-    for p, a, b in vsrc or ():
-        a, b = find(a), find(b)
-        if a == b:  # a loop of voltage sources: left to the dense solve (which finds it singular)
-            continue
-        rec = _eliminate_source(Y, R, p, a, b, rows, cols)
-        merged[rec[1]] = rec[2]
-        alive[rec[0]] = alive[rec[1]] = False
-        shorted.append(rec)
-    free = ~np.any(R != 0, axis=(0, 2))
-    key = (n, nn, free.tobytes(), alive.tobytes(), frozenset(Y))
-    done: list = []
-    replay = _ORDERS.get(key)
-    complete = replay is not None
-    for i, nbr in replay or ():
-        if not _eliminate(Y, None, i, nbr, done):
-            complete = False  # this matrix's pivot is too small: search on from here
-            break
-        alive[i] = False
-    if not complete:
-        adj: list[set[int]] = [set() for _ in range(n)]
-        for r, c in Y:
-            if r != c:
-                adj[r].add(c)
-                adj[c].add(r)
-        _search_order(Y, adj, alive, free, nn, done)
-        if replay is None:
-            _remember(_ORDERS, key, [(i, nbr) for i, nbr, _, _ in done], _ORDERS_MAX)
-    keep = np.flatnonzero(alive)
-    at = {int(j): q for q, j in enumerate(keep)}
-    A = np.zeros((K, len(keep), len(keep)), complex)
-    for (r, c), y in Y.items():
-        A[:, at[r], at[c]] = y
-    X = np.zeros(R.shape, complex)
-    X[:, keep] = np.linalg.solve(A, R[:, keep])
-    for i, nbr, row, piv in reversed(done):
-        acc = 0.0
-        for q, j in enumerate(nbr):
-            acc = acc + np.reshape(row[q], (-1, 1)) * X[:, j]
-        X[:, i] = -acc / np.reshape(piv, (-1, 1))
-    for p, e, o, sigma, r_p, c_e, row_e, r_e in reversed(shorted):
-        X[:, e] = sigma * r_p + (X[:, o] if o is not None else 0.0)
-        acc = r_e
-        for j, y in row_e.items():
-            acc = acc - np.reshape(y, (-1, 1)) * X[:, j]
-        X[:, p] = acc / c_e
-    return X
-
-
-def _eliminate_source(Y: dict, R: np.ndarray, p: int, a: int | None, b: int | None, rows: dict, cols: dict) -> tuple:
-    """Eliminate a voltage source (branch unknown ``p`` between nodes ``a`` and ``b``, row
-    ``v_a - v_b = R_p``) and one of its nodes ``e`` from the entries Y and the right-hand sides R
-    (``rows``/``cols``: the columns of each row and the rows of each column of Y, kept up to date).
-
-    ``v_e = v_o + sigma R_p`` (o the other node, or ground) goes into every column of e; the
-    source current, which appears only in the KCL rows of a and b, leaves with row e: row e is
-    added to row o (the current's coefficients there are opposite), and afterwards the current is
-    row e's residual. Exact (a 2 x 2 pivot on the source's unit entries; the classic merging of
-    the nodes of a voltage source, e.g. J. Vlach and K. Singhal, "Computer Methods for Circuit
-    Analysis and Design", recalled from memory); 0 V current senses and the supply (0 V off DC)
-    make most of them. Returns what the recovery needs: (p, e, o, sigma, R_p, c_e, row e, R_e).
-    """
-    def put(r, c, y):
-        _accumulate(Y, r, c, y)
-        rows.setdefault(r, set()).add(c)
-        cols.setdefault(c, set()).add(r)
-
-    def take(r, c):
-        rows[r].discard(c)
-        cols[c].discard(r)
-        return Y.pop((r, c))
-
-    e, o, sigma = (b, a, -1.0) if b is not None else (a, None, 1.0)
-    c_e = -1.0 if e == b else 1.0  # the current's coefficient in row e (branch_kcl: +1 at a, -1 at b)
-    r_p = R[:, p].copy()
-    for r in list(cols.get(e, ())):  # v_e = v_o + sigma r_p in every row
-        y = take(r, e)
-        if o is not None:
-            put(r, o, y)
-        R[:, r] -= np.reshape(y, (-1, 1)) * (sigma * r_p)
-    for c in list(rows.get(p, ())):
-        take(p, c)
-    row_e = {c: take(e, c) for c in list(rows.get(e, ()))}
-    row_e.pop(p, None)
-    r_e = R[:, e].copy()
-    if o is not None:
-        if (o, p) in Y:
-            take(o, p)
-        for c, y in row_e.items():
-            put(o, c, y)
-        R[:, o] += r_e
-    R[:, e] = 0.0
-    R[:, p] = 0.0
-    return p, e, o, sigma, r_p, c_e, row_e, r_e
-
-
-def _eliminate(Y: dict, adj: list | None, i: int, nbr: tuple, done: list) -> bool:
-    """Eliminate node ``i`` (neighbours ``nbr``) from the entries ``Y``, if its pivot passes the test."""
-    piv = Y[(i, i)]
-    row = [Y.get((i, j), 0.0) for j in nbr]
-    col = [Y.get((j, i), 0.0) for j in nbr]
-    apiv = np.abs(piv)
-    coupling = apiv
-    if nbr:
-        coupling = np.abs(row[0]) if len(nbr) == 1 else np.maximum(np.abs(row[0]), np.abs(row[1]))
-    if np.any(apiv < CONDENSE_PIVOT_MIN * coupling):
-        return False
-    for q, j in enumerate(nbr):
-        f = col[q] / piv
-        for r, k in enumerate(nbr):
-            Y[(j, k)] = Y.get((j, k), 0.0) - f * row[r]
-    del Y[(i, i)]
-    for j in nbr:
-        Y.pop((i, j), None)
-        Y.pop((j, i), None)
-    if adj is not None:  # the couplings, kept while an order is being searched for
-        for j in nbr:
-            adj[j].discard(i)
-            adj[j].update(x for x in nbr if x != j)
-        adj[i] = set()
-    done.append((i, nbr, row, piv))
-    return True
-
-
-def _search_order(Y: dict, adj: list, alive: np.ndarray, free: np.ndarray, nn: int, done: list) -> None:
-    """Eliminate, pass after pass, every free node coupled to at most two other live nodes
-    (all of them nodes) whose pivot passes the test, until none is left."""
-    changed = True
-    while changed:
-        changed = False
-        for i in range(nn):
-            if not (alive[i] and free[i]) or len(adj[i]) > 2:
-                continue
-            nbr = tuple(sorted(adj[i]))
-            if any(j >= nn for j in nbr) or not _eliminate(Y, adj, i, nbr, done):
-                continue
-            alive[i] = False
-            changed = True
 
 
 def _network(cards: list[Card], device: str | set[str], period_s: float, blocks: dict | None = None, *,
@@ -694,7 +499,7 @@ def _device(cards: list[Card], models: dict, period_s: float, points: int):
     changes), the period and the grid. The Device is not changed after it is read."""
     key = (tuple(c.text for c in cards if c.name[0] not in "RLCT" or c.text.startswith(".")), period_s, points)
     dev = _DEVICES.get(key)
-    return dev if dev is not None else _remember(_DEVICES, key, read_device(cards, models, period_s, points),
+    return dev if dev is not None else remember(_DEVICES, key, read_device(cards, models, period_s, points),
                                                  _DEVICES_MAX)
 
 
