@@ -336,19 +336,13 @@ def _network(cards: list[Card], device: str | set[str], period_s: float, blocks:
     adj: dict[str, set[str]] = {}
 
     def terminals(c: Card) -> list[str]:
-        t = [x.lower() for x in c.tokens]
-        if c.name[0] == "T":
-            return t[1:5]
-        if c.name[0] in "EG":
-            return t[1:5]
-        if c.name[0] == "X":
-            return t[1:-1]
-        return t[1:3]
+        t = c.tokens
+        kind = c.name[0]
+        t = t[1:5] if kind in "TEG" else t[1:-1] if kind == "X" else t[1:3]
+        return [x.lower() for x in t]
 
-    for c in elements:
-        if c.name in device:
-            continue
-        ns = [x for x in terminals(c) if x not in GROUND]
+    linear = [(c, [x for x in terminals(c) if x not in GROUND]) for c in elements if c.name not in device]
+    for _, ns in linear:
         for x in ns:
             adj.setdefault(x, set()).update(ns)
     seen: set[str] = set()
@@ -359,7 +353,7 @@ def _network(cards: list[Card], device: str | set[str], period_s: float, blocks:
             continue
         seen.add(x)
         stack.extend(adj.get(x, ()))
-    mine = [c for c in elements if c.name not in device and any(x in seen for x in terminals(c))]
+    mine = [c for c, ns in linear if any(x in seen for x in ns)]
     branches: dict[str, int] = {}
     widths: dict[str, int] = {}
     sources: dict[str, SourceWaveform] = {}

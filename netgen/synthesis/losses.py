@@ -191,11 +191,12 @@ def z_loss_net(net: LossNet, w) -> np.ndarray:
         z = z + 1j * w * net.main
     elif net.kind == "C":
         z = z + 1.0 / (1j * w * net.main)
-    for r, x in net.sections:
-        if net.kind == "C":
-            z = z + r / (1.0 + 1j * w * r * x)
-        else:
-            z = z + 1j * w * x * r / (r + 1j * w * x)
+    if net.sections:  # every section at once, summed in order (bit for bit the one-by-one sum)
+        r, x = np.array(net.sections, dtype=float).T
+        jw = 1j * w[..., None]
+        terms = r / (1.0 + jw * r * x) if net.kind == "C" else jw * x * r / (r + jw * x)
+        for k in range(len(r)):
+            z = z + terms[..., k]
     return z
 
 
