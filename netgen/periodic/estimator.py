@@ -111,6 +111,14 @@ class _Net:
             v = self._values[c.name] = spice_value(t[3].split("=")[-1] if c.name[0] == "R" else t[3], c.name)
         return v
 
+    def line(self, c: Card) -> tuple[float, float]:
+        """(Z0 ohm, TD s) of a T card (read once per network)."""
+        v = self._values.get(c.name)
+        if v is None:
+            pars = card_params(c.tokens[5:])
+            v = self._values[c.name] = (spice_value(pars["Z0"], c.name), spice_value(pars["TD"], c.name))
+        return v
+
     def folded_columns(self) -> dict[str, int]:
         """Branch name -> first column in the system without inductor branches (``fold_inductors``)."""
         cols, at = {}, len(self.nodes)
@@ -160,92 +168,107 @@ class _Net:
         n = self.size - (sum(1 for k in self.branches if k[0] == "L") if fold_inductors else 0)
         st = Stamps((self.structure, fold_inductors, n))
         put, term, one = st.put, st.term, st.one
+        place = st.where is not None  # a new structure: where the terms go is recorded (else known)
         gmin = term(TERM_CONST, 1e-12)  # on every node, as in SPICE
-        for i in range(nn):
+        for i in range(nn if place else 0):
             put(i, i, gmin)
         b = np.zeros((K, n), complex)
         grid = t0_s + np.arange(points) * (period_s / points)
+        node = self.node
 
         def spectrum(src: SourceWaveform) -> np.ndarray:
             return np.fft.rfft(src.value(grid))[first_bin:first_bin + K]
 
-        def conductance(a, bb, y):
-            ia, ib = self.node(a), self.node(bb)
+        def conductance(t, y):
+            ia, ib = node(t[1].lower()), node(t[2].lower())
             put(ia, ia, y)
             put(ib, ib, y)
             put(ia, ib, y, -1.0)
             put(ib, ia, y, -1.0)
 
         def branch_kcl(a, bb, col):
-            put(self.node(a), col, one)
-            put(self.node(bb), col, one, -1.0)
+            put(node(a.lower()), col, one)
+            put(node(bb.lower()), col, one, -1.0)
 
         def vdiff(row, a, bb, coef):
-            put(row, self.node(a), coef)
-            put(row, self.node(bb), coef, -1.0)
+            put(row, node(a.lower()), coef)
+            put(row, node(bb.lower()), coef, -1.0)
 
         for c in self.cards:
-            t = c.tokens
             kind = c.name[0]
-            a, bb = t[1].lower(), t[2].lower()
+            # each stamp: its terms (every time), then where they go (a new structure only)
             if kind == "R":
-                conductance(a, bb, term(TERM_CONST, 1.0 / self.value(c)))
+                y = term(TERM_CONST, 1.0 / self.value(c))
+                if place:
+                    conductance(c.tokens, y)
             elif kind == "C":
-                conductance(a, bb, term(TERM_TIMES_S, self.value(c)))
+                y = term(TERM_TIMES_S, self.value(c))
+                if place:
+                    conductance(c.tokens, y)
             elif kind == "L" and fold_inductors:
-                conductance(a, bb, term(TERM_OVER_S, 1.0 / self.value(c)))
+                y = term(TERM_OVER_S, 1.0 / self.value(c))
+                if place:
+                    conductance(c.tokens, y)
             elif kind == "L":
-                p = cols[c.name]
-                branch_kcl(a, bb, p)
-                vdiff(p, a, bb, one)
-                put(p, p, term(TERM_TIMES_S, -self.value(c)))
+                y = term(TERM_TIMES_S, -self.value(c))
+                if place:
+                    t, p = c.tokens, cols[c.name]
+                    branch_kcl(t[1], t[2], p)
+                    vdiff(p, t[1], t[2], one)
+                    put(p, p, y)
             elif kind == "V":
                 p = cols[c.name]
-                branch_kcl(a, bb, p)
-                vdiff(p, a, bb, one)
                 b[:, p] += spectrum(self.sources[c.name])
+                if place:
+                    t = c.tokens
+                    branch_kcl(t[1], t[2], p)
+                    vdiff(p, t[1], t[2], one)
             elif kind == "I":
+                t = c.tokens
                 spec = spectrum(self.sources[c.name])
-                ia, ib = self.node(a), self.node(bb)
+                ia, ib = node(t[1].lower()), node(t[2].lower())
                 if ia is not None:
                     b[:, ia] -= spec
                 if ib is not None:
                     b[:, ib] += spec
             elif kind == "G":
+                t = c.tokens
                 gm = term(TERM_CONST, spice_value(t[5], c.name))
-                ca, cb = self.node(t[3].lower()), self.node(t[4].lower())
-                for r, sign in ((self.node(a), 1.0), (self.node(bb), -1.0)):
-                    put(r, ca, gm, sign)
-                    put(r, cb, gm, -sign)
+                if place:
+                    ca, cb = node(t[3].lower()), node(t[4].lower())
+                    for r, sign in ((node(t[1].lower()), 1.0), (node(t[2].lower()), -1.0)):
+                        put(r, ca, gm, sign)
+                        put(r, cb, gm, -sign)
             elif kind == "E":
-                p = cols[c.name]
-                branch_kcl(a, bb, p)
-                vdiff(p, a, bb, one)
-                vdiff(p, t[3].lower(), t[4].lower(), term(TERM_CONST, -spice_value(t[5], c.name)))
+                t, p = c.tokens, cols[c.name]
+                gain = term(TERM_CONST, -spice_value(t[5], c.name))
+                if place:
+                    branch_kcl(t[1], t[2], p)
+                    vdiff(p, t[1], t[2], one)
+                    vdiff(p, t[3], t[4], gain)
             elif kind == "X":
-                self._stamp_block(c, s, st, branch_kcl, vdiff, cols[c.name])
+                self._stamp_block(c, s, st, branch_kcl, vdiff, cols[c.name], place)
             elif kind == "T":
-                pars = card_params(t[5:])
-                z0 = spice_value(pars["Z0"], c.name)
-                d = np.exp(-1j * theta * (spice_value(pars["TD"], c.name) / period_s) * points)
-                n3, n4 = t[3].lower(), t[4].lower()
-                p1 = cols[c.name]
-                p2 = p1 + 1
-                branch_kcl(a, bb, p1)
-                branch_kcl(n3, n4, p2)
+                z0, td = self.line(c)
+                d = np.exp(-1j * theta * (td / period_s) * points)
                 # Branin: (v1 - Z0 i1) - d (v2 + Z0 i2) = 0 and the converse (i into the port)
                 mz0, md, mdz0 = term(TERM_CONST, -z0), term(TERM_BINS, -d), term(TERM_BINS, -d * z0)
-                vdiff(p1, a, bb, one)
-                put(p1, p1, mz0)
-                vdiff(p1, n3, n4, md)
-                put(p1, p2, mdz0)
-                vdiff(p2, n3, n4, one)
-                put(p2, p2, mz0)
-                vdiff(p2, a, bb, md)
-                put(p2, p1, mdz0)
+                if place:
+                    t, p1 = c.tokens, cols[c.name]
+                    p2 = p1 + 1
+                    branch_kcl(t[1], t[2], p1)
+                    branch_kcl(t[3], t[4], p2)
+                    vdiff(p1, t[1], t[2], one)
+                    put(p1, p1, mz0)
+                    vdiff(p1, t[3], t[4], md)
+                    put(p1, p2, mdz0)
+                    vdiff(p2, t[3], t[4], one)
+                    put(p2, p2, mz0)
+                    vdiff(p2, t[1], t[2], md)
+                    put(p2, p1, mdz0)
         return st.entries(s), b
 
-    def _stamp_block(self, c: Card, s, st: Stamps, branch_kcl, vdiff, p0: int) -> None:
+    def _stamp_block(self, c: Card, s, st: Stamps, branch_kcl, vdiff, p0: int, place: bool) -> None:
         """A Touchstone block's scattering relation per bin, one current unknown per port.
 
         With a = (v + z0 i)/(2 sqrt z0), b = (v - z0 i)/(2 sqrt z0) at each port (i into the
@@ -256,18 +279,22 @@ class _Net:
         """
         t = c.tokens
         blk = self.blocks[t[-1].upper()]
-        ports = [x.lower() for x in t[1:-1]]
+        ports = t[1:-1]
         S = blk.s_bins(s.imag / (2 * math.pi))
         rz = np.sqrt(np.asarray(blk.z0_ohm, dtype=float))
-        for p, node in enumerate(ports):
+        for p, node in enumerate(ports if place else ()):
             branch_kcl(node, "0", p0 + p)
         for p, node in enumerate(ports):
             row = p0 + p
-            vdiff(row, node, "0", st.term(TERM_CONST, 1.0 / rz[p]))
-            st.put(row, p0 + p, st.term(TERM_CONST, -rz[p]))
+            inv, neg = st.term(TERM_CONST, 1.0 / rz[p]), st.term(TERM_CONST, -rz[p])
+            if place:
+                vdiff(row, node, "0", inv)
+                st.put(row, p0 + p, neg)
             for q, other in enumerate(ports):
-                vdiff(row, other, "0", st.term(TERM_BINS, -S[:, p, q] / rz[q]))
-                st.put(row, p0 + q, st.term(TERM_BINS, -S[:, p, q] * rz[q]))
+                sv, si = st.term(TERM_BINS, -S[:, p, q] / rz[q]), st.term(TERM_BINS, -S[:, p, q] * rz[q])
+                if place:
+                    vdiff(row, other, "0", sv)
+                    st.put(row, p0 + q, si)
 
 
 def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M: int, t0_s: float,
