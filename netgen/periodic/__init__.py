@@ -19,6 +19,7 @@ from .pwl_fourier import fourier  # noqa: F401
 #: the package costs nothing and pulls in no heavy dependency)
 _EXPORTS = {
     "PeriodicState": "estimator",
+    "blas_single_thread": "collocation",
     "dc_initial_conditions": "bias_nulling",
     "estimate": "estimator",
     "fourier": "pwl_fourier",

@@ -82,6 +82,8 @@ class NonlinearElement:
 
 #: threadpoolctl's controller, made on first use (False: threadpoolctl is not installed)
 _BLAS_CONTROLLER = None
+#: blas_single_thread blocks open in this thread of control (an inner one costs nothing)
+_BLAS_DEPTH = 0
 
 
 @contextmanager
@@ -92,7 +94,8 @@ def blas_single_thread():
     BLAS on a loaded machine each factorisation waits for its second thread's time slice:
     measured with 2 cores shared by other jobs, 20 LU factorisations of 150 unknowns took 2.9 s
     with OpenBLAS's 2 threads and 0.027 s with one. The controller (which scans the loaded
-    libraries, ~4 ms) is made once per process.
+    libraries, ~4 ms) is made once per process; a block inside another is free (a study wraps its
+    points in one, netgen.studies.execute).
     """
     global _BLAS_CONTROLLER
     if _BLAS_CONTROLLER is None:
@@ -102,11 +105,16 @@ def blas_single_thread():
             _BLAS_CONTROLLER = False
         else:
             _BLAS_CONTROLLER = ThreadpoolController()
-    if _BLAS_CONTROLLER is False:  # pragma: no cover
+    global _BLAS_DEPTH
+    if _BLAS_CONTROLLER is False or _BLAS_DEPTH:  # no threadpoolctl, or inside such a block already
         yield
         return
     with _BLAS_CONTROLLER.limit(limits=1, user_api="blas"):
-        yield
+        _BLAS_DEPTH += 1
+        try:
+            yield
+        finally:
+            _BLAS_DEPTH -= 1
 
 
 def xmu_of(cards: list[Card]) -> float:

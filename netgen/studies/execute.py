@@ -33,6 +33,7 @@ import numpy as np
 
 from netgen.design import COMPONENT_UNITS, design_from_dict, set_dotted
 from netgen.errors import DesignError, NetgenError, OutputError, SimulatorCrashError
+from netgen.periodic import blas_single_thread
 
 from .grammar import format_value
 from .plan import Evaluator, ProgressFn, SweepPlan, tolerance_key_value
@@ -391,8 +392,9 @@ def run_sweep(
     else:
         n = max(1, int(workers or os.cpu_count() or 1))
         if n == 1:  # in this process: no pool to start (the engine still runs ngspice in its own process)
-            while (idx := co.next_index()) is not None:
-                co.finish(run_point(*task(idx)))
+            with blas_single_thread():  # the estimate's small solves, limited once for all points
+                while (idx := co.next_index()) is not None:
+                    co.finish(run_point(*task(idx)))
         else:
             _run_local(n, co)
     return {**co.counts, "lost_left": co.lost_now()}
@@ -430,7 +432,8 @@ def _pool_point(*args) -> dict:  # pragma: no cover - runs in the pool worker
 
 def _pool_points(tasks: list[tuple]) -> list[dict]:  # pragma: no cover - runs in the pool worker
     """:func:`_pool_point` for each of a batch of points (one round trip to the worker for all)."""
-    return [_pool_point(*args) for args in tasks]
+    with blas_single_thread():
+        return [_pool_point(*args) for args in tasks]
 
 
 #: work a batch of points sent to a pool worker is sized for, s (short points travel in batches:

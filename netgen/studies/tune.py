@@ -278,6 +278,8 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     """
     from scipy.optimize import differential_evolution, minimize
 
+    from netgen.periodic import blas_single_thread
+
     if not free:
         raise DesignError("nothing to tune; give at least one --free PATH=LOW:HIGH.")
     if not goals:
@@ -320,12 +322,13 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     u0 = np.array([f.coordinate(x) for f, x in zip(free, x0)])
     init = np.random.default_rng(seed).uniform(size=(pop * d, d))
     init[0] = u0
-    de = differential_evolution(fu, [(0.0, 1.0)] * d, args=("global",), popsize=pop, maxiter=gens, init=init,
-                                seed=seed, polish=False, tol=1e-8, mutation=(0.5, 1.0), recombination=0.9)
-    left = max(10, budget - len(history))
-    local = minimize(fu, de.x, args=("polish",), method="Nelder-Mead", bounds=[(0.0, 1.0)] * d,
-                     options={"maxfev": left, "xatol": 1e-6, "fatol": 1e-9,
-                              "initial_simplex": _simplex(de.x, 0.05)})
+    with blas_single_thread():  # the estimate's small solves, limited once for the whole search
+        de = differential_evolution(fu, [(0.0, 1.0)] * d, args=("global",), popsize=pop, maxiter=gens, init=init,
+                                    seed=seed, polish=False, tol=1e-8, mutation=(0.5, 1.0), recombination=0.9)
+        left = max(10, budget - len(history))
+        local = minimize(fu, de.x, args=("polish",), method="Nelder-Mead", bounds=[(0.0, 1.0)] * d,
+                         options={"maxfev": left, "xatol": 1e-6, "fatol": 1e-9,
+                                  "initial_simplex": _simplex(de.x, 0.05)})
     u_best = local.x if local.fun <= de.fun else de.x
     x = [f.value(ui) for f, ui in zip(free, u_best)]
     j = run(x, "final")
