@@ -146,12 +146,12 @@ def _comp_ctx(sized: SizedDesign) -> dict:
     return out
 
 
-def _header_lines(sized: SizedDesign, mode: str, dialect: str) -> list[str]:
+def _header_lines(sized: SizedDesign, mode: str, dialect: str, digest: str) -> list[str]:
     d = sized.design
     lines = [
         f"pashape {__version__} netlist: design {d.name}, topology {d.topology if d.template_path is None else Path(d.topology).name}, mode {mode}, dialect {dialect}",
         f"f0 = {_fmt(d.f0_hz)} Hz, Vdd = {_fmt(d.vdd_v)} V, RL = {_fmt(d.load_ohm)} ohm, load_x = {_fmt(d.load_x_ohm)} ohm, device {d.device.model}",
-        f"Ropt = {_fmt(sized.ropt_ohm)} ohm; sized-design digest {sized.digest()}",
+        f"Ropt = {_fmt(sized.ropt_ohm)} ohm; sized-design digest {digest}",
         "components (name = value unit: how):",
     ]
     for c in sized.components.values():
@@ -180,6 +180,7 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
     tstop = float(tstop_s) if tstop_s is not None else d.sim.max_cycles * period
     if not (tstop > 0 and math.isfinite(tstop)):
         raise RenderError(f"tstop_s: {tstop_s!r} is not a positive finite time; give the simulated time in seconds.")
+    digest = sized.digest()  # the header's and the context's
     if ac_freqs_hz is None:
         h = d.sim.harmonics
         ac = (AC_POINTS_PER_F0 * h, d.f0_hz / AC_POINTS_PER_F0, h * d.f0_hz)
@@ -268,10 +269,10 @@ def template_context(sized: SizedDesign, mode: str = "tran", dialect: str = "ngs
         "ss_ports": {"port1": 1.0 if ss_port == 1 else 0.0, "port2": 1.0 if ss_port == 2 else 0.0},
         "comp_branches": comp_branches(sized),
         "idc_a": float(idc_a) if idc_a is not None else sized.idc_est_a,
-        "header_lines": _header_lines(sized, mode, dialect),
+        "header_lines": _header_lines(sized, mode, dialect, digest),
         "ropt_ohm": sized.ropt_ohm,
         "version": __version__,
-        "digest": sized.digest(),
+        "digest": digest,
     }
 
 

@@ -319,12 +319,29 @@ def _loss_budget(win: _Window, design, netlist_text: str, load_harmonics_w: floa
     isw = win.i.get("switch", win.i["drain"])
     losses = device_loss_split(vd, isw, float(design.vdd_v), model=dev.model, ron_ohm=dev.ron_ohm,
                                roff_ohm=dev.roff_ohm, t_s=win.t)
-    for name, a, b, r in _loss_elements(netlist_text):
-        dv = win.node(a, name) - win.node(b, name)
+    elements = _loss_elements(netlist_text)
+    powers: list[float] = []
+    if win.exact:
+        for name, a, b, r in elements:
+            dv = win.node(a, name) - win.node(b, name)
+            powers.append(win.mean_product(dv, dv) / r)
+    elif elements:  # a uniform grid: every resistor's mean of dv^2 in one step (row means, as fast_mean)
+        at: dict[str, int] = {}
+        rows = []
+        for name, a, b, _ in elements:
+            for x in (a, b):
+                if x not in at:
+                    at[x] = len(rows)
+                    rows.append(win.node(x, name))
+        V = np.stack(rows)
+        dv = V[[at[a] for _, a, _, _ in elements]] - V[[at[b] for _, _, b, _ in elements]]
+        sq = np.add.reduce(dv * dv, axis=1) / dv.shape[1]
+        powers = [float(p) / r for p, (_, _, _, r) in zip(sq, elements)]
+    for (name, _, _, _), p in zip(elements, powers):
         key = name[6:] if name.upper().startswith("RLOSS_") else name
         # the sections of a frequency-law ladder (RLOSS_<part>__s<k>, docs/losses.md) add to their part
         key = key.split("__", 1)[0]
-        losses[key] = losses.get(key, 0.0) + win.mean_product(dv, dv) / r
+        losses[key] = losses.get(key, 0.0) + p
     losses["load_harmonics"] = load_harmonics_w  # load power outside the fundamental (n >= 2, DC)
     return losses
 
