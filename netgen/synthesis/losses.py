@@ -168,16 +168,19 @@ def line_r_law_ohm(sized: SizedDesign, base: str, f_hz) -> np.ndarray:
     lines passes |S21| = 1/(1 + R/(2 Z0)) (Pozar, ABCD -> S conversion), so each of the k-1
     resistors is ``R = 2 Z0 (10^(dB/(20 (k-1))) - 1)``.
     """
-    f = np.atleast_1d(np.asarray(f_hz, dtype=float))
     net = sized.design.network
-    db0 = net.line_loss_db
-    x = f / sized.design.f0_hz
-    if net.line_loss_law == "fixed":
+    return _line_r_law(sized.value(f"{base}_z0"), float(sized.design.f0_hz), float(net.line_loss_db),
+                       net.line_loss_law, float(net.line_dielectric_share), f_hz)
+
+
+def _line_r_law(z0: float, f0_hz: float, db0: float, law: str, share: float, f_hz) -> np.ndarray:
+    """:func:`line_r_law_ohm` from the numbers it depends on."""
+    f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+    x = f / f0_hz
+    if law == "fixed":
         db = np.full_like(x, db0)
     else:
-        s = net.line_dielectric_share
-        db = db0 * ((1.0 - s) * np.sqrt(x) + s * x)
-    z0 = sized.value(f"{base}_z0")
+        db = db0 * ((1.0 - share) * np.sqrt(x) + share * x)
     return 2.0 * z0 * (10 ** (db / (20.0 * (LINE_SEGMENTS_LOSSY - 1))) - 1.0)
 
 
@@ -285,20 +288,19 @@ def loss_net(sized: SizedDesign, name: str) -> LossNet:
 
 def line_loss_net(sized: SizedDesign, base: str) -> LossNet:
     """Each series loss element of lossy line ``base`` (kind ``R``): a resistor, or its ladder."""
-    f0 = sized.design.f0_hz
-    r_f0 = float(line_r_law_ohm(sized, base, f0)[0])
     net = sized.design.network
-    if r_f0 <= 0 or net.line_loss_law == "fixed":
+    return _line_loss_net(sized.value(f"{base}_z0"), float(sized.design.f0_hz), float(net.line_loss_db),
+                          net.line_loss_law, float(net.line_dielectric_share), fit_harmonics(sized))
+
+
+@functools.lru_cache(maxsize=256)
+def _line_loss_net(z0: float, f0_hz: float, db0: float, law: str, share: float, n_max: int) -> LossNet:
+    """:func:`line_loss_net` from the numbers it depends on (a sweep's points share a line)."""
+    r_f0 = float(_line_r_law(z0, f0_hz, db0, law, share, f0_hz)[0])
+    if r_f0 <= 0 or law == "fixed":
         return LossNet("R", 0.0, max(r_f0, 0.0))
-    return _fit_line(sized, base, r_f0)
-
-
-def _fit_line(sized: SizedDesign, base: str, r_f0: float) -> LossNet:
-    n_max = fit_harmonics(sized)
-    f0 = sized.design.f0_hz
-    n = np.arange(1, n_max + 1, dtype=float)
-    r_t = line_r_law_ohm(sized, base, n * f0)
-    return _fit_line_cached(tuple(float(v) for v in r_t), float(f0))
+    r_t = _line_r_law(z0, f0_hz, db0, law, share, np.arange(1, n_max + 1, dtype=float) * f0_hz)
+    return _fit_line_cached(tuple(float(v) for v in r_t), f0_hz)
 
 
 @functools.lru_cache(maxsize=1024)
