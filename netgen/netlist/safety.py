@@ -87,26 +87,28 @@ def _scan(text: str, where: str, error, *, model: bool, title: bool) -> list[tup
     what = "a model file" if model else "a netlist"
     targets: list[tuple[int, str]] = []
     for number, line in enumerate(_lines(text), start=1):
-        at = f"{where} line {number}"
-        if _CONTROL.match(line):
-            word = _CONTROL.match(line).group(1)
-            raise error(f"{at}: '{word[:12]}' starts an ngspice control command, which could run shell "
-                        f"commands; pashape sends every simulator command itself, so remove the line.")
+        control = _CONTROL.match(line)
+        if control:
+            word = control.group(1)
+            raise error(f"{where} line {number}: '{word[:12]}' starts an ngspice control command, which could run "
+                        f"shell commands; pashape sends every simulator command itself, so remove the line.")
         body = line.strip()
-        if not body or body.startswith("*"):
+        if not body or body[0] == "*":
             continue  # a comment (a '*#' one was refused above)
         bad = _bad_char(line)
         if bad:
-            raise error(f"{at}: the character {bad} is not allowed in {what}; save it as plain text.")
+            raise error(f"{where} line {number}: the character {bad} is not allowed in {what}; save it as plain text.")
         if "`" in body:
-            raise error(f"{at}: a backquote is not allowed in {what} (ngspice runs backquoted text as a "
-                        "shell command in control lines); remove it.")
+            raise error(f"{where} line {number}: a backquote is not allowed in {what} (ngspice runs backquoted text "
+                        "as a shell command in control lines); remove it.")
         if title and number == 1:
             continue  # the title line: ngspice does not parse it
-        if body.startswith("+"):
+        if body[0] == "+":
             continue  # a continuation of the previous card
-        word = _first_word(body).lower()
-        if body.startswith("."):
+        first = _first_word(body)
+        if body[0] == ".":
+            word = first.lower()
+            at = f"{where} line {number}"
             if word in _INCLUDE_CARDS and not model:
                 target = _include_target(body[len(word):])
                 if not target:
@@ -121,8 +123,8 @@ def _scan(text: str, where: str, error, *, model: bool, title: bool) -> list[tup
                         else "only analyses, options, models, subcircuits and .include")
                 raise error(f"{at}: '{word[:20]}' is not allowed in {what} ({hint}); remove it.")
             continue
-        if not _ELEMENT.match(_first_word(body)):
-            raise error(f"{at}: '{_first_word(body)[:20]}' is neither an element card nor a dot card, so this "
+        if not _ELEMENT.match(first):
+            raise error(f"{where} line {number}: '{first[:20]}' is neither an element card nor a dot card, so this "
                         f"is not {what}; check the file.")
     return targets
 

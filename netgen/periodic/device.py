@@ -331,7 +331,7 @@ def _solve_on_interval(kernel: np.ndarray, act: np.ndarray, r: np.ndarray, rhs: 
     M = len(kernel)
     n = act.size
     contiguous = (n > TOEPLITZ_FROM and act[-1] - act[0] == n - 1
-                  and np.allclose(r[:-1], r[0], rtol=1e-12, atol=0.0))
+                  and bool(np.all(np.abs(r[:-1] - r[0]) <= 1e-12 * abs(r[0]))))  # np.allclose(rtol=1e-12, atol=0)
     if contiguous:
         from scipy.linalg import solve_toeplitz
 
