@@ -76,7 +76,29 @@ def _make_environment(cls):
         keep_trailing_newline=True,
     )
     env.filters["n"] = _fmt  # our own filter: not wrapped in the sandbox (it only formats one number)
+    env.globals["loss_chain_cards"] = loss_chain_cards
     return env
+
+
+def loss_chain_cards(c: dict, b: str) -> str:
+    """The cards of part ``c``'s loss from its internal node ``x_<name>`` to node ``b`` (the
+    template context's component entry): ``RLOSS_<name>`` (R0), then the ladder sections
+    ``RLOSS_<name>__s<k>`` || ``LLAD_/CLAD_<name>__s<k>`` of a frequency law (docs/losses.md), one
+    card a line. The body of devices.j2's ``_loss_chain`` (a loop of a few cards a part, which
+    Jinja's macro machinery made the slowest part of rendering)."""
+    name, sections = c["name"], c["sections"]
+    node = f"x_{name}"
+    out = []
+    if c["r0"] > 0:
+        nxt = f"x_{name}__0" if sections else b
+        out.append(f"RLOSS_{name} {node} {nxt} {_fmt(c['r0'])}")
+        node = nxt
+    for k, (r, x) in enumerate(sections, start=1):
+        nxt = b if k == len(sections) else f"x_{name}__{k}"
+        out.append(f"RLOSS_{name}__s{k} {node} {nxt} {_fmt(r)}")
+        out.append(f"{c['kind']}LAD_{name}__s{k} {node} {nxt} {_fmt(x)}")
+        node = nxt
+    return "\n".join(out)
 
 
 @functools.lru_cache(maxsize=1)
@@ -564,11 +586,11 @@ def _finish(text: str, mode: str, block_text: str = "") -> str:
     if block_text:
         lines += block_text.splitlines()
     if mode == "tran":
-        nodes = []
+        nodes = {}  # in order of first appearance
         for _, a, b, _r in loss_elements("\n".join(lines)):
             for node in (a, b):
-                if node != "0" and node not in nodes:
-                    nodes.append(node)
+                if node != "0":
+                    nodes.setdefault(node, None)
         if nodes:
             lines.append(".save " + " ".join(f"v({n})" for n in nodes))
     lines.append(".end")
