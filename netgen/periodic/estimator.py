@@ -420,6 +420,53 @@ def _network(cards: list[Card], device: str | set[str], period_s: float, blocks:
     return _Net(mine, sorted(seen), branches, sources, widths, blocks), seen
 
 
+@dataclass(frozen=True)
+class _Collection:
+    """What the periodic state takes from a network besides its node voltages (see _collection)."""
+
+    series: tuple  # (series key, column) of every branch current, in card order
+    dc: tuple  # (dc key, column) of the one-branch elements' currents
+    lines: tuple  # (card position, element, nodes) of every line
+    elements: dict  # element -> (kind, nodes) of every L, C and T
+    blocks: tuple  # (element, subcircuit, port nodes) of every Touchstone block
+
+
+#: collections by network structure (a sweep's points share one)
+_COLLECTIONS: dict = {}
+_COLLECTIONS_MAX = 32
+
+
+def _collection(net: _Net) -> _Collection:
+    """Which unknowns become which series of the periodic state, and the network's elements: the
+    same for every network of one structure, so worked out once for it."""
+    key = (net.structure, tuple(net.nodes))
+    got = _COLLECTIONS.get(key)
+    if got is not None:
+        return got
+    nn = len(net.nodes)
+    series, dc, lines, elements, blocks = [], [], [], {}, []
+    for pos, c in enumerate(net.cards):
+        kind = c.name[0]
+        if kind not in "LCT" and c.name not in net.branches:
+            continue  # a resistor or a source without a branch: nothing to collect
+        toks = [x.lower() for x in c.tokens]
+        if c.name in net.branches:
+            col = nn + net.branches[c.name]
+            if kind == "X":
+                blocks.append((c.tokens[0], c.tokens[-1].upper(), tuple(toks[1:-1])))
+                series += [(f"{toks[0]}#p{q + 1}", col + q) for q in range(net.widths[c.name])]
+            elif kind == "T":
+                series += [(f"{toks[0]}#1", col), (f"{toks[0]}#2", col + 1)]
+                lines.append((pos, c.tokens[0], tuple(toks[1:5])))
+            else:
+                series.append((f"{toks[0]}#branch", col))
+                dc.append((f"{toks[0]}#branch", col))
+        if kind in "LCT":
+            elements[c.tokens[0]] = (kind, tuple(toks[1:5] if kind == "T" else toks[1:3]))
+    return remember(_COLLECTIONS, key, _Collection(tuple(series), tuple(dc), tuple(lines), elements, tuple(blocks)),
+                    _COLLECTIONS_MAX)
+
+
 # ---------------------------------------------------------------- the periodic state
 
 @dataclass(frozen=True)
@@ -623,36 +670,18 @@ def _estimate(netlist: str, f0_hz: float, points: int, *, cap: bool, blocks: dic
         x_all = np.fft.irfft(x_src + x_draw * spec[:, None], M, axis=0)  # (M, n)
     if not np.all(np.isfinite(x_all)):
         raise Unsupported("the periodic solution is not finite")
-    series: dict[str, np.ndarray] = {}
-    dc: dict[str, tuple[float, float]] = {}
     nn = len(net.nodes)
-    for name, i in net.index.items():
-        series[name] = x_all[:, i]
-        dc[name] = (float(x_src[0, i].real) / M, float(x_draw[0, i].real))
-    lines = {}
-    elements = {}
-    inst = {}
-    for c in net.cards:
-        kind = c.name[0]
-        if kind not in "LCT" and c.name not in net.branches:
-            continue  # a resistor or a source without a branch: nothing to collect
-        toks = [x.lower() for x in c.tokens]
-        if c.name in net.branches:
-            col = nn + net.branches[c.name]
-            if kind == "X":
-                inst[c.tokens[0]] = (net.blocks[c.tokens[-1].upper()], tuple(toks[1:-1]))
-                for q in range(net.widths[c.name]):
-                    series[f"{toks[0]}#p{q + 1}"] = x_all[:, col + q]
-            elif kind == "T":
-                series[f"{toks[0]}#1"] = x_all[:, col]
-                series[f"{toks[0]}#2"] = x_all[:, col + 1]
-                pars = card_params(c.tokens[5:])
-                lines[c.tokens[0]] = (spice_value(pars["Z0"], c.name), spice_value(pars["TD"], c.name), tuple(toks[1:5]))
-            else:
-                series[f"{toks[0]}#branch"] = x_all[:, col]
-                dc[f"{toks[0]}#branch"] = (float(x_src[0, col].real) / M, float(x_draw[0, col].real))
-        if kind in "LCT":
-            elements[c.tokens[0]] = (kind, tuple(toks[1:5] if kind == "T" else toks[1:3]))
+    series: dict[str, np.ndarray] = dict(zip(net.nodes, x_all.T[:nn]))
+    dc: dict[str, tuple[float, float]] = dict(zip(net.nodes, zip((x_src[0, :nn].real / M).tolist(),
+                                                                x_draw[0, :nn].real.tolist())))
+    collect = _collection(net)
+    for key, col in collect.series:
+        series[key] = x_all[:, col]
+    for key, col in collect.dc:
+        dc[key] = (float(x_src[0, col].real) / M, float(x_draw[0, col].real))
+    lines = {name: (*net.line(net.cards[pos]), nodes) for pos, name, nodes in collect.lines}
+    elements = dict(collect.elements)
+    inst = {name: (net.blocks[subckt], nodes) for name, subckt, nodes in collect.blocks}
     for e in nonlin if ports else ():
         if e.kind == "D" and e.charge is not None:  # junction voltage at t = 0 (IC= of the diode)
             elements[e.name] = ("D", (e.a, e.b))
