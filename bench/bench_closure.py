@@ -1,6 +1,6 @@
 """Design closure at estimate speed: fast path vs full transient, a 10 000-point Monte Carlo, tuning.
 
-    python bench/bench_closure.py            # about 5 minutes on 2 cores; adds "closure" to bench/results.json
+    python bench/bench_closure.py            # about 6 minutes on 2 cores; adds "closure" to bench/results.json
     python bench/bench_closure.py --quick    # small sizes, prints only
 
 Measures on the demo (sims/demo.toml), with a tolerance Monte Carlo (C* 5 %, L* 5 %) as the study:
@@ -82,11 +82,13 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true")
     args = ap.parse_args()
     design = load_design(DEMO)
-    # the fast sample is sized so that both runs last seconds to tens of seconds (the workers'
-    # start-up, about a second, then weighs alike on both); per worker count the fast run is made
-    # before and after the ngspice run and their mean taken, so a drift of the machine's speed
-    # during the measurement does not favour either side
-    n_fast, n_full, n_mc = (40, 6, 400) if args.quick else (1500, 40, 10000)
+    # the samples are sized so that the fast and the ngspice run last about as long (10-20 s each
+    # on this machine): the pool's start-up, about a second at 2 workers, then weighs alike on both
+    # (with 40 ngspice points against 1500 fast ones it weighed twice as much on the ngspice side,
+    # which flattered the 2-worker ratio by several per cent); per worker count the fast run is made before and after the
+    # ngspice run and their mean taken, so a drift of the machine's speed during the measurement
+    # does not favour either side
+    n_fast, n_full, n_mc = (40, 6, 400) if args.quick else (1500, 80, 10000)
     out: dict = {"design": "demo", "tolerances": list(TOLERANCES)}
     with tempfile.TemporaryDirectory(prefix="netgen-closure-") as tmp:
         tmp = Path(tmp)
