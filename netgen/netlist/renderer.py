@@ -649,6 +649,13 @@ def dc_islands(netlist_text: str) -> list[str]:
 
 def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
     """The ``RLOSS_*`` resistors of a netlist: ``[(name, node_a, node_b, r_ohm), ...]``."""
+    return list(_loss_elements(netlist_text))
+
+
+@functools.lru_cache(maxsize=8)
+def _loss_elements(netlist_text: str) -> tuple:
+    """:func:`loss_elements`, read once per netlist text (the rendering and the analysis of a point
+    each ask for it)."""
     out = []
     for m in _RLOSS.finditer(netlist_text):
         try:
@@ -656,4 +663,4 @@ def loss_elements(netlist_text: str) -> list[tuple[str, str, str, float]]:
         except ValueError:
             raise RenderError(f"netlist: loss resistor {m.group(1)} has value '{m.group(4)}'; write plain numbers for RLOSS_ values.") from None
         out.append((m.group(1), m.group(2).lower(), m.group(3).lower(), r))
-    return out
+    return tuple(out)

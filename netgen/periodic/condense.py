@@ -61,12 +61,13 @@ class Entries:
     the index is copied before its first change (it may be a layout's).
     """
 
-    __slots__ = ("index", "values", "structure", "_own", "_used")
+    __slots__ = ("index", "values", "structure", "_own", "_used", "_rc")
 
-    def __init__(self, index: dict, values: np.ndarray, structure):
+    def __init__(self, index: dict, values: np.ndarray, structure, rc: np.ndarray | None = None):
         self.index, self.values, self.structure = index, values, structure
         self._own = False
         self._used = len(index)
+        self._rc = rc  # (row, column) of the rows 0.. of ``index`` as made (a layout's, kept with it)
 
     @classmethod
     def from_dict(cls, Y: dict, K: int) -> Entries:
@@ -90,7 +91,7 @@ class Entries:
         if q is not None:
             return q
         if not self._own:
-            self.index, self._own = dict(self.index), True
+            self.index, self._own, self._rc = dict(self.index), True, None
         q = self._used
         if q + 2 >= self.values.shape[0]:  # grow, the last two rows zero again
             grown = np.zeros((q + 2 + 16, self.values.shape[1]), complex)
@@ -107,7 +108,7 @@ class Entries:
             grown = np.zeros((len(index) + 2, self.values.shape[1]), complex)
             grown[:self._used] = self.values[:self._used]
             self.values = grown
-        self.index, self._own, self._used = index, False, len(index)
+        self.index, self._own, self._used, self._rc = index, False, len(index), None
 
     @property
     def rows_used(self) -> int:
@@ -116,7 +117,9 @@ class Entries:
     def dense(self, n: int) -> np.ndarray:
         """The matrix, (K, n, n)."""
         A = np.zeros((self.values.shape[1], n, n), complex)
-        if self.index:
+        if self._rc is not None:  # the layout's own index: rows 0..E-1 in its order
+            A[:, self._rc[:, 0], self._rc[:, 1]] = self.values[:len(self._rc)].T
+        elif self.index:
             rc = np.array(list(self.index), dtype=int)
             A[:, rc[:, 0], rc[:, 1]] = self.values[list(self.index.values())].T
         return A
@@ -177,6 +180,7 @@ class _Layout:
         for r, c, *_ in where:
             index.setdefault((r, c), len(index))
         self.index = index
+        self.rc = np.array(list(index), dtype=int).reshape(-1, 2)
         self.serial = next(_SERIALS)
         E = len(index)
         #: per kind: (rows touched, signs (rows, terms)) or None
@@ -206,7 +210,7 @@ class _Layout:
                 V[rows] = (A @ np.asarray(vals, complex))[:, None]
             else:
                 V[rows] += (A @ np.asarray(vals, complex))[:, None] * (s if kind == TERM_TIMES_S else 1.0 / s)
-        return Entries(self.index, V, self.serial)
+        return Entries(self.index, V, self.serial, self.rc)
 
 
 # ---------------------------------------------------------------- the condensation

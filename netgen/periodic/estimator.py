@@ -319,7 +319,11 @@ def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M:
     folded = net.folded_columns()
     try:
         Y0, b0 = net.assemble(s[:1], theta[:1], period_s, M, t0_s)  # one bin: dense
-        X[:1] = np.linalg.solve(Y0, rhs(b0))
+        R0 = rhs(b0)
+        if not (Y0.imag.any() or R0.imag.any()):  # DC of a network of R, L, C, lines: real (half the work)
+            X[:1] = np.linalg.solve(Y0.real, R0.real)
+        else:
+            X[:1] = np.linalg.solve(Y0, R0)
         if len(s) > 1:
             Yr, br = net.assemble_entries(s[1:], theta[1:], period_s, M, t0_s, first_bin=1, fold_inductors=True)
             vsrc = [(folded[c.name], net.node(c.tokens[1].lower()), net.node(c.tokens[2].lower()))
