@@ -46,6 +46,7 @@ that are not periodic at f0, behavioural expressions outside a small set of func
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 
@@ -101,6 +102,7 @@ class _Net:
     def __post_init__(self):
         self.index = {n: i for i, n in enumerate(self.nodes)}
         self._values: dict[str, float] = {}
+        self._spectra: dict[tuple, np.ndarray] = {}
 
     def value(self, c: Card) -> float:
         """The value of an R, L or C card (read once per network: both assemblies and the
@@ -129,15 +131,29 @@ class _Net:
         return cols
 
     @property
-    def structure(self) -> tuple:
+    def structure(self) -> int:
         """What the stamps' placement depends on: every element's kind, name and nodes (not its
-        values). Networks equal in it put the same terms into the same entries."""
+        values), as a small number (equal for networks that put the same terms into the same
+        entries; the tuple is hashed once per network)."""
         s = self.__dict__.get("_structure")
         if s is None:
-            s = self.__dict__["_structure"] = tuple(
-                tuple(c.tokens) if c.name[0] == "X" else tuple(c.tokens[:5 if c.name[0] in "TEG" else 3])
-                for c in self.cards)
+            key = tuple(tuple(c.tokens) if c.name[0] == "X" else tuple(c.tokens[:5 if c.name[0] in "TEG" else 3])
+                        for c in self.cards)
+            s = _STRUCTURES.get(key)
+            if s is None:
+                s = remember(_STRUCTURES, key, next(_STRUCTURE_NUMBERS), _STRUCTURES_MAX)
+            self.__dict__["_structure"] = s
         return s
+
+    def spectrum(self, name: str, t0_s: float, period_s: float, points: int) -> np.ndarray:
+        """rfft of source ``name`` on the grid ``t0_s + k period_s/points`` (once per network: both
+        assemblies ask)."""
+        key = (name, t0_s, period_s, points)
+        got = self._spectra.get(key)
+        if got is None:
+            grid = t0_s + np.arange(points) * (period_s / points)
+            got = self._spectra[key] = np.fft.rfft(self.sources[name].value(grid))
+        return got
 
     def assemble(self, s: np.ndarray, theta: np.ndarray, period_s: float, points: int, t0_s: float, *,
                  first_bin: int = 0, fold_inductors: bool = False):
@@ -173,11 +189,10 @@ class _Net:
         for i in range(nn if place else 0):
             put(i, i, gmin)
         b = np.zeros((K, n), complex)
-        grid = t0_s + np.arange(points) * (period_s / points)
         node = self.node
 
-        def spectrum(src: SourceWaveform) -> np.ndarray:
-            return np.fft.rfft(src.value(grid))[first_bin:first_bin + K]
+        def spectrum(name: str) -> np.ndarray:
+            return self.spectrum(name, t0_s, period_s, points)[first_bin:first_bin + K]
 
         def conductance(t, y):
             ia, ib = node(t[1].lower()), node(t[2].lower())
@@ -218,14 +233,14 @@ class _Net:
                     put(p, p, y)
             elif kind == "V":
                 p = cols[c.name]
-                b[:, p] += spectrum(self.sources[c.name])
+                b[:, p] += spectrum(c.name)
                 if place:
                     t = c.tokens
                     branch_kcl(t[1], t[2], p)
                     vdiff(p, t[1], t[2], one)
             elif kind == "I":
                 t = c.tokens
-                spec = spectrum(self.sources[c.name])
+                spec = spectrum(c.name)
                 ia, ib = node(t[1].lower()), node(t[2].lower())
                 if ia is not None:
                     b[:, ia] -= spec
@@ -295,6 +310,12 @@ class _Net:
                 if place:
                     vdiff(row, other, "0", sv)
                     st.put(row, p0 + q, si)
+
+
+#: network structures seen, as small numbers (_Net.structure; a number is never given twice)
+_STRUCTURES: dict[tuple, int] = {}
+_STRUCTURES_MAX = 64
+_STRUCTURE_NUMBERS = itertools.count(1)
 
 
 def _solve_bins(net: _Net, s: np.ndarray, theta: np.ndarray, period_s: float, M: int, t0_s: float,
