@@ -318,7 +318,7 @@ def solve_condensed(Y: Entries, R: np.ndarray, nn: int, vsrc: list | None = None
         live = [(q, at[r], at[c]) for (r, c), q in Y.index.items() if alive[r] and alive[c]]
         rows, dr, dc = (np.array(x, dtype=int) for x in (zip(*live) if live else ((), (), ())))
         if plan is None:
-            _LAYOUT_ROWS[Y.structure] = max(_LAYOUT_ROWS.get(Y.structure, 0), Y.rows_used)
+            remember(_LAYOUT_ROWS, Y.structure, max(_LAYOUT_ROWS.get(Y.structure, 0), Y.rows_used), _PLANS_MAX)
             remember(_PLANS, key, _Plan([x[0] for x in done], keep, rows, (dr, dc), Y.index), _PLANS_MAX)
     A = np.zeros((K, len(keep), len(keep)), complex)
     A[:, dr, dc] = Y.values[rows].T
