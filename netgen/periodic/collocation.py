@@ -97,7 +97,7 @@ def blas_single_thread():
     libraries, ~4 ms) is made once per process; a block inside another is free (a study wraps its
     points in one, netgen.studies.execute).
     """
-    global _BLAS_CONTROLLER
+    global _BLAS_CONTROLLER, _BLAS_DEPTH
     if _BLAS_CONTROLLER is None:
         try:
             from threadpoolctl import ThreadpoolController
@@ -105,7 +105,6 @@ def blas_single_thread():
             _BLAS_CONTROLLER = False
         else:
             _BLAS_CONTROLLER = ThreadpoolController()
-    global _BLAS_DEPTH
     if _BLAS_CONTROLLER is False or _BLAS_DEPTH:  # no threadpoolctl, or inside such a block already
         yield
         return

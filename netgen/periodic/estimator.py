@@ -102,6 +102,7 @@ class _Net:
     def __post_init__(self):
         self.index = {n: i for i, n in enumerate(self.nodes)}
         self._values: dict[str, float] = {}
+        self._lines: dict[str, tuple[float, float]] = {}
         self._spectra: dict[tuple, np.ndarray] = {}
 
     def value(self, c: Card) -> float:
@@ -115,10 +116,10 @@ class _Net:
 
     def line(self, c: Card) -> tuple[float, float]:
         """(Z0 ohm, TD s) of a T card (read once per network)."""
-        v = self._values.get(c.name)
+        v = self._lines.get(c.name)
         if v is None:
             pars = card_params(c.tokens[5:])
-            v = self._values[c.name] = (spice_value(pars["Z0"], c.name), spice_value(pars["TD"], c.name))
+            v = self._lines[c.name] = (spice_value(pars["Z0"], c.name), spice_value(pars["TD"], c.name))
         return v
 
     def folded_columns(self) -> dict[str, int]:
@@ -132,13 +133,13 @@ class _Net:
 
     @property
     def structure(self) -> int:
-        """What the stamps' placement depends on: every element's kind, name and nodes (not its
-        values), as a small number (equal for networks that put the same terms into the same
-        entries; the tuple is hashed once per network)."""
+        """What the stamps' placement and the state's collection depend on: the node list and every
+        element's kind, name and nodes (not its values), as a small number (equal for networks that
+        put the same terms into the same entries; the tuple is hashed once per network)."""
         s = self.__dict__.get("_structure")
         if s is None:
-            key = tuple(tuple(c.tokens) if c.name[0] == "X" else tuple(c.tokens[:5 if c.name[0] in "TEG" else 3])
-                        for c in self.cards)
+            key = (tuple(self.nodes), tuple(tuple(c.tokens) if c.name[0] == "X"
+                                             else tuple(c.tokens[:5 if c.name[0] in "TEG" else 3]) for c in self.cards))
             s = _STRUCTURES.get(key)
             if s is None:
                 s = remember(_STRUCTURES, key, next(_STRUCTURE_NUMBERS), _STRUCTURES_MAX)
@@ -464,7 +465,7 @@ _COLLECTIONS_MAX = 32
 def _collection(net: _Net) -> _Collection:
     """Which unknowns become which series of the periodic state, and the network's elements: the
     same for every network of one structure, so worked out once for it."""
-    key = (net.structure, tuple(net.nodes))
+    key = net.structure
     got = _COLLECTIONS.get(key)
     if got is not None:
         return got

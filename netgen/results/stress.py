@@ -125,10 +125,10 @@ def part_stress(wf, netlist_text: str, losses: dict | None = None) -> dict[str, 
             vr_a, vr_b = _v(wf, rl[1].lower()), _v(wf, rl[2].lower())
             if sensed and r and vr_a is not None and vr_b is not None:
                 i_r = (vr_a - vr_b) / r
-                if part_key not in budget:
-                    p_loss = float(fast_mean((vr_a - vr_b) ** 2) / r)
             if part_key in budget:
                 p_loss = float(budget[part_key])
+            elif i_r is not None:
+                p_loss = float(fast_mean((vr_a - vr_b) ** 2) / r)
         if kind == "L":
             i = currents.get(name, i_r)
         else:

@@ -17,10 +17,17 @@ import math
 from netgen.design import Component, Design
 from netgen.errors import SizingError
 
-__all__ = ["Builder", "element_name", "ropt_from_power", "l_section", "match_orientation", "UNSIZED", "add_series", "add_shunt", "add_load_reactance",
+__all__ = ["Builder", "digits12", "element_name", "ropt_from_power", "l_section", "match_orientation", "UNSIZED", "add_series", "add_shunt", "add_load_reactance",
            "even_reactance_factor", "lumped_resonator_z", "resonator_z", "conduction_fourier", "CLASS_COEFF",
            "CLASS_SOURCE", "E_SHUNT_K", "E_EXCESS_K", "FEED_X_RATIO", "E_FEED_X_RATIO", "RESONATOR_Q_TOL", "PI",
            "C0_M_S"]
+
+
+def digits12(x: float) -> float:
+    """``x`` to 12 significant digits: a sized value computed with numpy's vectorised functions
+    (cos, tanh) or solvers can differ in its last bits between a CPU's SIMD paths (AVX2 and AVX-512
+    machines gave different sized-design digests); 12 digits are the same everywhere."""
+    return float(f"{x:.12g}")
 
 PI = math.pi
 C0_M_S = 299_792_458.0  # speed of light in vacuum (SI definition)

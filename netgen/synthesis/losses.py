@@ -40,6 +40,8 @@ import numpy as np
 
 from netgen.design import SizedDesign
 
+from .builder import digits12
+
 __all__ = [
     "LossNet",
     "loss_net",
@@ -252,15 +254,10 @@ def _fit(kind: str, law: str, value: float, r_f0: float, f0_hz: float, n_max: in
     else:
         main = float(sol[1]) * value
         secs = tuple((rk, rk * t) for rk, t in keep)  # L_k = R_k tau_k
-    # to 12 digits: the solver's last bits may differ between machines' vector paths, and the
-    # ladder's values enter the sized-design digest (12 digits are far finer than the fit's own
-    # agreement with the law, fit_report)
-    g = _digits12
+    # to 12 digits (digits12): the ladder's values enter the sized-design digest, and 12 digits are
+    # far finer than the fit's own agreement with the law (fit_report)
+    g = digits12
     return LossNet(kind, g(main), g(float(sol[0])) if sol[0] > tiny else 0.0, tuple((g(a), g(b)) for a, b in secs))
-
-
-def _digits12(x: float) -> float:
-    return float(f"{x:.12g}")
 
 
 def loss_net(sized: SizedDesign, name: str) -> LossNet:

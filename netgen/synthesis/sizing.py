@@ -59,6 +59,7 @@ from .builder import (
     PI,
     Builder,
     conduction_fourier,
+    digits12,
     match_orientation,
     ropt_from_power,
 )
@@ -333,9 +334,7 @@ def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = 
     th = np.linspace(0.0, 2.0 * np.pi, n, endpoint=False)
     u = dev.vgate_bias_v + vg * np.cos(th) - dev.vpk_v
     i = dev.ipk_a * (1.0 + np.tanh(dev.p1_per_v * u + dev.p2_per_v2 * u * u + dev.p3_per_v3 * u * u * u))
-    # numpy's vectorised cos and tanh differ in the last bit between a CPU's SIMD paths (AVX2 and
-    # AVX-512 machines gave different sized-design digests); 12 digits are the same everywhere
-    return float(f"{np.mean(i):.12g}"), float(vg)
+    return digits12(float(np.mean(i))), float(vg)  # numpy's cos and tanh: machine-dependent last bits
 
 
 def _veff_how(design: Design) -> str:
