@@ -1,4 +1,4 @@
-"""The SQLite sweep store (netgen.studies.store): commit per point, no duplicates, resume identity, CSV export."""
+"""The SQLite sweep store (netgen.studies.store): commit per point or per batch, no duplicates, resume identity, CSV export."""
 
 from __future__ import annotations
 
@@ -37,6 +37,25 @@ def test_each_point_is_committed_and_visible_to_another_connection(store):
     other = sqlite3.connect(store.path)  # a second connection sees it without any close/flush
     row = other.execute("SELECT idx, status, drain_efficiency, pout_w, settled, seconds FROM points").fetchone()
     assert row == (0, "ok", 0.785, 0.5, 1, 1.5)
+
+
+def test_points_stored_together_are_committed_when_the_block_ends_also_on_an_error(store):
+    # SQLite: a reader sees only committed transactions (sqlite.org/isolation.html); a batch of
+    # short points is one transaction, committed when its block ends, even when it ends with an error
+    sid = store.open_sweep("abc", "", SPEC, 4)
+    other = sqlite3.connect(store.path)
+    with store.together():
+        store.record(sid, 0, {}, "ok", METRICS, None, 0.1)
+        store.record(sid, 1, {}, "ok", METRICS, None, 0.1)
+        assert other.execute("SELECT COUNT(*) FROM points").fetchone()[0] == 0
+    assert other.execute("SELECT COUNT(*) FROM points").fetchone()[0] == 2
+    with pytest.raises(KeyError):
+        with store.together():
+            store.record(sid, 2, {}, "ok", METRICS, None, 0.1)
+            raise KeyError("the coordinator stopped")
+    assert other.execute("SELECT idx FROM points ORDER BY idx").fetchall() == [(0,), (1,), (2,)]
+    store.record(sid, 3, {}, "ok", METRICS, None, 0.1)  # outside a block: committed at once again
+    assert other.execute("SELECT COUNT(*) FROM points").fetchone()[0] == 4
 
 
 def test_duplicate_index_is_ignored(store):

@@ -63,6 +63,13 @@ def simulator_always_dies_eval(design) -> dict:
     return tuned_b_eval(design)
 
 
+def interrupted_at_13v_eval(design) -> dict:
+    """Ctrl-C arrives while the point at Vdd = 13 V runs (in this process: workers=1)."""
+    if design.vdd_v == 13.0:
+        raise KeyboardInterrupt
+    return tuned_b_eval(design)
+
+
 #: an RC driven by a fast pulse for a long time: ngspice runs for minutes unless stopped
 LONG_RUN = ("* long run\nV1 in 0 PULSE(0 1 0 1n 1n 4n 10n)\nR1 in out 1k\nC1 out 0 1p\n"
             ".tran 0.5n 50m\n.end\n")
@@ -410,3 +417,18 @@ def test_a_lost_scheduler_is_named_and_its_points_run_on_resume(tmp_path, sig):
     assert list(tmp.iterdir()) == []
 
 
+
+
+def test_ctrl_c_in_one_process_keeps_the_points_finished_before_it(tmp_path):
+    # in one process short points are stored together about every fifth of a second; an
+    # interruption stores those finished before it (they are not lost with the batch), the
+    # running one has no row, and a resume runs only what is missing
+    with pytest.raises(KeyboardInterrupt):
+        _run(tmp_path, interrupted_at_13v_eval, workers=1, vary=["design.vdd=10V:15V:6"])
+    plan = make_plan(BASE, vary=["design.vdd=10V:15V:6"])
+    with SweepStore(tmp_path / STORE_NAME) as st:
+        sid = st.open_sweep(plan.design_digest(), "", plan.spec(), plan.n_points)
+        assert sorted(st.done_indices(sid)) == [0, 1, 2]
+    plan, counts, rows = _run(tmp_path, tuned_b_eval, workers=1, vary=["design.vdd=10V:15V:6"])
+    assert counts["ran"] == 3 and counts["skipped"] == 3
+    assert [r["status"] for r in rows] == ["ok"] * 6

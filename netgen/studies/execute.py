@@ -319,6 +319,12 @@ class _Coordinator:
         if self.progress is not None:
             self.progress(self.stored, self.plan.n_points, {**res, "status": status})
 
+    def finish_all(self, results: list[dict], retry: bool = True) -> None:
+        """:meth:`finish` for each result, committed to the store together (one transaction)."""
+        with self.store.together():
+            for res in results:
+                self.finish(res, retry)
+
     def lost_now(self) -> int:
         """Points stored as lost at the end (no result; left for a resume or given up)."""
         return len(self.store.lost_attempts(self.sid))
@@ -337,7 +343,8 @@ def run_sweep(
     cluster_timeout_s: float = 30.0,
     attempts: int = DEFAULT_ATTEMPTS,
 ) -> dict:
-    """Run every point of ``plan`` not yet in ``store`` and commit each as it finishes.
+    """Run every point of ``plan`` not yet in ``store`` and store each as it finishes (in batches of
+    short points; :meth:`SweepStore.together`).
 
     Parameters
     ----------
@@ -393,11 +400,34 @@ def run_sweep(
         n = max(1, int(workers or os.cpu_count() or 1))
         if n == 1:  # in this process: no pool to start (the engine still runs ngspice in its own process)
             with blas_single_thread():  # the estimate's small solves, limited once for all points
-                while (idx := co.next_index()) is not None:
-                    co.finish(run_point(*task(idx)))
+                _run_here(co)
         else:
             _run_local(n, co)
     return {**co.counts, "lost_left": co.lost_now()}
+
+
+def _run_here(co: _Coordinator) -> None:
+    """Every point in this process; finished points are stored together about every
+    :data:`BATCH_TARGET_S` (each at once when a point takes longer, and a lost one at once: its
+    retry is queued when it is stored), and those finished when the run is interrupted are
+    stored before it ends."""
+    done: list[dict] = []
+    since = time.perf_counter()
+    try:
+        while True:
+            idx = co.next_index()
+            if idx is not None:
+                done.append(run_point(*co.task(idx)))
+            elif not done:
+                break
+            if (idx is None or done[-1]["status"] == "lost" or len(done) >= BATCH_MAX
+                    or time.perf_counter() - since >= BATCH_TARGET_S):
+                batch, done = done, []
+                co.finish_all(batch)  # may queue retries, which next_index then gives
+                since = time.perf_counter()
+    finally:
+        batch, done = done, []
+        co.finish_all(batch)
 
 
 # ---------------------------------------------------------------- local process pool
@@ -498,8 +528,7 @@ def _run_local(n_workers: int, co: _Coordinator) -> None:
                     broken = True
                     inflight[fut] = idxs  # re-examined below
                     continue
-                for res in results:
-                    co.finish(res)
+                co.finish_all(results)
                 batch = _batch_size(results, batch)
             if broken:
                 suspects = sorted(i for idxs in inflight.values() for i in idxs)
