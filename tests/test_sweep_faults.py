@@ -63,6 +63,14 @@ def simulator_always_dies_eval(design) -> dict:
     return tuned_b_eval(design)
 
 
+def crash_late_eval(design) -> dict:
+    """Kills its worker process at Vdd = 12 V a moment after starting it (other points are done by then)."""
+    if design.vdd_v == 12.0:
+        time.sleep(0.5)
+        os._exit(3)
+    return tuned_b_eval(design)
+
+
 def interrupted_at_13v_eval(design) -> dict:
     """Ctrl-C arrives while the point at Vdd = 13 V runs (in this process: workers=1)."""
     if design.vdd_v == 13.0:
@@ -432,3 +440,48 @@ def test_ctrl_c_in_one_process_keeps_the_points_finished_before_it(tmp_path):
     plan, counts, rows = _run(tmp_path, tuned_b_eval, workers=1, vary=["design.vdd=10V:15V:6"])
     assert counts["ran"] == 3 and counts["skipped"] == 3
     assert [r["status"] for r in rows] == ["ok"] * 6
+
+
+def test_a_pool_found_broken_when_submitting_is_handled_like_one_found_broken_when_waiting(tmp_path, monkeypatch):
+    # a worker can die between the coordinator's wait and its next submit; the pool then refuses
+    # the submit (concurrent.futures: BrokenProcessPool from submit, docs.python.org). Here the
+    # first pool's later submits wait until the crash has broken it, so that is what happens: the
+    # points not sent run afterwards, the crash is pinned on its point alone, nothing else fails
+    from concurrent.futures.process import BrokenProcessPool
+
+    from netgen.studies import execute
+
+    made, refused = [], []
+    real_new_pool = execute._new_pool
+
+    class SubmitAfterBreak:
+        def __init__(self, pool):
+            self.pool, self.calls = pool, 0
+
+        def submit(self, *args):
+            self.calls += 1
+            if self.calls > 4:  # after the first window: wait (bounded) until the crash broke the pool
+                for _ in range(200):
+                    if self.pool._broken:
+                        break
+                    time.sleep(0.05)
+            try:
+                return self.pool.submit(*args)
+            except BrokenProcessPool:
+                refused.append(self.calls)
+                raise
+
+        def __getattr__(self, name):
+            return getattr(self.pool, name)
+
+    def new_pool(n, ctx):
+        pool = real_new_pool(n, ctx)
+        made.append(pool)
+        return SubmitAfterBreak(pool) if len(made) == 1 else pool
+
+    monkeypatch.setattr(execute, "_new_pool", new_pool)
+    plan, counts, rows = _run(tmp_path, crash_late_eval, vary=["design.vdd=10V,11V,12V,13V,14V,15V"])
+    assert refused, "the first pool was never found broken on submit: the case was not exercised"
+    assert [r["status"] for r in rows] == ["ok", "ok", "failed", "ok", "ok", "ok"]
+    assert rows[2]["error"].startswith("WorkerCrash")
+    assert counts["ran"] == 6 and counts["failed"] == 1

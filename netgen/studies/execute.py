@@ -282,9 +282,17 @@ class _Coordinator:
         self.stored = len(store.done_indices(sweep_id))  # points with a result
         self.todo = (i for i in range(plan.n_points) if i not in done)
         self.again: collections.deque[int] = collections.deque()
+        self.back: collections.deque[int] = collections.deque()
         self.counts = {"ran": 0, "skipped": len(done), "failed": 0, "lost": 0, "retried": 0}
 
+    def put_back(self, idxs: list[int]) -> None:
+        """Points taken but never started (the pool broke before they were sent): given out
+        again first, not counted as retries."""
+        self.back.extendleft(reversed(idxs))
+
     def next_index(self) -> int | None:
+        if self.back:
+            return self.back.popleft()
         if self.again:
             self.counts["retried"] += 1
             return self.again.popleft()
@@ -509,17 +517,23 @@ def _run_local(n_workers: int, co: _Coordinator) -> None:
     batch = 1
     try:
         while True:
+            broken = False
             while len(inflight) < window:
                 idxs = []
                 while len(idxs) < batch and (idx := co.next_index()) is not None:
                     idxs.append(idx)
                 if not idxs:
                     break
-                inflight[pool.submit(_pool_points, [co.task(i) for i in idxs])] = idxs
-            if not inflight:
+                try:
+                    inflight[pool.submit(_pool_points, [co.task(i) for i in idxs])] = idxs
+                except BrokenProcessPool:  # a worker died since the last wait: these never ran
+                    co.put_back(idxs)
+                    broken = True
+                    break
+            if not inflight and not broken:
                 break
-            finished, _ = wait(inflight, return_when=FIRST_COMPLETED)
-            broken = False
+            # a pool found broken on submit: collect what finished before it broke, the rest are suspects
+            finished, _ = wait(inflight, timeout=0 if broken else None, return_when=FIRST_COMPLETED)
             for fut in finished:
                 idxs = inflight.pop(fut)
                 try:
