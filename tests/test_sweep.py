@@ -375,10 +375,45 @@ def test_load_circle_plot_draws_the_stress_of_the_database(tmp_path, monkeypatch
     monkeypatch.setattr(plots, "_save", keep)
     plots.plot_load_circle(rows, 50.0, tmp_path / "lc.png", vdd_v=10.0)
     peak = 2 * 10.0  # 2 Vdd (Cripps), BASE has Vdd = 10 V
-    assert any(t.startswith(f"drain voltage: peak {peak:.3g} V at 0 deg, min 0 V at 0 deg") for t in seen["titles"])
+    assert any(t.startswith(f"drain voltage: peak {peak:.3g} V at 0 deg,\nmin 0 V at 0 deg") for t in seen["titles"])
     assert any(t.startswith("peak current ") and "dissipation " in t for t in seen["titles"])
     assert_allclose(seen["lines"]["peak drain voltage"], peak)
     assert_allclose(seen["lines"]["device dissipation"], c["device_dissipation_w"])
+
+
+def test_load_circle_with_another_axis_draws_a_stress_line_per_value(tmp_path, monkeypatch):
+    # --vswr with --vary design.vdd: each Vdd is a line of its own against the load phase (one line
+    # through both zigzagged between them), and the reflection plane shows the highest point at
+    # each load; peak drain voltage 2 Vdd (Cripps) tells the lines apart
+    import matplotlib.pyplot as plt
+    from matplotlib.collections import PathCollection
+
+    from netgen.studies import plots
+
+    plan, _, rows = _run(tmp_path, stressed_eval, workers=1, vswr="3.0:4", vary=["design.vdd=10V,12V"])
+    seen = {}
+
+    def keep(fig, path):
+        seen["titles"] = [ax.get_title() for ax in fig.axes]
+        seen["lines"] = {line.get_label(): (line.get_xdata(), line.get_ydata()) for ax in fig.axes
+                         for line in ax.get_lines()}
+        dots = [c for ax in fig.axes for c in ax.collections if isinstance(c, PathCollection)]  # the scatters
+        seen["scatter"] = [np.asarray(c.get_offsets()) for c in dots]
+        seen["colours"] = [np.asarray(c.get_array()) for c in dots]
+        plt.close(fig)
+        return Path(path)
+
+    monkeypatch.setattr(plots, "_save", keep)
+    plots.plot_load_circle(rows, 50.0, tmp_path / "lc.png", vdd_v=10.0)
+    for vdd in (10, 12):
+        x, y = seen["lines"][f"peak drain voltage, design.vdd={vdd}"]
+        assert_allclose(x, [0.0, 90.0, 180.0, 270.0])  # sorted by phase, one value each
+        assert_allclose(y, 2.0 * vdd)
+    assert any(t.startswith("drain voltage: peak 24 V at 0 deg (design.vdd=12)") for t in seen["titles"])
+    assert len(seen["scatter"]) == 2 and all(len(xy) == 4 for xy in seen["scatter"])  # four loads, not eight stacked points
+    eff = plots.circle_data(rows, 50.0)["drain_efficiency"]
+    assert_allclose(seen["colours"][0], 100.0 * np.nanmax(eff))  # tuned load: pi/4 at every load and Vdd
+    assert any("the highest of 2 points at each load" in t for t in seen["titles"])
 
 
 def test_flat_metric_is_drawn_flat(tmp_path, monkeypatch):

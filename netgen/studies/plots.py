@@ -127,7 +127,7 @@ def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
     from netgen.design import parse_quantity
 
     keys = ("drain_efficiency", "pout_w", *CIRCLE_STRESS)
-    g, phase, vals = [], [], {k: [] for k in keys}
+    g, phase, group, vals = [], [], [], {k: [] for k in keys}
     for r in rows:
         s = r["inputs"].get("set", {})
         if "design.load" not in s:
@@ -135,11 +135,34 @@ def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
         z = complex(parse_quantity(s["design.load"], "ohm", "design.load"),
                     parse_quantity(s.get("design.load_x", "0 ohm"), "ohm", "design.load_x"))
         g.append((z - rl_ohm) / (z + rl_ohm))
-        phase.append(float(r["inputs"].get("axes", {}).get("load_phase_deg", math.nan)))
+        axes = r["inputs"].get("axes", {})
+        phase.append(float(axes.get("load_phase_deg", math.nan)))
+        group.append(", ".join(f"{k}={_axis_text(v)}" for k, v in sorted(axes.items()) if k != "load_phase_deg"))
         for k in keys:
             vals[k].append(_value(r, k))
-    return {"gamma": np.array(g, dtype=complex), "phase_deg": np.array(phase, dtype=float),
+    return {"gamma": np.array(g, dtype=complex), "phase_deg": np.array(phase, dtype=float), "group": group,
             **{k: np.array(v, dtype=float) for k, v in vals.items()}}
+
+
+def _best_at_each_load(gamma: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct loads (to 1e-9 in Gamma) and the highest value at each (NaN where none ran)."""
+    keys = np.round(gamma.real, 9) + 1j * np.round(gamma.imag, 9)
+    uniq, inverse = np.unique(keys, return_inverse=True)
+    best = np.full(len(uniq), np.nan)
+    for k in range(len(uniq)):
+        v = values[inverse == k]
+        if np.isfinite(v).any():
+            best[k] = np.nanmax(v)
+    first = np.array([np.flatnonzero(inverse == k)[0] for k in range(len(uniq))], dtype=int)
+    return gamma[first], best
+
+
+def _axis_text(value) -> str:
+    return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+#: most groups (values of the other --vary axes) the stress panels draw as lines of their own
+MAX_CIRCLE_GROUPS = 6
 
 
 # ---------------------------------------------------------------- drawing
@@ -238,37 +261,61 @@ def _worst(data: dict, key: str, pick, unit: str) -> str:
         return "-"
     i = int(pick(v))
     where = f" at {data['phase_deg'][i]:g} deg" if np.isfinite(data["phase_deg"][i]) else ""
-    return f"{v[i]:.3g} {unit}{where}"
+    group = (data.get("group") or [""] * len(v))[i]
+    return f"{v[i]:.3g} {unit}{where}" + (f" ({group})" if group else "")
 
 
 def _stress_panels(ax_v, ax_i, data: dict, vdd_v: float | None) -> None:
     """The device stress at each load against its phase: drain voltage extremes (V) on the left,
-    peak drain current (A) and device dissipation (W) on the right; the worst of each in the title."""
+    peak drain current (A) and device dissipation (W) on the right; the worst of each in the title.
+
+    With other --vary axes beside the load circle, each of their combinations (a group) is a line
+    of its own (its values in the legend; solid, dashed, dotted ... in turn); above
+    :data:`MAX_CIRCLE_GROUPS` groups the points are drawn unjoined.
+    """
     x = data["phase_deg"]
     if not np.isfinite(x).all():
         x = np.arange(len(x), dtype=float)  # no phase axis: by point
         ax_v.set_xlabel("point")
     else:
         ax_v.set_xlabel("load phase (deg)")
-    order = np.argsort(x, kind="stable")
-    xs = x[order]
-    ax_v.plot(xs, data["peak_vd_v"][order], "^-", color="#b22222", ms=4, lw=1.0, label="peak drain voltage")
-    ax_v.plot(xs, data["min_vd_v"][order], "v-", color="#1f4e79", ms=4, lw=1.0, label="min drain voltage")
+    groups = list(dict.fromkeys(data.get("group") or [""] * len(x)))
+    member = np.array(data.get("group") or [""] * len(x), dtype=object)
+    joined = len(groups) <= MAX_CIRCLE_GROUPS
+    styles = ("-", "--", ":", "-.", (0, (5, 1, 1, 1)), (0, (1, 3)))
+
+    def draw(ax, key, marker, color, label, style="-"):
+        for k, grp in enumerate(groups):
+            pick = np.flatnonzero(member == grp)
+            order = pick[np.argsort(x[pick], kind="stable")]
+            ls = (style if len(groups) == 1 else styles[k % len(styles)]) if joined else "none"
+            name = label if len(groups) == 1 else (f"{label}, {grp}" if joined else (label if k == 0 else None))
+            ax.plot(x[order], data[key][order], marker=marker, ls=ls, color=color, ms=4, lw=1.0, label=name)
+
+    draw(ax_v, "peak_vd_v", "^", "#b22222", "peak drain voltage")
+    draw(ax_v, "min_vd_v", "v", "#1f4e79", "min drain voltage")
     ax_v.axhline(0.0, color="#888888", lw=0.7)
-    if vdd_v:
-        ax_v.axhline(vdd_v, color="#888888", lw=0.7, ls=":", label="Vdd")
+    if vdd_v and not any(g.startswith("design.vdd=") or ", design.vdd=" in g for g in groups):
+        ax_v.axhline(vdd_v, color="#888888", lw=0.7, ls=":", label="Vdd")  # one Vdd (not an axis)
     ax_v.set_ylabel("drain voltage (V)", fontsize=8)
     ax_v.legend(fontsize=7, loc="best")
-    ax_v.set_title(f"drain voltage: peak {_worst(data, 'peak_vd_v', np.nanargmax, 'V')}, "
+    ax_v.set_title(f"drain voltage: peak {_worst(data, 'peak_vd_v', np.nanargmax, 'V')},\n"
                    f"min {_worst(data, 'min_vd_v', np.nanargmin, 'V')}", fontsize=8)
-    ax_i.plot(xs, data["peak_id_a"][order], "o-", color="#7a3b00", ms=4, lw=1.0, label="peak drain current")
+    if len(groups) > 1 and not joined:
+        ax_v.text(0.01, 0.01, f"{len(groups)} combinations of the other axes at each load, unjoined",
+                  transform=ax_v.transAxes, fontsize=7, color="#555555")
+    draw(ax_i, "peak_id_a", "o", "#7a3b00", "peak drain current")
     ax_i.set_ylabel("peak drain current (A)", fontsize=8, color="#7a3b00")
     ax_i.set_xlabel(ax_v.get_xlabel())
     ax_w = ax_i.twinx()
-    ax_w.plot(xs, data["device_dissipation_w"][order], "s--", color="#2e7d32", ms=4, lw=1.0, label="device dissipation")
+    draw(ax_w, "device_dissipation_w", "s", "#2e7d32", "device dissipation", "--")
     ax_w.set_ylabel("device dissipation (W)", fontsize=8, color="#2e7d32")
-    ax_i.set_title(f"peak current {_worst(data, 'peak_id_a', np.nanargmax, 'A')}, "
+    ax_i.set_title(f"peak current {_worst(data, 'peak_id_a', np.nanargmax, 'A')},\n"
                    f"dissipation {_worst(data, 'device_dissipation_w', np.nanargmax, 'W')}", fontsize=8)
+    if len(groups) > 1 and joined:  # which line style is which combination, as on the left
+        proxies = [ax_w.plot([], [], color="#555555", lw=1.0, ls=styles[k % len(styles)], label=grp)[0]
+                   for k, grp in enumerate(groups)]
+        ax_w.legend(handles=proxies, fontsize=7, loc="best", title="o current, s dissipation", title_fontsize=7)
     for ax in (ax_v, ax_i):
         ax.grid(True, color="#dddddd", lw=0.6)
 
@@ -293,9 +340,12 @@ def plot_load_circle(rows: Sequence[dict], rl_ohm: float, path: Path, vdd_v: flo
                 ax.plot(arc.real, arc.imag, "-", color="#dddddd", lw=0.6)
         ax.axhline(0, color="#dddddd", lw=0.6)
         label, scale = LINE_METRICS[key]
-        g = data["gamma"]
-        sc = ax.scatter(g.real, g.imag, c=data[key] * scale, cmap="viridis", s=40, edgecolors="k", linewidths=0.4)
+        g, vals = _best_at_each_load(data["gamma"], data[key])
+        sc = ax.scatter(g.real, g.imag, c=vals * scale, cmap="viridis", s=40, edgecolors="k", linewidths=0.4)
         fig.colorbar(sc, ax=ax, label=label, shrink=0.8)
+        n_groups = len(set(data["group"]))
+        if n_groups > 1:  # the other axes' points sit on the same loads: the best of them is drawn
+            label = f"{label}: the highest of {n_groups} points at each load"
         ax.set_aspect("equal")
         ax.set_xlim(-1.05, 1.05)
         ax.set_ylim(-1.05, 1.05)
