@@ -293,6 +293,7 @@ def test_a_full_disk_stops_the_sweep_in_one_line_and_resume_works(tmp_path):
     ("long_batch_eval", 2, signal.SIGTERM),   # by pool workers, which the sweep ends
     ("long_batch_eval", 2, signal.SIGKILL),   # by pool workers that notice their parent is gone
     ("long_shared_eval", 1, signal.SIGKILL),  # libngspice's worker, which notices its parent is gone
+    ("long_batch_eval", 1, signal.SIGKILL),   # the executable run by the sweep's own process, killed outright
 ])
 def test_a_killed_sweep_leaves_no_simulator_and_no_temporary_folder(tmp_path, evaluator, workers, sig):
     design = _design_file(tmp_path)
@@ -324,7 +325,22 @@ def test_a_killed_sweep_leaves_no_simulator_and_no_temporary_folder(tmp_path, ev
             proc.kill()
             proc.wait()
     assert proc.returncode == (143 if sig == signal.SIGTERM else -signal.SIGKILL), stderr
-    if workers > 1 or sig == signal.SIGTERM:  # a process killed outright cannot remove its own folder
+    if workers > 1 or sig == signal.SIGTERM:
+        assert list(tmp.iterdir()) == []
+    else:  # a process killed outright cannot remove its own folder: the next simulator session does,
+        # once the folder has been left alone for STALE_AGE_S (aged here instead of waiting)
+        from netgen.simulator.common import STALE_AGE_S
+
+        (left,) = list(tmp.iterdir())  # pashape-ng- (the executable's) or pashape-ngw- (libngspice's worker)
+        assert left.name.startswith((f"pashape-ng-{proc.pid}-", f"pashape-ngw-{proc.pid}-")), left.name
+        old = time.time() - STALE_AGE_S - 60
+        os.utime(left, (old, old))
+        code = ("from netgen.simulator import run_transient\n"
+                "run_transient('* rc\\nV1 in 0 DC 1\\nR1 in out 1k\\nC1 out 0 1p\\n.tran 1n 10n\\n.end\\n', "
+                "backend='batch', save=['out'], timeout_s=60.0)\n")
+        done = subprocess.run([sys.executable, "-c", code], env=dict(os.environ, TMPDIR=str(tmp)),
+                              capture_output=True, text=True, timeout=120)
+        assert done.returncode == 0, done.stderr
         assert list(tmp.iterdir()) == []
 
 
@@ -485,3 +501,34 @@ def test_a_pool_found_broken_when_submitting_is_handled_like_one_found_broken_wh
     assert [r["status"] for r in rows] == ["ok", "ok", "failed", "ok", "ok", "ok"]
     assert rows[2]["error"].startswith("WorkerCrash")
     assert counts["ran"] == 6 and counts["failed"] == 1
+
+
+def test_stale_simulator_folders_are_removed_only_when_their_process_is_gone_and_they_are_old(tmp_path):
+    # the rule of netgen.simulator.common.remove_stale_folders: a pashape-ng-<pid>- folder goes when
+    # no process <pid> exists (kill(pid, 0) fails with ESRCH, POSIX), it is this user's real folder,
+    # and it has not changed for STALE_AGE_S; anything else stays
+    from netgen.simulator.common import STALE_AGE_S, remove_stale_folders
+
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()  # its pid no longer exists
+    now = time.time()
+    old = now - STALE_AGE_S - 1
+    made = {}
+    for key, name in [("dead_old", f"pashape-ng-{gone.pid}-a"), ("dead_new", f"pashape-ng-{gone.pid}-b"),
+                      ("own", f"pashape-ng-{os.getpid()}-c"), ("alive", f"pashape-ng-{os.getppid()}-d"),
+                      ("other", "pashape-other-1-e")]:
+        made[key] = tmp_path / name
+        made[key].mkdir()
+        (made[key] / "run.raw").write_text("x")
+        if key != "dead_new":
+            os.utime(made[key], (old, old))
+    target = tmp_path / "elsewhere"
+    target.mkdir()
+    (target / "keep.txt").write_text("keep")
+    link = tmp_path / f"pashape-ng-{gone.pid}-link"
+    link.symlink_to(target, target_is_directory=True)
+    os.utime(link, (old, old), follow_symlinks=False)
+    assert remove_stale_folders(str(tmp_path), now=now) == [made["dead_old"].name]
+    assert not made["dead_old"].exists()
+    assert all(made[k].is_dir() for k in ("dead_new", "own", "alive", "other"))
+    assert link.is_symlink() and (target / "keep.txt").read_text() == "keep"

@@ -39,7 +39,9 @@ from .common import (
     executable_path,
     next_stop,
     private_env,
+    remove_stale_folders_once,
     save_spelling,
+    session_folder_prefix,
 )
 from .rawfile import read_raw
 
@@ -54,7 +56,8 @@ class _BatchSession:
             raise SimulatorNotFoundError(
                 "The ngspice executable was not found on PATH.",
                 hint=f"install ngspice (Debian: apt install ngspice) or set {EXECUTABLE_ENV} to its path")
-        self.dir = tempfile.TemporaryDirectory(prefix="pashape-ng-")
+        remove_stale_folders_once()  # what an earlier process killed outright left
+        self.dir = tempfile.TemporaryDirectory(prefix=session_folder_prefix("ng"))
         self.deadline = _time.monotonic() + timeout_s
         self.timeout_s = timeout_s
         self.proc = None

@@ -9,13 +9,17 @@ from __future__ import annotations
 import os
 import re
 import shutil
+import stat
+import tempfile
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
 from netgen.errors import SimulationError
 
 __all__ = ["MAX_COMMAND_CHARS", "EXECUTABLE_ENV", "LIBRARY_ENV", "SENTINEL", "canonical_name", "Vectors",
-           "save_spelling", "Resume", "check_verdict", "next_stop", "executable_path", "private_env"]
+           "save_spelling", "Resume", "check_verdict", "next_stop", "executable_path", "private_env",
+           "session_folder_prefix", "remove_stale_folders", "remove_stale_folders_once", "STALE_AGE_S"]
 
 #: ngspice's shared API rejects longer command lines (PySpice enforces the same limit).
 MAX_COMMAND_CHARS = 1023
@@ -133,3 +137,65 @@ def private_env(folder: str) -> dict:
     env["HOME"] = folder
     env.pop("NGSPICE_INPUT_DIR", None)  # a folder ngspice searches for sourced files
     return env
+
+
+# ---------------------------------------------------------------- session folders left behind
+
+#: a simulator session's private folder: ``pashape-ng-`` (the executable's) or ``pashape-ngw-``
+#: (libngspice's worker), the id of the process that made it, ``-`` and random letters
+_FOLDER = re.compile(r"^pashape-ngw?-(\d+)-")
+#: a folder whose process has gone and that has not changed for this long is removed, s (a process
+#: killed outright, SIGKILL, cannot remove its own; the age keeps a folder of a live process that
+#: this one cannot see, e.g. in another PID namespace sharing the folder, from being taken)
+STALE_AGE_S = 600.0
+_SWEPT: set[str] = set()  # temporary roots already swept by this process
+
+
+def session_folder_prefix(kind: str) -> str:
+    """Prefix of a new session folder of ``kind`` ``ng`` or ``ngw``, with this process's id."""
+    return f"pashape-{kind}-{os.getpid()}-"
+
+
+def remove_stale_folders_once() -> None:
+    """:func:`remove_stale_folders` of the temporary folder, the first time this process asks."""
+    root = tempfile.gettempdir()
+    if root not in _SWEPT:
+        _SWEPT.add(root)
+        remove_stale_folders(root)
+
+
+def remove_stale_folders(root: str | None = None, now: float | None = None) -> list[str]:
+    """Remove the session folders under ``root`` (default: the temporary folder) left by processes
+    that have gone: named by a process id that no longer exists, owned by this user, a real
+    folder (not a link), unchanged for :data:`STALE_AGE_S`. Returns the names removed. POSIX only
+    (elsewhere the process check would signal the process; nothing is removed)."""
+    if os.name != "posix":
+        return []
+    root = root or tempfile.gettempdir()
+    now = time.time() if now is None else now
+    removed = []
+    try:
+        names = os.listdir(root)
+    except OSError:
+        return removed
+    for name in names:
+        m = _FOLDER.match(name)
+        if not m or int(m.group(1)) == os.getpid():
+            continue
+        path = os.path.join(root, name)
+        try:
+            st = os.lstat(path)
+        except OSError:
+            continue
+        if not stat.S_ISDIR(st.st_mode) or st.st_uid != os.getuid() or now - st.st_mtime < STALE_AGE_S:
+            continue
+        try:
+            os.kill(int(m.group(1)), 0)
+            continue  # the process exists (or is another user's): its folder stays
+        except ProcessLookupError:
+            pass
+        except (PermissionError, OverflowError, OSError):
+            continue
+        shutil.rmtree(path, ignore_errors=True)
+        removed.append(name)
+    return removed

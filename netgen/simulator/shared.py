@@ -29,7 +29,9 @@ from .common import (
     check_verdict,
     next_stop,
     private_env,
+    remove_stale_folders_once,
     save_spelling,
+    session_folder_prefix,
 )
 
 __all__ = ["run_shared", "shutdown", "worker_pid"]
@@ -276,7 +278,8 @@ class _Worker:
                 f"_worker_entry({p2c_r}, {c2p_w}, {os.getpid()}, {main_thread})")
         # the worker (and libngspice in it) runs in a fresh private folder that is also its HOME:
         # libngspice reads .spiceinit from the working folder, else HOME (docs/reliability.md)
-        self.dir = tempfile.mkdtemp(prefix="pashape-ngw-")
+        remove_stale_folders_once()  # what an earlier process killed outright left
+        self.dir = tempfile.mkdtemp(prefix=session_folder_prefix("ngw"))
         env = private_env(self.dir)
         pkg_parent = str(Path(__file__).resolve().parent.parent)
         env["PYTHONPATH"] = pkg_parent + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
