@@ -434,8 +434,8 @@ def _run_here(co: _Coordinator) -> None:
                 co.finish_all(batch)  # may queue retries, which next_index then gives
                 since = time.perf_counter()
     finally:
-        batch, done = done, []
-        co.finish_all(batch)
+        if done:  # points finished before an interruption (Ctrl-C, SIGTERM during the next point)
+            co.finish_all(done)
 
 
 # ---------------------------------------------------------------- local process pool
