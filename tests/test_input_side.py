@@ -5,6 +5,7 @@ analysis."""
 
 from __future__ import annotations
 
+import copy
 import math
 from pathlib import Path
 
@@ -13,6 +14,7 @@ import pytest
 import tomllib
 
 from netgen.design import design_from_dict
+from netgen.netlist import render
 from netgen.synthesis import angelov_input_z, input_network_z, pozar_l_section, size
 
 SIMS = Path(__file__).resolve().parents[1] / "sims"
@@ -216,3 +218,43 @@ def test_small_signal_gain_through_the_input_network():
     assert m["settled"]
     assert m["gain_transducer_db"] == pytest.approx(ss["s21_db"], abs=0.2)
     assert ss["s11_db"] < -15.0  # matched at the bias (Pozar L-section): |S11| small
+
+
+@pytest.mark.ngspice
+def test_gate_resistance_is_in_series_with_the_gate_in_sizing_ac_and_the_estimate():
+    # device.ri: the gate resistance in series with everything behind the gate terminal, so the
+    # input impedance grows by exactly Ri (series impedances add; circuit theory, common practice)
+    # in the sizing's model and in ngspice's AC analysis of the rendered netlist alike; the periodic
+    # estimate of the netlist with Ri agrees with ngspice's transient (docs/closure.md's bound, 0.2 %)
+    from netgen.studies import small_signal_two_port
+    from netgen.studies.fast import disagreement, estimate_waveforms, evaluate_estimate, evaluate_ngspice
+
+    ri = 1.5
+    doc = _example()
+    with_ri = copy.deepcopy(doc)
+    with_ri["device"]["ri"] = f"{ri} ohm"
+    d0, d1 = _design(doc), _design(with_ri)
+    s0, s1 = size(d0), size(d1)
+    z0 = angelov_input_z(d0, z_drain_ohm=s0.ropt_ohm)
+    z1 = angelov_input_z(d1, z_drain_ohm=s1.ropt_ohm)
+    assert z1 - z0 == pytest.approx(ri, abs=1e-9)
+    ac0, ac1 = small_signal_two_port(s0)["zin_ohm"], small_signal_two_port(s1)["zin_ohm"]
+    assert ac1 - ac0 == pytest.approx(ri, abs=1e-6)
+    net = render(s1)
+    assert "RI_DEV gate agi 1.5" in net and "DCGS agi asi DCGSMOD" in net and "v(agi,asi)" in net
+    assert "agi" not in render(s0)  # Ri = 0: the netlist of before, line for line (tests/test_cds_junction.py)
+    zero = copy.deepcopy(doc)
+    zero["device"]["ri"] = "0 ohm"
+    assert size(_design(zero)).digest() == s0.digest() != s1.digest()  # and the sized-design digest of before
+    est, full = evaluate_estimate(d1), evaluate_ngspice(d1)
+    assert not disagreement(est, full)["flagged"]
+    assert est["pin_w"] == pytest.approx(full["pin_w"], rel=0.01)
+    # the input power is Ri's Joule loss Ri <ig^2> plus what the intrinsic gate takes <v(agi) ig>
+    # (the gate terminal's only other branch is RSRC: the drive current flows through Ri; energy
+    # conservation, Tellegen's theorem); Ri's share lowers the PAE
+    wf, _ = estimate_waveforms(s1, render(s1, mode="tran"))
+    ig = np.asarray(wf.i["gate"])
+    joule, intrinsic = ri * np.mean(ig ** 2), np.mean(np.asarray(wf.v["agi"]) * ig)
+    assert joule + intrinsic == pytest.approx(est["pin_w"], rel=1e-6)
+    assert joule > 0.1 * est["pin_w"]
+    assert est["pae"] < evaluate_estimate(d0)["pae"]

@@ -101,6 +101,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "lambda": Key("lambda_per_v", "", 0.0, "angelov: lambda in 1/V, channel-length modulation (output conductance) of (1 + lambda Vds).", lo=0.0, hi=1.0),
         "rd": Key("rd_ohm", "ohm", "0 ohm", "angelov: drain access resistance Rd (0: none).", lo=0.0, hi=1e3),
         "rs": Key("rs_ohm", "ohm", "0 ohm", "angelov: source access resistance Rs (0: none; it degenerates the gate drive).", lo=0.0, hi=1e3),
+        "ri": Key("ri_ohm", "ohm", "0 ohm", "angelov: intrinsic gate resistance Ri in series with the gate junctions (Cgs, Cgd) behind the gate terminal; the channel is controlled by the voltage behind it, and the drive's input power is lost in it (0: none; docs/devices.md).", lo=0.0, hi=1e3),
         "cgs0": Key("cgs0_f", "F", "1 pF", "angelov: gate-source junction capacitance at zero bias (Cgs = Cgs0 / (1 - Vgs/Vbi)^M, a SPICE junction diode).", lo=0.0, hi=1.0),
         "cgd0": Key("cgd0_f", "F", "0.1 pF", "angelov: gate-drain junction capacitance at zero bias (Cgd = Cgd0 / (1 - Vgd/Vbi)^M).", lo=0.0, hi=1.0),
         "vbi": Key("vbi_v", "V", "0.8 V", "angelov: built-in potential Vbi of the gate junctions.", lo=0.05, hi=5.0),

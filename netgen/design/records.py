@@ -112,13 +112,23 @@ class SizedDesign:
         return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:16]
 
 
+#: device keys added after digests were first recorded, with the value that changes nothing: left
+#: out of the digest at that value, so a design without them keeps its digest
+_LATER_KEYS = {"ri_ohm": 0.0}
+
+
 def _digest_repr(key: str, value) -> str:
     """``repr(value)``, except that a device with the linear drain-source capacitance (``cds_law``
-    = "linear", the default) leaves out the junction law's keys, which do not change its netlist:
-    the digest of every design without a junction Cds stays what it was before the keys existed."""
-    if key != "device" or getattr(value, "cds_law", "linear") != "linear" or not dataclasses.is_dataclass(value):
+    = "linear", the default) leaves out the junction law's keys, which do not change its netlist,
+    and a key of :data:`_LATER_KEYS` at its neutral value is left out: the digest of every design
+    without a junction Cds or an Ri stays what it was before the keys existed."""
+    if key != "device" or not dataclasses.is_dataclass(value):
         return repr(value)
-    kept = [f for f in dataclasses.fields(value) if f.repr and not f.name.startswith("cds_")]
+    linear = getattr(value, "cds_law", "linear") == "linear"
+    kept = [f for f in dataclasses.fields(value) if f.repr and not (linear and f.name.startswith("cds_"))
+            and not (f.name in _LATER_KEYS and getattr(value, f.name) == _LATER_KEYS[f.name])]
+    if len(kept) == len([f for f in dataclasses.fields(value) if f.repr]):
+        return repr(value)
     return f"{type(value).__name__}(" + ", ".join(f"{f.name}={getattr(value, f.name)!r}" for f in kept) + ")"
 
 

@@ -94,6 +94,7 @@ class DeviceSpec:
     lambda_per_v: float = 0.0
     rd_ohm: float = 0.0
     rs_ohm: float = 0.0
+    ri_ohm: float = 0.0
     cgs0_f: float = 1e-12
     cgd0_f: float = 1e-13
     vbi_v: float = 0.8

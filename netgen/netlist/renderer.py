@@ -338,20 +338,21 @@ def _input_ctx(sized: SizedDesign) -> dict | None:
 
 def _angelov_ctx(design, sized: SizedDesign | None = None) -> dict:
     """Template values of the angelov device (templates/devices.j2 ``angelov``): its parameters,
-    the intrinsic node names (``adi``/``asi`` behind Rd/Rs, else ``dsw``/ground), the control
+    the intrinsic node names (``adi``/``asi``/``agi`` behind Rd/Rs/Ri, else ``dsw``/ground/``gate``), the control
     voltages as B-source text, the gate source amplitude from drive.pin and the input network
     (:func:`_input_ctx`; docs/devices.md)."""
     dev, drv = design.device, design.drive
     di = "adi" if dev.rd_ohm > 0 else "dsw"
     si = "asi" if dev.rs_ohm > 0 else "0"
+    gi = "agi" if dev.ri_ohm > 0 else "gate"  # the intrinsic gate, behind Ri
     return {
         "ipk_a": dev.ipk_a, "vpk_v": dev.vpk_v, "p1": dev.p1_per_v, "p2": dev.p2_per_v2, "p3": dev.p3_per_v3,
         "alpha": dev.alpha_per_v, "lambda_": dev.lambda_per_v, "rd_ohm": dev.rd_ohm, "rs_ohm": dev.rs_ohm,
         "cgs0_f": dev.cgs0_f, "cgd0_f": dev.cgd0_f, "vbi_v": dev.vbi_v, "mj": dev.mj, "vcj_v": dev.vcj_v,
-        "rev_is_a": dev.rev_is_a, "rev_n": dev.rev_n, "di": di, "si": si,
-        "vgs": "v(gate)" if si == "0" else f"v(gate,{si})",
+        "rev_is_a": dev.rev_is_a, "rev_n": dev.rev_n, "di": di, "si": si, "gi": gi, "ri_ohm": dev.ri_ohm,
+        "vgs": f"v({gi})" if si == "0" else f"v({gi},{si})",
         "vds": f"v({di})" if si == "0" else f"v({di},{si})",
-        "u": f"({'v(gate)' if si == '0' else f'v(gate,{si})'}-({_fmt(dev.vpk_v)}))",
+        "u": f"({f'v({gi})' if si == '0' else f'v({gi},{si})'}-({_fmt(dev.vpk_v)}))",
         "vs_peak_v": drv.vs_peak_v, "source_r_ohm": drv.source_r_ohm,
         "input": _input_ctx(sized) if sized is not None else None,
     }

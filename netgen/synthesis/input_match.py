@@ -83,7 +83,8 @@ def angelov_input_z(design: Design, f_hz: float | None = None, z_drain_ohm: comp
     transconductance gm = dIds/dVgs and output conductance gds = dIds/dVds of the Angelov law
     (analytic derivatives), Rs and Rd, the drain terminated in ``z_drain_ohm`` (default Ropt is
     not known here: the caller passes the load the output network presents at f0). Nodal
-    analysis with 1 A into the gate; Zin = V(gate). At f0 by default.
+    analysis with 1 A into the intrinsic gate; Zin = V(gate) + Ri (the gate resistance in series
+    with everything behind it). At f0 by default.
     """
     dev = design.device
     w = 2.0 * math.pi * (design.f0_hz if f_hz is None else f_hz)
@@ -129,7 +130,8 @@ def angelov_input_z(design: Design, f_hz: float | None = None, z_drain_ohm: comp
     y[1, 1] += gm
     rhs = np.zeros(4, dtype=complex)
     rhs[0] = 1.0
-    return complex(np.linalg.solve(y, rhs)[0])
+    z = complex(np.linalg.solve(y, rhs)[0])
+    return z + dev.ri_ohm if dev.ri_ohm > 0 else z
 
 
 def pozar_l_section(z_load: complex, z0_ohm: float, solution: str) -> tuple[str, float, float]:
