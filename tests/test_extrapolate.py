@@ -57,6 +57,50 @@ def test_boundary_state_is_written_as_initial_conditions():
     assert ".ic v(a)=0.5 v(b)=0.25 v(in)=0" in out
 
 
+def test_a_state_the_simulator_cannot_start_from_keeps_the_start_before_it(monkeypatch):
+    # extrapolated_start runs one transient a round from the state extrapolated in the round before;
+    # when ngspice cannot start from one (the time step collapses at once, as when a gate junction
+    # is thrown into forward bias), the start of the round before, which ran, is the result; a
+    # failure of the first round (the DC start), a time limit and a crash stay errors. The
+    # boundary states are an affine contraction (the RC of the test above), so each round moves
+    # the state and MPE is exact (the module's docstring)
+    from types import SimpleNamespace
+
+    from netgen import simulator
+    from netgen.errors import SimulationError, SimulatorCrashError
+    from netgen.periodic.extrapolate import extrapolated_start
+
+    net = "t\nV1 in 0 SIN(0 1 1e6)\nR1 in a 1k\nC1 a 0 1n\n.tran 1n 10u 0 1n\n.end\n"
+    runs = []
+
+    def fake(netlist, save, stop_check, fail_at, error, **kw):
+        runs.append(netlist)
+        if len(runs) == fail_at:
+            raise error
+        x, a = [np.array([0.1 * len(runs), 0.0])], 0.5
+        for _ in range(stop_check.cycles):
+            x.append(a * x[-1] + (1 - a) * np.array([1.0, 0.0]) + np.array([0.0, 0.01 * len(runs)]))
+        stop_check.states.extend(x)
+        return SimpleNamespace(checker=stop_check)
+
+    collapse = SimulationError("ngspice transient analysis failed: doAnalyses: TRAN:  Timestep too small")
+    monkeypatch.setattr(simulator, "run_transient", lambda n, **kw: fake(n, fail_at=2, error=collapse, **kw))
+    out, cycles, rounds = extrapolated_start(net, net, 1e-6, backend=None, timeout_s=10.0)
+    assert len(runs) == 2 and ".ic v(a)=" in runs[1]  # round 2 was to start from round 1's extrapolation
+    assert rounds == 1 and out == runs[0] == net and cycles == 8  # it could not: round 1's start, which ran
+    runs.clear()
+    monkeypatch.setattr(simulator, "run_transient", lambda n, **kw: fake(n, fail_at=3, error=collapse, **kw))
+    out, cycles, rounds = extrapolated_start(net, net, 1e-6, backend=None, timeout_s=10.0)
+    assert rounds == 2 and out == runs[1] != net and cycles == 16  # round 2's start (round 1's state) ran
+    for fail_at, error in ((1, collapse), (2, SimulationError("ngspice did not finish within the time limit of 10 s")),
+                           (2, SimulatorCrashError("The ngspice worker process died"))):
+        runs.clear()
+        monkeypatch.setattr(simulator, "run_transient",
+                            lambda n, fail_at=fail_at, error=error, **kw: fake(n, fail_at=fail_at, error=error, **kw))
+        with pytest.raises(SimulationError):
+            extrapolated_start(net, net, 1e-6, backend=None, timeout_s=10.0)
+
+
 @pytest.mark.ngspice
 def test_rc_boundary_states_from_ngspice_extrapolate_to_the_analytic_periodic_state():
     # ngspice's own period-boundary states of an RC driven by a sine from v = 0: MPE of 3 states against

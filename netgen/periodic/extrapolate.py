@@ -178,17 +178,32 @@ def extrapolated_start(start_netlist: str, plain_netlist: str, period_s: float, 
     (netlist, cycles_run, rounds_run)
         The transient netlist started on the last extrapolated state, the cycles the rounds
         took, and how many rounds ran (fewer than ``rounds`` once a round moved the state by
-        less than ``ROUND_TOL``).
+        less than ``ROUND_TOL``, or when ngspice could not start from a round's extrapolated
+        state: then the start of the round before, which ran).
     """
     from netgen import simulator  # through the package face, as steady calls it
 
+    from netgen.errors import SimulationError
+
     nodes, inductors = state_vectors(plain_netlist)
     names = tuple(nodes + [f"{name.lower()}#branch" for name in inductors])
-    netlist, used = start_netlist, 0
+    netlist, used, ran = start_netlist, 0, start_netlist
     for r in range(rounds):
         check = BoundaryStates(period_s=period_s, names=names, cycles=cycles)
-        res = simulator.run_transient(netlist, save=list(names), backend=backend, timeout_s=timeout_s,
-                                      stop_check=check, chunk_s=(cycles + 1e-6) * period_s, keep_s=period_s)
+        try:
+            res = simulator.run_transient(netlist, save=list(names), backend=backend, timeout_s=timeout_s,
+                                          stop_check=check, chunk_s=(cycles + 1e-6) * period_s, keep_s=period_s)
+        except SimulationError as exc:
+            # an extrapolated state the simulator cannot start from (a junction thrown far into
+            # forward bias: the time step collapses at once): the last start that ran is kept.
+            # The first round's start, a time limit and a simulator crash are the caller's.
+            if r == 0 or type(exc) is not SimulationError or "time limit" in str(exc):
+                raise
+            if progress:
+                progress(f"extrapolation round {r + 1}: ngspice could not start from the extrapolated "
+                         "state; the previous start is kept")
+            return ran, used, r
+        ran = netlist
         x = np.array(res.checker.states)
         used += len(x) - 1
         if len(x) < skip + 3:
