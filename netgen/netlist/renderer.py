@@ -338,8 +338,8 @@ def _input_ctx(sized: SizedDesign) -> dict | None:
 
 def _angelov_ctx(design, sized: SizedDesign | None = None) -> dict:
     """Template values of the angelov device (templates/devices.j2 ``angelov``): its parameters,
-    the intrinsic node names (``adi``/``asi``/``agi`` behind Rd/Rs/Ri, else ``dsw``/ground/``gate``), the control
-    voltages as B-source text, the gate source amplitude from drive.pin and the input network
+    the intrinsic node names (``adi``/``asi``/``agi`` behind Rd/Rs/Ri, else ``dsw``/ground/``gate``),
+    the control voltages as B-source text, the gate source amplitude from drive.pin and the input network
     (:func:`_input_ctx`; docs/devices.md)."""
     dev, drv = design.device, design.drive
     di = "adi" if dev.rd_ohm > 0 else "dsw"

@@ -182,7 +182,6 @@ def extrapolated_start(start_netlist: str, plain_netlist: str, period_s: float, 
         state: then the start of the round before, which ran).
     """
     from netgen import simulator  # through the package face, as steady calls it
-
     from netgen.errors import SimulationError
 
     nodes, inductors = state_vectors(plain_netlist)

@@ -308,8 +308,8 @@ def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = 
     """(Idc in A, gate amplitude Vg in V) of the angelov device for the warm start.
 
     The gate amplitude (behind the gate resistance Ri) is the source's |Vs| divided by the source
-    resistance plus Ri and the input capacitance at the bias, Cgs + Cgd (1 + Vdd_eff/Vg) (the Miller effect with the drain swinging about Vdd_eff;
-    solved by fixed-point iteration); the junction capacitances are C0/(1 - (V - Vcj)/Vbi)^M (SPICE
+    resistance plus Ri and the input capacitance at the bias, Cgs + Cgd (1 + Vdd_eff/Vg) (the
+    Miller effect with the drain swinging about Vdd_eff; solved by fixed-point iteration); the junction capacitances are C0/(1 - (V - Vcj)/Vbi)^M (SPICE
     diode, clamped at V - Vcj = Vbi/2). Idc is the mean of the Angelov law Ipk (1 + tanh psi) in
     saturation (tanh(alpha Vds) = 1) over one period. Our estimate: measured within 5 % of the
     settled simulation on sims/class_b_angelov.toml and the class-B check of tests/test_angelov.py.
