@@ -163,6 +163,54 @@ def test_tune_command_reaches_8w_on_the_demo_confirmed_in_ngspice(netgen_cli, tm
     assert (tmp_path / "t" / "objective.png").is_file() and (tmp_path / "t" / "confirm" / "metrics.json").is_file()
 
 
+def _ngspice_like_eval(design) -> dict:
+    """What evaluate_fast returns where the estimate does not apply (engine ngspice, the reason),
+    with the tuned-load class-B power Vdd^2/(2 R) at R = 50 ohm (Cripps) as its output power."""
+    return {"engine": "ngspice", "engine_note": "the periodic estimate does not apply (a user subcircuit); ran in ngspice",
+            "settled": True, "pout_w": design.vdd_v ** 2 / 100.0, "drain_efficiency": math.pi / 4}
+
+
+def test_tuning_reports_each_evaluation_and_says_when_every_one_runs_in_ngspice():
+    # the progress callback gets every new evaluation with what computed it and its time; when the
+    # start point ran in ngspice the command says up front that all will, and how long that may take
+    from netgen.cli.closure import slow_path_note
+
+    seen = []
+    res = tune_design(CLASS_E, [parse_free("design.vdd=10V:30V")], parse_target("pout=4W"), budget=30,
+                      evaluate=_ngspice_like_eval, progress=lambda done, total, entry: seen.append((done, total, entry)))
+    assert [d for d, _, _ in seen] == list(range(1, len(res.history) + 1)) and all(t == 30 for _, t, _ in seen)
+    assert all(e["engine"] == "ngspice" and e["seconds"] >= 0 for _, _, e in seen)
+    assert res.x[0] == pytest.approx(20.0, rel=0.01)  # Vdd^2/100 = 4 W (30 evaluations: near, not exact)
+    assert len(res.history) <= 30 and "in ngspice (the periodic estimate does not apply)" in res.method
+    note = slow_path_note({**seen[0][2], "seconds": 24.0}, 300)
+    assert note.startswith("Note: the periodic estimate does not apply (a user subcircuit); each evaluation runs in ngspice")
+    assert "300 evaluations may take about 120 min" in note
+    assert "10 evaluations may take about 5 s" in slow_path_note({**seen[0][2], "seconds": 0.5}, 10)
+
+
+def _failing_eval(design) -> dict:
+    raise AssertionError("a bug in an evaluator")
+
+
+def test_the_budget_is_a_hard_cap_and_a_failing_start_point_stops_the_tuning():
+    # --budget 10 means ten evaluations, however the search is sized (each may be an ngspice run)
+    for budget in (10, 17, 40):
+        res = tune_design(CLASS_E, [parse_free("design.vdd=10V:30V")], parse_target("pout=4W"), budget=budget,
+                          evaluate=_ngspice_like_eval)
+        assert len(res.history) <= budget and f"{len(res.history)} of {budget} evaluations" in res.method
+        assert res.j == min(h["j"] for h in res.history)
+    # a design that fails at its start fails the tuning with the design's own error (the command: exit 2)
+    doc = json.loads(json.dumps(CLASS_E))
+    doc["network"]["values"] = {"shunt_c": "-1 pF"}
+    with pytest.raises(DesignError):
+        tune_design(doc, [parse_free("design.vdd=10V:30V")], parse_target("pout=4W"), budget=20)
+    from netgen.errors import NetgenError
+
+    with pytest.raises(NetgenError, match="the start point of the tuning fails"):
+        tune_design(CLASS_E, [parse_free("design.vdd=10V:30V")], parse_target("pout=4W"), budget=20,
+                    evaluate=_failing_eval)
+
+
 def test_tune_command_user_errors(netgen_cli, tmp_path):
     path = write_toml(tmp_path / "d.toml", CLASS_E)
     code, _out, err = netgen_cli("tune", path, "--free", "network.values.shunt_c=2nF:1nF", "--target", "zvs",

@@ -52,7 +52,8 @@ Example:
 @click.option("--no-confirm", is_flag=True, help="Skip the final ngspice run.")
 @click.option("-o", "--out", type=click.Path(path_type=Path, file_okay=False), default=None,
               help="Output folder (default tune_<design name>/).")
-def tune_command(design_file, free, targets, maximise, minimise, limits, budget, seed, no_confirm, out):
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+def tune_command(design_file, free, targets, maximise, minimise, limits, budget, seed, no_confirm, out, quiet):
     from netgen.design import load_design
     from netgen.studies import (
         parse_extremum,
@@ -70,7 +71,26 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
     goals = [g for t in targets for g in parse_target(t)]
     goals += [parse_extremum(m, "max") for m in maximise] + [parse_extremum(m, "min") for m in minimise]
     goals += [parse_limit(text) for text in limits]
-    result = tune_design(design.raw, frees, goals, source=design.source, budget=budget, seed=seed)
+    bar = None
+    if not quiet:
+        from tqdm import tqdm
+
+        bar = tqdm(total=budget, file=sys.stderr, unit="eval", desc="tune", dynamic_ncols=True,
+                   disable=not sys.stderr.isatty())  # on a terminal only
+
+    def progress(done, total, entry):
+        if done == 1 and entry.get("engine") == "ngspice":  # said once, on a terminal or not
+            click.echo(slow_path_note(entry, total), err=True)
+        if bar is not None:
+            bar.n = min(done, total)
+            bar.set_postfix_str(f"best {entry['best']:.4g}")
+
+    try:
+        result = tune_design(design.raw, frees, goals, source=design.source, budget=budget, seed=seed,
+                             progress=progress)
+    finally:
+        if bar is not None:
+            bar.close()
     out = out or Path(f"tune_{design.name}")
     summary = write_tuning(result, out, Path(design_file).read_text(encoding="utf-8"), confirm=not no_confirm)
     click.echo(f"{len(result.history)} evaluations in {result.seconds:.1f} s ({result.method})")
@@ -87,11 +107,25 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
         if t["ngspice_rel"] is not None:
             click.echo(f"  goal {t['goal']}: ngspice {t['ngspice']:.5g} ({100 * t['ngspice_rel']:+.2f} % from {t['value']:.5g})")
     conf = summary.get("confirm")
-    if conf:
+    if conf and summary["after"].get("engine") == "ngspice":
+        click.echo("  the tuned point itself ran in ngspice (the estimate does not apply): nothing to compare")
+    elif conf:
         flag = " (flagged: more than 0.2 % apart; trust ngspice)" if conf["flagged"] else ""
         click.echo(f"  estimate vs ngspice at the tuned point: Pout {100 * (conf['pout_rel'] or 0):+.3f} %, "
                    f"efficiency {100 * (conf['efficiency_rel'] or 0):+.3f} %{flag}")
     click.echo(f"wrote {out / 'tuned.toml'}, {out / 'report.html'}")
+
+
+def slow_path_note(entry: dict, budget: int) -> str:
+    """The note when the start point ran in ngspice (the periodic estimate does not apply): every
+    evaluation will, so the time of the search is the budget times that of one run."""
+    why = (entry.get("engine_note") or "the periodic estimate does not apply").split(";")[0]
+    secs = float(entry.get("seconds") or 0.0)
+    total = budget * secs
+    length = f"{total:.0f} s" if total < 90.0 else f"{total / 60.0:.0f} min"
+    return (f"Note: {why}; each evaluation runs in ngspice ({secs:.1f} s at the start point), so "
+            f"{budget} evaluations may take about {length}. Ctrl-C stops; a smaller --budget "
+            "or fewer --free keys is quicker.")
 
 
 _LP_HELP = """Harmonic load-pull at the intrinsic plane: an ideal device against ideal terminations.

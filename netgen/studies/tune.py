@@ -20,6 +20,7 @@ J. Global Optimization, 1997) with a small population, then Nelder-Mead within t
 
 from __future__ import annotations
 
+import collections
 import math
 import re
 import time
@@ -28,7 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from netgen.design import design_from_dict, set_dotted
-from netgen.errors import DesignError
+from netgen.errors import DesignError, NetgenError
 
 from .grammar import _split_quantity, format_value, metric_value
 from .plan import pin_network
@@ -256,7 +257,7 @@ def _evaluator():
 
 
 def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, budget: int = 300, seed: int = 1,
-         evaluate=None, sizer=None) -> TuneResult:
+         evaluate=None, sizer=None, progress=None) -> TuneResult:
     """Minimise the objective over the free keys (see the module docstring).
 
     Parameters
@@ -266,11 +267,15 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     free, goals
         From :func:`parse_free`, :func:`parse_target`, :func:`parse_limit`, :func:`parse_extremum`.
     budget : int
-        Evaluations allowed in all (about two thirds for the global search, the rest for the polish).
+        Evaluations allowed in all, a hard cap (about two thirds for the global search, the rest for
+        the polish; the search ends where the next evaluation would exceed it).
     seed : int
         Seed of the global search.
     evaluate : callable(Design) -> metrics, optional
         Default :func:`netgen.studies.fast.evaluate_fast`.
+    progress : callable(done, budget, entry), optional
+        Called after each new evaluation with its history entry (``engine`` says what computed
+        it: ``estimate``, or ``ngspice`` where the estimate does not apply; ``seconds`` its time).
 
     Returns
     -------
@@ -292,16 +297,21 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     evaluate = evaluate or _evaluator()
     history: list[dict] = []
     cache: dict[tuple, tuple[float, dict | None]] = {}
+    failures: dict[tuple, Exception] = {}
     t_start = time.perf_counter()
 
     def run(x_si, stage: str) -> float:
         key = tuple(round(float(x), 12) for x in x_si)
         if key not in cache:
+            if len(history) >= budget:
+                raise _BudgetSpent
+            t0 = time.perf_counter()
             try:
                 metrics = evaluate(problem.design_at(x_si))
             except Exception as exc:  # noqa: BLE001 - a candidate that fails is a bad candidate
                 metrics = None
                 err = f"{type(exc).__name__}: {exc}"
+                failures[key] = exc
             else:
                 err = None
             j = objective(metrics, goals, problem.vdd_v)
@@ -309,13 +319,23 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
             best = min([h["j"] for h in history] + [j])
             history.append({"n": len(history) + 1, "stage": stage, "x": [float(v) for v in x_si], "j": j,
                             "best": best, "error": err,
+                            "engine": (metrics or {}).get("engine"), "engine_note": (metrics or {}).get("engine_note"),
+                            "seconds": time.perf_counter() - t0,
                             "metrics": {g.metric: metric_value(metrics, g.metric) for g in goals}})
+            if progress is not None:
+                progress(len(history), budget, history[-1])
         return cache[key][0]
 
     def fu(u, stage):
         return run([f.value(ui) for f, ui in zip(free, u)], stage)
 
     j0 = run(x0, "start")
+    if history[0]["error"] is not None:  # the design itself fails: no search would find anything
+        exc = failures[tuple(round(float(x), 12) for x in x0)]
+        if isinstance(exc, NetgenError):
+            raise exc
+        raise NetgenError(f"the start point of the tuning fails ({history[0]['error']}); run the design "
+                          "with pashape run to see why.") from exc
     d = len(free)
     pop = max(5, 8 // d)  # population = pop * d candidates a generation
     gens = max(2, int(0.65 * budget) // (pop * d) - 1)
@@ -323,19 +343,31 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     init = np.random.default_rng(seed).uniform(size=(pop * d, d))
     init[0] = u0
     with blas_single_thread():  # the estimate's small solves, limited once for the whole search
-        de = differential_evolution(fu, [(0.0, 1.0)] * d, args=("global",), popsize=pop, maxiter=gens, init=init,
-                                    seed=seed, polish=False, tol=1e-8, mutation=(0.5, 1.0), recombination=0.9)
-        left = max(10, budget - len(history))
-        local = minimize(fu, de.x, args=("polish",), method="Nelder-Mead", bounds=[(0.0, 1.0)] * d,
-                         options={"maxfev": left, "xatol": 1e-6, "fatol": 1e-9,
+        try:  # the budget is a hard cap: the search stops at the evaluation that would exceed it
+            de = differential_evolution(fu, [(0.0, 1.0)] * d, args=("global",), popsize=pop, maxiter=gens,
+                                        init=init, seed=seed, polish=False, tol=1e-8, mutation=(0.5, 1.0),
+                                        recombination=0.9)
+            if budget - len(history) > d:  # room for a simplex and a step of the polish
+                minimize(fu, de.x, args=("polish",), method="Nelder-Mead", bounds=[(0.0, 1.0)] * d,
+                         options={"maxfev": budget - len(history), "xatol": 1e-6, "fatol": 1e-9,
                                   "initial_simplex": _simplex(de.x, 0.05)})
-    u_best = local.x if local.fun <= de.fun else de.x
-    x = [f.value(ui) for f, ui in zip(free, u_best)]
-    j = run(x, "final")
+        except _BudgetSpent:
+            pass
+    best = min(history, key=lambda h: h["j"])  # the first of equals: the start point when nothing beat it
+    x = list(best["x"])
+    j = run(x, "final")  # evaluated already: from the cache
+    engines = collections.Counter(h.get("engine") or "failed" for h in history)
+    where = ("on the periodic estimate" if engines.get("ngspice", 0) == 0 else
+             "in ngspice (the periodic estimate does not apply)" if engines.get("estimate", 0) == 0 else
+             f"on the periodic estimate ({engines['ngspice']} of {len(history)} evaluations in ngspice)")
     return TuneResult(problem=problem, x0=x0, x=x, metrics0=cache[_key(x0)][1], metrics=cache[_key(x)][1],
                       j0=j0, j=j, history=history, seconds=time.perf_counter() - t_start,
                       method=(f"differential_evolution (scipy.optimize; population {pop * d}, {gens} generations, "
-                              f"seed {seed}) then bounded Nelder-Mead, on the periodic estimate"))
+                              f"seed {seed}) then bounded Nelder-Mead, {len(history)} of {budget} evaluations, {where}"))
+
+
+class _BudgetSpent(Exception):
+    """Raised by the objective when the evaluation budget is used up (ends the search)."""
 
 
 def _key(x) -> tuple:

@@ -12,6 +12,7 @@
 
 from __future__ import annotations
 
+import collections
 import html
 import json
 import math
@@ -122,6 +123,7 @@ def _summary(result: TuneResult, full: dict | None) -> dict:
                         "ngspice_rel": (sim / b - 1.0) if (sim is not None and b) else None})
     return {
         "method": result.method, "seconds": result.seconds, "evaluations": len(result.history),
+        "evaluations_by_engine": dict(collections.Counter(h.get("engine") or "failed" for h in result.history)),
         "free": [{"path": f.path, "low": f.lo, "high": f.hi, "unit": f.unit, "start": x0, "tuned": x,
                   "log_scale": f.log} for f, x0, x in zip(p.free, result.x0, result.x)],
         "goals": [g.text for g in goals], "objective_start": result.j0, "objective_end": result.j,
@@ -129,7 +131,8 @@ def _summary(result: TuneResult, full: dict | None) -> dict:
         "ngspice": _pick(full, goals) if full else None,
         "confirm": disagreement(result.metrics or {}, full) if full else None,
         "targets": targets,
-        "history": [{k: h[k] for k in ("n", "stage", "x", "j", "best", "error", "metrics")} for h in result.history],
+        "history": [{k: h.get(k) for k in ("n", "stage", "x", "j", "best", "error", "engine", "metrics")}
+                    for h in result.history],
     }
 
 
