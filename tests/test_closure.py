@@ -294,3 +294,21 @@ def test_gm_fast_path_pin_and_pae_agree_with_ngspice():
     assert est["pae"] == pytest.approx(full["pae"], rel=fast.CONFIRM_TOL)
     for key in ("pin_avail_w", "gain_power_db", "gain_transducer_db"):  # the gm device has no source resistance
         assert est[key] is None and full[key] is None
+
+
+@pytest.mark.ngspice
+def test_a_fast_sweep_says_which_points_ran_in_ngspice(netgen_cli, tmp_path):
+    # a SPICE subcircuit device is outside the estimate: each point runs in ngspice and the summary
+    # says how many and why (docs/closure.md), rather than only that none was confirmed
+    import shutil
+
+    from tests.test_own_designs import DATA, DRYER
+
+    shutil.copy(DATA / "nmos_l1.lib", tmp_path / "nmos_l1.lib")
+    doc = json.loads(json.dumps(DRYER))
+    doc["device"]["include"] = "nmos_l1.lib"
+    path = write_toml(tmp_path / "dryer.toml", doc)
+    code, out, err = netgen_cli("sweep", path, "--fast", "--vary", "design.vdd=20V,24V", "--workers", "1", "--quiet",
+                                "--no-plots", "-o", tmp_path / "s")
+    assert code == 0, err
+    assert "fast path: 2 of 2 points ran in ngspice: the periodic estimate does not apply (XDEV:" in out

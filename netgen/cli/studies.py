@@ -198,6 +198,13 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
             "SELECT idx, error FROM points WHERE sweep_id = ? AND status = 'lost' ORDER BY idx LIMIT 1", (sid,)
         ).fetchone()
         given_up = sum(n >= attempts for n in store.lost_attempts(sid).values())
+        in_ngspice = None
+        if fast:  # points the estimate did not apply to (stored with engine ngspice and not confirmed)
+            where = "FROM points WHERE sweep_id = ? AND engine = 'ngspice' AND confirmation IS NULL"
+            (n_ng,) = store.con.execute(f"SELECT COUNT(*) {where}", (sid,)).fetchone()
+            if n_ng:
+                (text,) = store.con.execute(f"SELECT metrics {where} ORDER BY idx LIMIT 1", (sid,)).fetchone()
+                in_ngspice = (n_ng, json.loads(text or "{}").get("engine_note"))
     csv_path = export_csv(out / STORE_NAME, out / "sweep.csv")
     made = {}
     if not no_plots:
@@ -227,6 +234,9 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
                    + (f"{given_up} were tried {attempts} times: repeat with a higher --attempts to try again"
                       if given_up else "") + ".")
     if fast:
+        if in_ngspice:
+            why = (in_ngspice[1] or "the periodic estimate does not apply").split(";")[0]
+            click.echo(f"fast path: {in_ngspice[0]} of {summary['results']} points ran in ngspice: {why}.")
         _echo_confirmation(summary.get("confirmation"))
     if first_failed:
         n_failed = summary["failed"]
