@@ -258,3 +258,22 @@ def test_class_f_and_class_j_points_confirmed_in_ngspice():
         full = ngspice_point(plan, 0)
         assert full["settled"]
         assert not disagreement(plan.run(0), full)["flagged"], terms
+
+
+def test_opens_where_the_drive_current_has_no_component_are_named():
+    # a half-wave rectified cosine has DC, f0 and even harmonics only (its Fourier series: any table
+    # of Fourier series, common practice), so an open at 3 f0 or 5 f0 leaves that voltage to the
+    # knee alone (docs/closure.md) and is named; an open at 2 f0 is not (the current has I2); the
+    # switch's current follows its voltage, so nothing is named for it
+    from netgen.studies import IdealDevice, free_open_harmonics, make_loadpull_plan
+
+    dev = IdealDevice("current", 24.0, 0.8)
+
+    def plan(device, terms):
+        return make_loadpull_plan(device, z0_ohm=50.0, f0_hz=1e9, terms=terms, rest="short")
+
+    assert free_open_harmonics(dev, plan(dev, {1: "grid:3", 3: "open"})) == [3]
+    assert free_open_harmonics(dev, plan(dev, {1: "grid:3", 2: "open", 3: "20+5j"})) == []
+    assert free_open_harmonics(dev, plan(dev, {1: "grid:3", 2: "ring:0.9:4", 3: "open", 5: "open"})) == [3, 5]
+    switch = IdealDevice("switch", 24.0, 0.8)
+    assert free_open_harmonics(switch, plan(switch, {1: "grid:3", 3: "open"})) == []

@@ -211,6 +211,14 @@ def loadpull_command(design_file, z1, z2, z3, zn, rest, z0_ohm, device_kind, cur
         from netgen.studies import drive_current
 
         drive_current(current, 1.0, 16)  # a wrong --current is an error before anything runs
+    from netgen.studies import free_open_harmonics
+
+    free = free_open_harmonics(device, plan)
+    if free:
+        which = ", ".join(f"{n} f0" for n in free)
+        click.echo(f"Note: the drive current has no component at {which}, terminated open here: the drain voltage "
+                   "there, and with it the peak drain voltage, is nearly undetermined (read it as indicative; "
+                   "efficiency and P1 are not affected; docs/closure.md).", err=True)
     out = out or Path(f"loadpull_{design.name}")
     bar = None
     if not quiet:

@@ -29,6 +29,7 @@ _EXPORTS = {
     "evaluate_ngspice": "fast",
     "IdealDevice": "loadpull",
     "drive_current": "loadpull",
+    "free_open_harmonics": "loadpull",
     "loadpull_outputs": "loadpull_run",
     "make_loadpull_plan": "loadpull",
     "parse_extremum": "tune",

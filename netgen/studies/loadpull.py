@@ -47,6 +47,7 @@ __all__ = [
     "LoadPullPlan",
     "Termination",
     "drive_current",
+    "free_open_harmonics",
     "make_loadpull_plan",
     "parse_termination",
     "raab_coefficients",
@@ -107,6 +108,24 @@ def drive_current(kind: str, imax_a: float, points: int = LP_POINTS) -> np.ndarr
         i = raab_current(int(m.group(1)), points)
         return imax_a * i / i.max()
     raise DesignError(f"--current {kind!r}: use half-sine or even:M (Raab's current with even harmonics up to M).")
+
+
+def free_open_harmonics(device: "IdealDevice", plan: "LoadPullPlan") -> list[int]:
+    """Harmonics n >= 2 terminated open somewhere in the study where the current source's drive
+    has no component (|I_n| below 1e-9 |I_1|: a half sine's odd harmonics, Raab's even:M current's
+    odd ones): the drain voltage there is held only where the knee touches, so it, and the peak
+    drain voltage, are nearly undetermined (docs/closure.md); efficiency and P1 are not (V_n I_n = 0).
+    Empty for the switch, whose current follows the drain voltage."""
+    if device.kind != "current":
+        return []
+    spectrum = np.abs(np.fft.rfft(drive_current(device.current, 1.0, device.points)))
+    out = []
+    for t in plan.terms:
+        n = t.harmonic
+        if n >= 2 and n < spectrum.size and any(not np.isfinite(complex(z)) for z in t.values) \
+                and spectrum[n] < 1e-9 * spectrum[1]:
+            out.append(n)
+    return out
 
 
 @dataclass(frozen=True)
