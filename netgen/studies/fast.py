@@ -150,6 +150,9 @@ def estimate_waveforms(sized, netlist: str, points: int | None = None):
     gate = _gate_drive(netlist, state, T)
     if gate is not None:
         v["gate"], i["gate"] = rolled(gate[0]), rolled(gate[1])
+        i["source"] = i["gate"]  # the drive source's current (as the simulator path, periodic.steady)
+        if "vigate#branch" in state.series:  # behind an input network the gate's own current is VIGATE's
+            i["gate"] = rolled(state.series["vigate#branch"])
     vd, idr = state.series["drain"], state.series["vidrain#branch"]
     peaks = {"vd_max_v": float(vd.max()), "vd_min_v": float(vd.min()),
              "id_max_a": float(idr.max()), "id_min_a": float(idr.min())}
