@@ -400,7 +400,8 @@ def _newton(elements: list[NonlinearElement], ports: list[str], voc_k: np.ndarra
             if not fresh or limited or norm <= (1 - 0.25 * lam) * norm0 or lam < 1e-4:
                 break
             lam *= 0.5
-        if fresh and not limited and norm > (1 - 0.25 * lam) * norm0 and float(np.abs(r).max()) < NEWTON_STALL_TOL * scale:
+        stalled = fresh and not limited and norm > (1 - 0.25 * lam) * norm0
+        if stalled and float(np.abs(r).max()) < NEWTON_STALL_TOL * scale:
             break  # stalled at the Jacobian's precision floor, already within NEWTON_STALL_TOL
         if not fresh and (limited or norm > CHORD_RATE * norm0):
             lu = None  # the old Jacobian no longer contracts fast enough: a fresh Newton step

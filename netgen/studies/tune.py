@@ -311,7 +311,8 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
             except Exception as exc:  # noqa: BLE001 - a candidate that fails is a bad candidate
                 metrics = None
                 err = f"{type(exc).__name__}: {exc}"
-                failures[key] = exc
+                if stage == "start":  # kept to be raised: the design itself fails
+                    failures[key] = exc
             else:
                 err = None
             j = objective(metrics, goals, problem.vdd_v)
