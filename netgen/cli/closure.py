@@ -119,7 +119,9 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
 def slow_path_note(entry: dict, budget: int) -> str:
     """The note when the start point ran in ngspice (the periodic estimate does not apply): every
     evaluation will, so the time of the search is the budget times that of one run."""
-    why = (entry.get("engine_note") or "the periodic estimate does not apply").split(";")[0]
+    from netgen.studies.fast import fallback_reason
+
+    why = fallback_reason(entry.get("engine_note"))
     secs = float(entry.get("seconds") or 0.0)
     total = budget * secs
     length = f"{total:.0f} s" if total < 90.0 else f"{total / 60.0:.0f} min"

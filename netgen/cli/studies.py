@@ -235,7 +235,9 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
                       if given_up else "") + ".")
     if fast:
         if in_ngspice:
-            why = (in_ngspice[1] or "the periodic estimate does not apply").split(";")[0]
+            from netgen.studies.fast import fallback_reason
+
+            why = fallback_reason(in_ngspice[1])
             click.echo(f"fast path: {in_ngspice[0]} of {summary['results']} points ran in ngspice: {why}.")
         _echo_confirmation(summary.get("confirmation"))
     if first_failed:

@@ -127,8 +127,7 @@ def _digest_repr(key: str, value) -> str:
     linear = getattr(value, "cds_law", "linear") == "linear"
     kept = [f for f in dataclasses.fields(value) if f.repr and not (linear and f.name.startswith("cds_"))
             and not (f.name in _LATER_KEYS and getattr(value, f.name) == _LATER_KEYS[f.name])]
-    if len(kept) == len([f for f in dataclasses.fields(value) if f.repr]):
-        return repr(value)
+    # the dataclass repr's own form, so a device with every field kept gives repr(value)
     return f"{type(value).__name__}(" + ", ".join(f"{f.name}={getattr(value, f.name)!r}" for f in kept) + ")"
 
 

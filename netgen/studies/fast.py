@@ -39,6 +39,7 @@ __all__ = [
     "evaluate_estimate",
     "evaluate_fast",
     "evaluate_ngspice",
+    "fallback_reason",
     "ngspice_turn_on",
     "summarize_confirmation",
     "turn_on_state",
@@ -294,6 +295,12 @@ def evaluate_fast(design) -> dict:
         metrics = evaluate_ngspice(design)
         metrics["engine_note"] = f"the periodic estimate does not apply ({exc}); ran in ngspice"
         return metrics
+
+
+def fallback_reason(engine_note: str | None) -> str:
+    """Why a point ran in ngspice, from its ``engine_note`` (written by :func:`evaluate_fast`)
+    without the trailing "; ran in ngspice"."""
+    return (engine_note or "the periodic estimate does not apply").split(";")[0]
 
 
 def disagreement(fast: dict, full: dict) -> dict:

@@ -120,14 +120,15 @@ CIRCLE_STRESS = ("peak_vd_v", "min_vd_v", "peak_id_a", "device_dissipation_w")
 
 def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
     """Reflection coefficients of the load-circle points, their load phase (deg, NaN when the
-    row has none), efficiency, power and the device stress figures of ``CIRCLE_STRESS``.
+    row has none), efficiency, power and the device stress figures of ``CIRCLE_STRESS``; ``group``
+    (each point's values of the other --vary axes, as text) and ``group_axes`` (their names).
 
     Gamma = (Z - RL)/(Z + RL) with Z = design.load + j design.load_x (Pozar).
     """
     from netgen.design import parse_quantity
 
     keys = ("drain_efficiency", "pout_w", *CIRCLE_STRESS)
-    g, phase, group, vals = [], [], [], {k: [] for k in keys}
+    g, phase, group, names, vals = [], [], [], set(), {k: [] for k in keys}
     for r in rows:
         s = r["inputs"].get("set", {})
         if "design.load" not in s:
@@ -137,23 +138,25 @@ def circle_data(rows: Sequence[dict], rl_ohm: float) -> dict:
         g.append((z - rl_ohm) / (z + rl_ohm))
         axes = r["inputs"].get("axes", {})
         phase.append(float(axes.get("load_phase_deg", math.nan)))
-        group.append(", ".join(f"{k}={_axis_text(v)}" for k, v in sorted(axes.items()) if k != "load_phase_deg"))
+        others = sorted((k, v) for k, v in axes.items() if k != "load_phase_deg")
+        group.append(", ".join(f"{k}={_axis_text(v)}" for k, v in others))
+        names.update(k for k, _ in others)
         for k in keys:
             vals[k].append(_value(r, k))
     return {"gamma": np.array(g, dtype=complex), "phase_deg": np.array(phase, dtype=float), "group": group,
+            "group_axes": sorted(names),
             **{k: np.array(v, dtype=float) for k, v in vals.items()}}
 
 
 def _best_at_each_load(gamma: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The distinct loads (to 1e-9 in Gamma) and the highest value at each (NaN where none ran)."""
     keys = np.round(gamma.real, 9) + 1j * np.round(gamma.imag, 9)
-    uniq, inverse = np.unique(keys, return_inverse=True)
+    uniq, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
     best = np.full(len(uniq), np.nan)
     for k in range(len(uniq)):
         v = values[inverse == k]
         if np.isfinite(v).any():
             best[k] = np.nanmax(v)
-    first = np.array([np.flatnonzero(inverse == k)[0] for k in range(len(uniq))], dtype=int)
     return gamma[first], best
 
 
@@ -261,7 +264,7 @@ def _worst(data: dict, key: str, pick, unit: str) -> str:
         return "-"
     i = int(pick(v))
     where = f" at {data['phase_deg'][i]:g} deg" if np.isfinite(data["phase_deg"][i]) else ""
-    group = (data.get("group") or [""] * len(v))[i]
+    group = data["group"][i] if data.get("group") else ""
     return f"{v[i]:.3g} {unit}{where}" + (f" ({group})" if group else "")
 
 
@@ -279,8 +282,8 @@ def _stress_panels(ax_v, ax_i, data: dict, vdd_v: float | None) -> None:
         ax_v.set_xlabel("point")
     else:
         ax_v.set_xlabel("load phase (deg)")
-    groups = list(dict.fromkeys(data.get("group") or [""] * len(x)))
     member = np.array(data.get("group") or [""] * len(x), dtype=object)
+    groups = list(dict.fromkeys(member))
     joined = len(groups) <= MAX_CIRCLE_GROUPS
     styles = ("-", "--", ":", "-.", (0, (5, 1, 1, 1)), (0, (1, 3)))
 
@@ -295,7 +298,7 @@ def _stress_panels(ax_v, ax_i, data: dict, vdd_v: float | None) -> None:
     draw(ax_v, "peak_vd_v", "^", "#b22222", "peak drain voltage")
     draw(ax_v, "min_vd_v", "v", "#1f4e79", "min drain voltage")
     ax_v.axhline(0.0, color="#888888", lw=0.7)
-    if vdd_v and not any(g.startswith("design.vdd=") or ", design.vdd=" in g for g in groups):
+    if vdd_v and "design.vdd" not in data.get("group_axes", ()):
         ax_v.axhline(vdd_v, color="#888888", lw=0.7, ls=":", label="Vdd")  # one Vdd (not an axis)
     ax_v.set_ylabel("drain voltage (V)", fontsize=8)
     ax_v.legend(fontsize=7, loc="best")

@@ -297,11 +297,11 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     evaluate = evaluate or _evaluator()
     history: list[dict] = []
     cache: dict[tuple, tuple[float, dict | None]] = {}
-    failures: dict[tuple, Exception] = {}
+    start_failure: list[Exception] = []  # the start point's exception, raised below
     t_start = time.perf_counter()
 
     def run(x_si, stage: str) -> float:
-        key = tuple(round(float(x), 12) for x in x_si)
+        key = _key(x_si)
         if key not in cache:
             if len(history) >= budget:
                 raise _BudgetSpent
@@ -312,7 +312,7 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
                 metrics = None
                 err = f"{type(exc).__name__}: {exc}"
                 if stage == "start":  # kept to be raised: the design itself fails
-                    failures[key] = exc
+                    start_failure.append(exc)
             else:
                 err = None
             j = objective(metrics, goals, problem.vdd_v)
@@ -332,7 +332,7 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
 
     j0 = run(x0, "start")
     if history[0]["error"] is not None:  # the design itself fails: no search would find anything
-        exc = failures[tuple(round(float(x), 12) for x in x0)]
+        exc = start_failure[0]
         if isinstance(exc, NetgenError):
             raise exc
         raise NetgenError(f"the start point of the tuning fails ({history[0]['error']}); run the design "
@@ -357,7 +357,7 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
     best = min(history, key=lambda h: h["j"])  # the first of equals: the start point when nothing beat it
     x = list(best["x"])
     j = run(x, "final")  # evaluated already: from the cache
-    engines = collections.Counter(h.get("engine") or "failed" for h in history)
+    engines = engine_counts(history)
     where = ("on the periodic estimate" if engines.get("ngspice", 0) == 0 else
              "in ngspice (the periodic estimate does not apply)" if engines.get("estimate", 0) == 0 else
              f"on the periodic estimate ({engines['ngspice']} of {len(history)} evaluations in ngspice)")
@@ -365,6 +365,11 @@ def tune_design(doc: dict, free: list[Free], goals: list[Goal], *, source=None, 
                       j0=j0, j=j, history=history, seconds=time.perf_counter() - t_start,
                       method=(f"differential_evolution (scipy.optimize; population {pop * d}, {gens} generations, "
                               f"seed {seed}) then bounded Nelder-Mead, {len(history)} of {budget} evaluations, {where}"))
+
+
+def engine_counts(history: list[dict]) -> dict[str, int]:
+    """Evaluations of a tuning history by what computed them (``estimate``, ``ngspice``, ``failed``)."""
+    return dict(collections.Counter(h.get("engine") or "failed" for h in history))
 
 
 class _BudgetSpent(Exception):

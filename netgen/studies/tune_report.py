@@ -12,7 +12,6 @@
 
 from __future__ import annotations
 
-import collections
 import html
 import json
 import math
@@ -24,7 +23,7 @@ from netgen.design import format_quantity
 
 from .fast import disagreement, ngspice_turn_on
 from .grammar import metric_value
-from .tune import TuneResult
+from .tune import TuneResult, engine_counts
 
 __all__ = ["TABLE_METRICS", "confirm_tuned", "tuned_toml", "write_tuning"]
 
@@ -123,7 +122,7 @@ def _summary(result: TuneResult, full: dict | None) -> dict:
                         "ngspice_rel": (sim / b - 1.0) if (sim is not None and b) else None})
     return {
         "method": result.method, "seconds": result.seconds, "evaluations": len(result.history),
-        "evaluations_by_engine": dict(collections.Counter(h.get("engine") or "failed" for h in result.history)),
+        "evaluations_by_engine": engine_counts(result.history),
         "free": [{"path": f.path, "low": f.lo, "high": f.hi, "unit": f.unit, "start": x0, "tuned": x,
                   "log_scale": f.log} for f, x0, x in zip(p.free, result.x0, result.x)],
         "goals": [g.text for g in goals], "objective_start": result.j0, "objective_end": result.j,

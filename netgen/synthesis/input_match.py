@@ -130,8 +130,7 @@ def angelov_input_z(design: Design, f_hz: float | None = None, z_drain_ohm: comp
     y[1, 1] += gm
     rhs = np.zeros(4, dtype=complex)
     rhs[0] = 1.0
-    z = complex(np.linalg.solve(y, rhs)[0])
-    return z + dev.ri_ohm if dev.ri_ohm > 0 else z
+    return complex(np.linalg.solve(y, rhs)[0]) + dev.ri_ohm
 
 
 def pozar_l_section(z_load: complex, z0_ohm: float, solution: str) -> tuple[str, float, float]:

@@ -324,7 +324,7 @@ def angelov_idc_estimate(design: Design, veff_v: float, in_comps: dict | None = 
     cgd = cj(dev.cgd0_f, dev.vgate_bias_v - design.vdd_v)
     vs = drv.vs_peak_v
     vg = vs
-    r_in = drv.source_r_ohm + dev.ri_ohm if dev.ri_ohm > 0 else drv.source_r_ohm  # to the intrinsic gate
+    r_in = drv.source_r_ohm + dev.ri_ohm  # to the intrinsic gate (+ 0.0 without Ri: the same double)
     for _ in range(30):
         vg = vs / abs(1.0 + 1j * w * r_in * (cgs + cgd * (1.0 + veff_v / max(vg, 1e-12))))
     if in_comps:
