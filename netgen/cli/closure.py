@@ -119,7 +119,7 @@ def tune_command(design_file, free, targets, maximise, minimise, limits, budget,
 def slow_path_note(entry: dict, budget: int) -> str:
     """The note when the start point ran in ngspice (the periodic estimate does not apply): every
     evaluation will, so the time of the search is the budget times that of one run."""
-    from netgen.studies.fast import fallback_reason
+    from netgen.studies import fallback_reason
 
     why = fallback_reason(entry.get("engine_note"))
     secs = float(entry.get("seconds") or 0.0)

@@ -235,7 +235,7 @@ def sweep_command(design_file, vary, vswr, tolerance, samples, seed, dist, specs
                       if given_up else "") + ".")
     if fast:
         if in_ngspice:
-            from netgen.studies.fast import fallback_reason
+            from netgen.studies import fallback_reason
 
             why = fallback_reason(in_ngspice[1])
             click.echo(f"fast path: {in_ngspice[0]} of {summary['results']} points ran in ngspice: {why}.")

@@ -27,6 +27,7 @@ _EXPORTS = {
     "evaluate_estimate": "fast",
     "evaluate_fast": "fast",
     "evaluate_ngspice": "fast",
+    "fallback_reason": "fast",
     "IdealDevice": "loadpull",
     "drive_current": "loadpull",
     "free_open_harmonics": "loadpull",
